@@ -1,0 +1,67 @@
+"""IIR design (scipy.signal) and coefficient quantisation for the output-rate filters.
+
+Sections are second-order, direct form I, one 64-bit accumulator per section, one rounding per
+section output (``fixedpoint.rshr``) and saturation of every section output to the data limit.
+A first-order section is a biquad with b2 = a2 = 0.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import signal
+
+# Audio low-pass: elliptic, 0.1 dB ripple, 60 dB stopband. Common practice, no source: an
+# elliptic low-pass is the cheapest IIR per dB of stopband for a given order.
+LPF_ORDER = 4
+LPF_RIPPLE_DB = 0.1
+LPF_STOP_DB = 60.0
+POLE_MARGIN = 1e-4  # quantised poles must stay this far inside the unit circle
+
+
+def lowpass_sos(audio_hz: float, fs_hz: float) -> np.ndarray:
+    """Float design of the audio low-pass with its passband edge at audio_hz."""
+    return signal.ellip(LPF_ORDER, LPF_RIPPLE_DB, LPF_STOP_DB, audio_hz, btype="low", fs=fs_hz, output="sos")
+
+
+def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
+    """First-order de-emphasis 1/(1 + s tau) by the bilinear transform, pre-warped at the corner.
+
+    Pre-warping puts the -3 dB point exactly at 1/(2 pi tau) (ITU-R BS.450: 50 us -> 3183.1 Hz,
+    75 us -> 2122.1 Hz)."""
+    k = math.tan(1.0 / (2.0 * tau_s * fs_hz))  # tan(pi fc / fs) with fc = 1 / (2 pi tau)
+    b = k / (1.0 + k)
+    a1 = (k - 1.0) / (1.0 + k)
+    return np.array([[b, b, 0.0, 1.0, a1, 0.0]])
+
+
+def quantise(sos: np.ndarray, coef_bits: int) -> list[tuple[int, int, int, int, int]]:
+    """Round each coefficient to Q(coef_bits); returns (b0, b1, b2, a1, a2) per section (a0 = 1).
+
+    Raises ValueError if a quantised section has a pole on or outside |z| = 1 - POLE_MARGIN."""
+    scale = 1 << coef_bits
+    out = []
+    for row in np.asarray(sos, dtype=float):
+        b0, b1, b2, a0, a1, a2 = row
+        if abs(a0 - 1.0) > 1e-12:
+            raise ValueError("sections must be normalised to a0 = 1")
+        q = tuple(int(round(c * scale)) for c in (b0, b1, b2, a1, a2))
+        poles = np.roots([1.0, q[3] / scale, q[4] / scale])
+        if np.max(np.abs(poles)) >= 1.0 - POLE_MARGIN:
+            raise ValueError(f"quantised poles {poles} leave the unit circle margin")
+        out.append(q)
+    return out
+
+
+def as_sos(sections, coef_bits: int) -> np.ndarray:
+    """Quantised sections back to a float sos array (for responses of the integer filter)."""
+    scale = float(1 << coef_bits)
+    return np.array([[b0 / scale, b1 / scale, b2 / scale, 1.0, a1 / scale, a2 / scale]
+                     for (b0, b1, b2, a1, a2) in sections])
+
+
+def accumulator_bound(sections, data_limit: int) -> int:
+    """Largest |accumulator| any section can reach when every input and state is within
+    +-data_limit: sum of |coefficient| * limit, plus the rounding constant added before the shift."""
+    return max(sum(abs(c) for c in sec) for sec in sections) * data_limit

@@ -1,0 +1,139 @@
+"""The planner: picks the scheme, the grid rate (and so the CIC ratio) and the phase word, and says why.
+
+Only the timestamp scheme exists so far; the option table already has one row per grid choice so
+that other schemes slot in as more rows.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from . import cic, iir, schemes
+from .cores import CORES
+from .spec import Spec, SpecError
+
+CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 (DESIGN.md section 4)
+MAX_RATIO = 64
+MAX_PHASE_SHIFT = 24   # finer phase than 2^-24 of a stamp interval buys nothing at any timer rate
+MIN_PHASE_SHIFT = 8
+REG_BITS = 32          # CIC registers and the phase word are 32-bit on every target
+OVERDEVIATION = 2.0    # the phase step limit allows this many times the peak deviation
+GAP_FRACTION = 0.5     # a stamp interval longer than 1 / (this * lowest frequency) is a gap
+TIE_DB = 0.5           # predicted SINAD within this is a tie; the cheaper option wins
+
+
+@dataclass(frozen=True)
+class Option:
+    scheme: str
+    ratio: int
+    grid_hz: int
+    phase_shift: int
+    load: float
+    predicted_sinad_db: float
+    timer_sinad_db: float
+    curvature_sinad_db: float
+    kept: bool
+    reason: str
+
+
+@dataclass(frozen=True)
+class Plan:
+    scheme: str
+    ratio: int
+    order: int
+    grid_hz: int
+    grid_ticks: int
+    phase_shift: int
+    gap_ticks: int
+    x_limit: int
+    cic_in_bits: int
+    load: schemes.Load
+    prediction: schemes.Prediction
+    options: tuple[Option, ...]
+    notes: tuple[str, ...] = field(default=())
+
+    def to_dict(self) -> dict:
+        import dataclasses
+        return dataclasses.asdict(self)
+
+
+def _phase_words(spec: Spec, ratio: int, grid_hz: int, prescale: int):
+    """The largest phase_shift for which neither the division nor the CIC can overflow 32 bits,
+    with the gap limit and phase-step limit that go with it; None if below MIN_PHASE_SHIFT."""
+    sig, tgt = spec.signal, spec.target
+    f_lo_guard = GAP_FRACTION * (sig.if_hz - sig.deviation_hz)
+    gap = math.ceil(tgt.timer_hz * prescale / f_lo_guard)
+    if tgt.timer_bits == 16:
+        gap = min(gap, 65535)
+    f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
+    growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
+    for shift in range(min(MAX_PHASE_SHIFT, REG_BITS - gap.bit_length()), MIN_PHASE_SHIFT - 1, -1):
+        x_limit = math.ceil(f_hi / prescale / grid_hz * (1 << shift))
+        in_bits = x_limit.bit_length() + 1
+        if cic.full_width(in_bits, CIC_ORDER, ratio) <= REG_BITS - 1:
+            return shift, gap, x_limit, in_bits
+    return None
+
+
+def plan(spec: Spec) -> Plan:
+    """Choose the grid rate and word lengths of the timestamp scheme for ``spec``."""
+    sig, out, tgt = spec.signal, spec.output, spec.target
+    core = CORES[tgt.core]
+    prescale = 1
+    ticks_per_out = tgt.timer_hz // out.rate_hz
+    edge_max = (sig.if_hz + sig.deviation_hz) / prescale
+    sections = len(iir.lowpass_sos(sig.audio_hz, out.rate_hz)) + (1 if sig.deemphasis_us else 0)
+    options = []
+    best = None
+    for ratio in range(2, MAX_RATIO + 1):
+        if ticks_per_out % ratio:
+            continue
+        grid_hz = out.rate_hz * ratio
+        words = _phase_words(spec, ratio, grid_hz, prescale)
+        load = schemes.timestamp_load(core, cpu_hz=tgt.cpu_hz, isr_cycles=tgt.isr_cycles, dma=tgt.capture_dma,
+                                      edge_hz_max=edge_max, grid_hz=grid_hz, out_hz=out.rate_hz,
+                                      n=CIC_ORDER, sections=sections)
+        pred = schemes.predict_timestamp(if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
+                                         grid_hz=grid_hz, out_hz=out.rate_hz, r=ratio, n=CIC_ORDER,
+                                         band_hz=sig.audio_hz, prescale=prescale)
+        if grid_hz > 2 * edge_max:
+            reason = f"grid {grid_hz} Hz is over twice the highest edge rate: nothing to gain"
+            ok = False
+        elif words is None:
+            reason = "no 32-bit phase word fits this ratio"
+            ok = False
+        elif load.fraction > tgt.cpu_budget:
+            reason = f"CPU load {load.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}"
+            ok = False
+        else:
+            reason = "feasible"
+            ok = True
+        opt = Option("timestamp", ratio, grid_hz, words[0] if words else 0, load.fraction, pred.sinad_db,
+                     pred.timer_sinad_db, pred.curvature_sinad_db, ok, reason)
+        options.append((opt, words, load, pred))
+        if ok and (best is None or opt.predicted_sinad_db > best[0].predicted_sinad_db + TIE_DB):
+            best = (opt, words, load, pred)
+    if best is None:
+        why = "; ".join(f"R={o.ratio}: {o.reason}" for o, *_ in options) or \
+              f"no CIC ratio from 2 to {MAX_RATIO} divides the {ticks_per_out} timer ticks of one output period"
+        raise SpecError("target", tgt.core, f"no feasible timestamp design: {why}")
+    chosen, words, load, pred = best
+    table = []
+    for o, *_ in options:
+        if o is chosen:
+            o = Option(**{**o.__dict__, "reason": "chosen: best predicted SINAD (ties go to the lower load)"})
+        elif o.kept:
+            o = Option(**{**o.__dict__, "kept": False, "reason": "feasible, not chosen"})
+        table.append(o)
+    notes = list(spec.warnings)
+    droop = cic.droop_db(sig.audio_hz, out.rate_hz, CIC_ORDER, chosen.ratio)
+    notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB (no compensation yet)")
+    if pred.curvature_sinad_db < pred.timer_sinad_db - 3:
+        notes.append("linear interpolation (phase curvature within one stamp interval) limits quality "
+                     f"to about {pred.curvature_sinad_db:.1f} dB, below the timer's "
+                     f"{pred.timer_sinad_db:.1f} dB; a higher-order estimator would lift it")
+    shift, gap, x_limit, in_bits = words
+    return Plan(scheme="timestamp", ratio=chosen.ratio, order=CIC_ORDER, grid_hz=chosen.grid_hz,
+                grid_ticks=ticks_per_out // chosen.ratio, phase_shift=shift, gap_ticks=gap, x_limit=x_limit,
+                cic_in_bits=in_bits, load=load, prediction=pred, options=tuple(table), notes=tuple(notes))

@@ -1,0 +1,255 @@
+"""TOML spec -> validated, frozen Spec.
+
+Every refusal is a ``SpecError`` naming the field, the value found and what is allowed; the CLI
+prints it on one line and exits with status 2. Soft problems (legal but unusual choices) are
+collected as warnings on the Spec.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .cores import CORES
+
+C_KEYWORDS = frozenset(
+    """auto break case char const continue default do double else enum extern float for goto if
+    inline int long register restrict return short signed sizeof static struct switch typedef union
+    unsigned void volatile while _Bool _Complex _Imaginary _Alignas _Alignof _Atomic _Generic
+    _Noreturn _Static_assert _Thread_local bool true false NULL""".split()
+)
+MAX_NAME = 24
+
+
+class SpecError(ValueError):
+    """A spec field that cannot be accepted: which field, what was there, what is allowed."""
+
+    def __init__(self, field_name: str, value, allowed: str):
+        self.field = field_name
+        self.value = value
+        self.allowed = allowed
+        super().__init__(f"{field_name} = {value!r}: {allowed}")
+
+
+@dataclass(frozen=True)
+class Signal:
+    if_hz: float
+    deviation_hz: float
+    audio_hz: float
+    deemphasis_us: float = 0.0
+
+
+@dataclass(frozen=True)
+class Output:
+    rate_hz: int
+    format: str = "s16"
+    full_scale_hz: float = 0.0  # 0 in the file means: the peak deviation
+
+
+@dataclass(frozen=True)
+class Target:
+    core: str
+    cpu_hz: float
+    timer_hz: int
+    timer_bits: int = 32
+    capture_dma: bool = False
+    isr_cycles: int = 0  # 0 in the file means: the core profile's figure
+    cpu_budget: float = 0.5
+
+
+@dataclass(frozen=True)
+class Spec:
+    name: str
+    signal: Signal
+    output: Output
+    target: Target
+    warnings: tuple[str, ...] = field(default=(), compare=False)
+
+    def to_dict(self) -> dict:
+        d = dataclasses.asdict(self)
+        d.pop("warnings")
+        return d
+
+
+# --- field readers -----------------------------------------------------------------------------
+
+_SECTIONS = {
+    "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us"},
+    "output": {"rate_hz", "format", "full_scale_hz"},
+    "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "capture_dma", "isr_cycles", "cpu_budget"},
+}
+_TOP = {"name"} | set(_SECTIONS)
+
+
+def _number(tbl: dict, sec: str, key: str, *, default=None, positive=True, allow_zero=False) -> float:
+    fname = f"{sec}.{key}"
+    if key not in tbl:
+        if default is None:
+            raise SpecError(fname, None, "is required (a number)")
+        return default
+    v = tbl[key]
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise SpecError(fname, v, "must be a number")
+    if not math.isfinite(v):
+        raise SpecError(fname, v, "must be a finite number")
+    if positive and (v < 0 or (v == 0 and not allow_zero)):
+        raise SpecError(fname, v, "must be greater than zero" if not allow_zero else "must be zero or more")
+    return float(v)
+
+
+def _integer(tbl: dict, sec: str, key: str, *, default=None, choices=None, minimum=None) -> int:
+    fname = f"{sec}.{key}"
+    if key not in tbl:
+        if default is None:
+            raise SpecError(fname, None, "is required (a whole number)")
+        return default
+    v = tbl[key]
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or (isinstance(v, float) and not v.is_integer()):
+        raise SpecError(fname, v, "must be a whole number")
+    v = int(v)
+    if choices is not None and v not in choices:
+        raise SpecError(fname, v, "must be one of " + ", ".join(str(c) for c in choices))
+    if minimum is not None and v < minimum:
+        raise SpecError(fname, v, f"must be at least {minimum}")
+    return v
+
+
+def _check_keys(tbl: dict, where: str, allowed: set[str]) -> None:
+    for k in tbl:
+        if k not in allowed:
+            fname = f"{where}.{k}" if where else k
+            raise SpecError(fname, tbl[k], "is not a known field; allowed here: " + ", ".join(sorted(allowed)))
+
+
+def _section(raw: dict, sec: str) -> dict:
+    tbl = raw.get(sec)
+    if tbl is None:
+        raise SpecError(sec, None, f"the [{sec}] table is required")
+    if not isinstance(tbl, dict):
+        raise SpecError(sec, tbl, f"must be a table [{sec}]")
+    _check_keys(tbl, sec, _SECTIONS[sec])
+    return tbl
+
+
+def _name(raw: dict) -> str:
+    if "name" not in raw:
+        raise SpecError("name", None, "is required: the C prefix of every emitted symbol")
+    v = raw["name"]
+    if not isinstance(v, str) or not re.fullmatch(r"[A-Za-z][A-Za-z0-9_]*", v):
+        raise SpecError("name", v, "must be a C identifier: a letter, then letters, digits or _")
+    if v in C_KEYWORDS or v.lower() in C_KEYWORDS:
+        raise SpecError("name", v, "is a C keyword or reserved word; choose another prefix")
+    if len(v) > MAX_NAME or "__" in v:
+        raise SpecError("name", v, f"must be at most {MAX_NAME} characters with no double underscore")
+    return v
+
+
+# --- the spec ----------------------------------------------------------------------------------
+
+def parse_spec(raw: dict) -> Spec:
+    """Validate a spec given as the dict a TOML file parses to."""
+    if not isinstance(raw, dict):
+        raise SpecError("(spec)", raw, "must be a TOML table")
+    _check_keys(raw, "", _TOP)
+    name = _name(raw)
+    warnings: list[str] = []
+
+    s = _section(raw, "signal")
+    sig = Signal(
+        if_hz=_number(s, "signal", "if_hz"),
+        deviation_hz=_number(s, "signal", "deviation_hz"),
+        audio_hz=_number(s, "signal", "audio_hz"),
+        deemphasis_us=_number(s, "signal", "deemphasis_us", default=0.0, allow_zero=True),
+    )
+    o = _section(raw, "output")
+    fmt = o.get("format", "s16")
+    if fmt != "s16":
+        raise SpecError("output.format", fmt, 'must be "s16" (signed 16-bit PCM)')
+    out = Output(
+        rate_hz=_integer(o, "output", "rate_hz", minimum=1),
+        format=fmt,
+        full_scale_hz=_number(o, "output", "full_scale_hz", default=sig.deviation_hz),
+    )
+    t = _section(raw, "target")
+    core = t.get("core")
+    if core not in CORES:
+        raise SpecError("target.core", core, "must be one of " + ", ".join(sorted(CORES)))
+    dma = t.get("capture_dma", False)
+    if not isinstance(dma, bool):
+        raise SpecError("target.capture_dma", dma, "must be true or false")
+    tgt = Target(
+        core=core,
+        cpu_hz=_number(t, "target", "cpu_hz"),
+        timer_hz=_integer(t, "target", "timer_hz", minimum=1),
+        timer_bits=_integer(t, "target", "timer_bits", default=32, choices=(16, 32)),
+        capture_dma=dma,
+        isr_cycles=_integer(t, "target", "isr_cycles", default=CORES[core].isr_cycles, minimum=0),
+        cpu_budget=_number(t, "target", "cpu_budget", default=0.5),
+    )
+    if tgt.cpu_budget > 1:
+        raise SpecError("target.cpu_budget", tgt.cpu_budget, "must be a fraction in (0, 1]")
+
+    _physics(sig, out, tgt, warnings)
+    return Spec(name=name, signal=sig, output=out, target=tgt, warnings=tuple(warnings))
+
+
+def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None:
+    """Refuse what cannot work; warn about what is unusual."""
+    f0, df = sig.if_hz, sig.deviation_hz
+    if df >= f0:
+        raise SpecError("signal.deviation_hz", df,
+                        f"must be below signal.if_hz ({f0:g} Hz): the instantaneous frequency would reach zero")
+    if f0 < 2 * df:
+        # Common practice, no source: an IF of two to four times the peak deviation is usual.
+        warnings.append(f"signal.if_hz {f0:g} Hz is under twice the peak deviation ({df:g} Hz); "
+                        "two to four times is usual, and the lowest edge rate is small")
+    if out.rate_hz <= 2 * sig.audio_hz:
+        raise SpecError("output.rate_hz", out.rate_hz,
+                        f"must exceed twice signal.audio_hz ({2 * sig.audio_hz:g} Hz)")
+    if sig.audio_hz >= f0 - df:
+        raise SpecError("signal.audio_hz", sig.audio_hz,
+                        f"must be below the lowest instantaneous frequency if_hz - deviation_hz ({f0 - df:g} Hz)")
+    if sig.deemphasis_us:
+        corner = 1.0 / (2 * math.pi * sig.deemphasis_us * 1e-6)
+        if corner >= out.rate_hz / 2:
+            raise SpecError("signal.deemphasis_us", sig.deemphasis_us,
+                            f"its corner {corner:.1f} Hz must lie below half the output rate")
+    if tgt.timer_hz > 4 * tgt.cpu_hz:
+        raise SpecError("target.timer_hz", tgt.timer_hz, "must not exceed four times target.cpu_hz")
+    # Common practice, no source: fewer than 4 timer ticks per IF cycle leaves no phase resolution.
+    ticks = tgt.timer_hz / (f0 + df)
+    if ticks < 4:
+        raise SpecError("target.timer_hz", tgt.timer_hz,
+                        f"cannot resolve the IF: {ticks:.2f} ticks per cycle at {f0 + df:g} Hz, need at least 4")
+    if tgt.timer_bits == 16:
+        longest = tgt.timer_hz / (f0 - df)
+        if longest >= 65536:
+            raise SpecError("target.timer_bits", 16,
+                            f"16-bit stamps would wrap more than once between two edges ({longest:.0f} ticks "
+                            "at the lowest frequency); use 32 or a slower timer clock")
+    if tgt.timer_hz % out.rate_hz:
+        raise SpecError("output.rate_hz", out.rate_hz,
+                        f"must divide target.timer_hz ({tgt.timer_hz}) exactly, so the sample grid locks to the timer")
+    if out.full_scale_hz < 0.5 * df:
+        warnings.append(f"output.full_scale_hz {out.full_scale_hz:g} Hz is under half the peak deviation; "
+                        "loud passages will saturate")
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and validate a TOML spec file."""
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise SpecError("(file)", str(p), "no such file") from None
+    except (OSError, UnicodeDecodeError) as e:
+        raise SpecError("(file)", str(p), f"cannot be read as UTF-8 text ({e.__class__.__name__})") from None
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        raise SpecError("(toml)", str(p), f"is not valid TOML: {e}") from None
+    return parse_spec(raw)
