@@ -8,8 +8,8 @@ The API is pure (nothing prints or writes files):
 __version__ = "0.1.0"
 
 from .spec import Spec, SpecError, load_spec, parse_spec  # noqa: E402
-from .plan import Plan, plan  # noqa: E402
+from .planner import Plan, plan  # noqa: E402
 from .build import design  # noqa: E402
-from .design import Design  # noqa: E402
+from .ir import Design  # noqa: E402
 
 __all__ = ["Spec", "SpecError", "load_spec", "parse_spec", "Plan", "plan", "design", "Design", "__version__"]

@@ -8,8 +8,8 @@ import math
 from fractions import Fraction
 
 from . import __version__, iir
-from .design import Biquad, Budget, Cic, Design, Iir, OutputFormat, Rates, Scale, StampFront
-from .plan import REG_BITS, Plan, plan
+from .ir import Biquad, Budget, Cic, Design, Iir, OutputFormat, Rates, Scale, StampFront
+from .planner import REG_BITS, Plan, plan
 from .spec import Spec
 
 DATA_BITS = 24                 # internal full-scale deviation = 2**24

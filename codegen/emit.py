@@ -11,7 +11,7 @@ import importlib.resources
 
 import jinja2
 
-from .design import Design
+from .ir import Design
 from .fixedpoint import c_definitions
 
 

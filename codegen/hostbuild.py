@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .design import Design
+from .ir import Design
 from .emit import emit
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .design import Design
+from .ir import Design
 from .fixedpoint import MASK32, ratio_floor, rshr, sat, wrap_s32
 
 

@@ -9,7 +9,7 @@ import numpy as np
 from scipy import signal
 
 from . import cic
-from .design import Design
+from .ir import Design
 from .model import unwrap
 
 

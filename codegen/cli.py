@@ -1,0 +1,193 @@
+"""The thin command line over the edgetally API: parse, call, print, map errors to exit codes.
+
+Exit status: 0 success; 1 a check failed or an internal error; 2 a bad spec or bad arguments.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import traceback
+from pathlib import Path
+
+from . import __version__
+from .build import design as make_design
+from .emit import emit
+from .hostbuild import BuildError
+from .planner import Plan, plan
+from .spec import Spec, SpecError, load_spec
+
+EXIT_OK, EXIT_FAIL, EXIT_SPEC = 0, 1, 2
+SHOW_GRID_FACTOR = 4   # the plan table leaves out grids faster than this many times the IF
+
+
+class UsageError(Exception):
+    """A problem with the command's arguments or files (exit 2)."""
+
+
+def _add_scheme_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("spec", help="the TOML spec file")
+
+
+def _parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(
+        prog="edgetally",
+        description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.")
+    ap.add_argument("--version", action="version", version=f"edgetally {__version__}")
+    ap.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    sub = ap.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser("plan", help="show what was chosen and why")
+    _add_scheme_args(p)
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
+
+    p = sub.add_parser("emit", help="write the C header and source (and the Design as JSON)")
+    _add_scheme_args(p)
+    p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
+    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+
+    p = sub.add_parser("verify", help="compile the C, compare it bit for bit with the model, measure quality")
+    _add_scheme_args(p)
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
+    p.add_argument("--seconds", type=float, default=1.0, help="test signal length in seconds (default 1)")
+    p.add_argument("--seed", type=int, default=None, help="random seed of the test signal (default fixed)")
+    return ap
+
+
+def _warn(spec: Spec) -> None:
+    for w in spec.warnings:
+        print(f"edgetally: warning: {w}", file=sys.stderr)
+
+
+def _plan_table(spec: Spec, pl: Plan) -> str:
+    lines = [f"edgetally plan for '{spec.name}': scheme {pl.scheme}, CIC order {pl.order} ratio {pl.ratio}, "
+             f"grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz", ""]
+    head = f"{'scheme':<10} {'R':>3} {'grid Hz':>9} {'phase bits':>10} {'CPU':>7} {'SINAD dB':>9} {'timer':>7} {'interp':>7}  status"
+    lines += [head, "-" * len(head)]
+    shown = 0
+    for o in pl.options:
+        if o.grid_hz > SHOW_GRID_FACTOR * spec.signal.if_hz and o.ratio != pl.ratio:
+            continue
+        shown += 1
+        lines.append(f"{o.scheme:<10} {o.ratio:>3} {o.grid_hz:>9} {o.phase_shift:>10} {o.load:>7.1%} "
+                     f"{o.predicted_sinad_db:>9.1f} {o.timer_sinad_db:>7.1f} {o.curvature_sinad_db:>7.1f}  "
+                     f"{o.reason}")
+    if shown < len(pl.options):
+        lines.append(f"({len(pl.options) - shown} more ratios not shown; --json lists them all)")
+    pr, ld = pl.prediction, pl.load
+    lines += ["",
+              f"predicted SINAD {pr.sinad_db:.1f} dB (1 kHz tone at 70 % deviation, {spec.signal.audio_hz:g} Hz band): "
+              f"timer {pr.timer_sinad_db:.1f}, interpolation {pr.curvature_sinad_db:.1f}, 16-bit output {pr.output_sinad_db:.1f}",
+              f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_stamp} cycles/stamp, "
+              f"{ld.per_grid}/grid instant, {ld.per_output}/output sample = {ld.fraction:.1%} "
+              f"(budget {spec.target.cpu_budget:.0%})",
+              f"words: phase fraction {pl.phase_shift} bits, CIC input {pl.cic_in_bits} bits in 32-bit registers, "
+              f"gap after {pl.gap_ticks} ticks"]
+    lines += [f"note: {n}" for n in pl.notes]
+    return "\n".join(lines)
+
+
+def _json_safe(obj):
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    if isinstance(obj, dict):
+        return {k: _json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_json_safe(v) for v in obj]
+    return obj
+
+
+def cmd_plan(args) -> int:
+    spec = load_spec(args.spec)
+    _warn(spec)
+    pl = plan(spec)
+    if args.json:
+        print(json.dumps(_json_safe({"name": spec.name, **pl.to_dict()}), indent=2))
+    else:
+        print(_plan_table(spec, pl))
+    return EXIT_OK
+
+
+def cmd_emit(args) -> int:
+    spec = load_spec(args.spec)
+    _warn(spec)
+    d = make_design(spec)
+    files = dict(emit(d))
+    files[f"{d.name}_design.json"] = d.to_json() + "\n"
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"-o {out}: exists and is not a folder")
+    clashes = [n for n, text in files.items()
+               if (out / n).exists() and (out / n).read_text(encoding="utf-8", errors="replace") != text]
+    if clashes and not args.force:
+        raise UsageError(f"-o {out}: {', '.join(clashes)} exist with other content; use --force to overwrite")
+    out.mkdir(parents=True, exist_ok=True)
+    for n, text in files.items():
+        path = out / n
+        state = "unchanged" if path.exists() and path.read_text(encoding="utf-8", errors="replace") == text else "written"
+        if state == "written":
+            path.write_text(text, encoding="utf-8")
+        print(f"{state}: {path}")
+    return EXIT_OK
+
+
+def cmd_verify(args) -> int:
+    from .verify import DEFAULT_SEED, verify  # numpy/cffi work only for this command
+
+    if not (args.seconds > 0 and math.isfinite(args.seconds)) or args.seconds > 600:
+        raise UsageError(f"--seconds {args.seconds}: must be a number of seconds in (0, 600]")
+    spec = load_spec(args.spec)
+    _warn(spec)
+    d = make_design(spec)
+    tty = sys.stderr.isatty() and not args.json
+    progress = (lambda m: print(f"edgetally: {m} ...", file=sys.stderr)) if tty else None
+    res = verify(d, seconds=args.seconds, seed=DEFAULT_SEED if args.seed is None else args.seed, progress=progress)
+    if args.json:
+        print(json.dumps(_json_safe(res.to_dict()), indent=2))
+    else:
+        verdict = "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
+        print(f"edgetally verify '{res.name}' ({res.scheme}), {res.seconds:g} s of signal, seed {res.seed}, {res.edges} stamps")
+        print(f"  emitted C vs integer model: {verdict} over {res.samples} output samples")
+        print(f"  SINAD (1 kHz, 70 % deviation, {spec.signal.audio_hz:g} Hz band): C {res.sinad_db:.2f} dB, "
+              f"float reference {res.float_sinad_db:.2f} dB, predicted {res.predicted_sinad_db:.2f} dB")
+        print(f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: timer "
+              f"{res.predicted_timer_sinad_db:.1f} dB, interpolation {res.predicted_curvature_sinad_db:.1f} dB")
+        print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
+        print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
+    return EXIT_OK if res.bit_exact else EXIT_FAIL
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = _parser()
+    args = ap.parse_args(argv)
+    handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify}[args.command]
+    try:
+        return handler(args)
+    except SpecError as e:
+        if args.debug:
+            traceback.print_exc()
+        print(f"edgetally: spec error in {getattr(args, 'spec', '?')}: {e}", file=sys.stderr)
+        return EXIT_SPEC
+    except UsageError as e:
+        print(f"edgetally: error: {e}", file=sys.stderr)
+        return EXIT_SPEC
+    except BuildError as e:
+        if args.debug:
+            traceback.print_exc()
+        print(f"edgetally: the emitted C did not compile cleanly:\n{e}", file=sys.stderr)
+        return EXIT_FAIL
+    except KeyboardInterrupt:
+        print("edgetally: interrupted", file=sys.stderr)
+        return 130
+    except Exception as e:  # internal failure: one line unless --debug
+        if args.debug:
+            traceback.print_exc()
+        print(f"edgetally: internal error: {e.__class__.__name__}: {e} (run with --debug for the traceback)",
+              file=sys.stderr)
+        return EXIT_FAIL
+
+
+if __name__ == "__main__":
+    sys.exit(main())
