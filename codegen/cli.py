@@ -154,6 +154,9 @@ def cmd_verify(args) -> int:
               f"float reference {res.float_sinad_db:.2f} dB, predicted {res.predicted_sinad_db:.2f} dB")
         print(f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: timer "
               f"{res.predicted_timer_sinad_db:.1f} dB, interpolation {res.predicted_curvature_sinad_db:.1f} dB")
+        if res.timer_gap_db > 3:
+            print(f"  the timer alone would allow {res.predicted_timer_sinad_db:.1f} dB: this design's estimator "
+                  f"(linear interpolation between stamps) falls {res.timer_gap_db:.1f} dB short of it")
         print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
     return EXIT_OK if res.bit_exact else EXIT_FAIL

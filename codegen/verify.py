@@ -40,6 +40,7 @@ class VerifyResult:
     predicted_timer_sinad_db: float
     predicted_curvature_sinad_db: float
     implementation_loss_db: float
+    timer_gap_db: float        # how far the float reference falls short of the timer-only prediction
     gaps: int
     clamps: int
     c_seconds: float
@@ -120,6 +121,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
         sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),
         predicted_timer_sinad_db=round(pred.timer_sinad_db, 2),
         predicted_curvature_sinad_db=round(pred.curvature_sinad_db, 2),
-        implementation_loss_db=round(flt - fixed, 2), gaps=m.gaps, clamps=m.clamps,
+        implementation_loss_db=round(flt - fixed, 2) + 0.0,
+        timer_gap_db=round(pred.timer_sinad_db - flt, 2) + 0.0, gaps=m.gaps, clamps=m.clamps,
         c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=widths,
     )

@@ -1,0 +1,60 @@
+"""The Design IR: JSON round trip, determinism, and the word-length bounds it promises."""
+
+import math
+
+import pytest
+
+import edgetally
+from edgetally import cic
+from edgetally.emit import emit
+from edgetally.ir import Design
+
+from conftest import EXAMPLE_FILES
+
+
+@pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
+def test_json_round_trip(path):
+    d = edgetally.design(edgetally.load_spec(path))
+    again = Design.from_json(d.to_json())
+    assert again == d
+    assert again.to_json() == d.to_json()
+
+
+@pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
+def test_emit_is_deterministic(path):
+    a = emit(edgetally.design(edgetally.load_spec(path)))
+    b = emit(edgetally.design(edgetally.load_spec(path)))
+    assert a == b and len(a) == 2
+
+
+@pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
+def test_word_lengths_cannot_overflow(path):
+    d = edgetally.design(edgetally.load_spec(path))
+    fr, c, sc = d.front, d.cic, d.scale
+    # The phase fraction: (g - t_prev) < D <= gap_ticks, shifted by phase_shift, fits 32 bits.
+    assert fr.gap_ticks << fr.phase_shift < 1 << 32
+    # Hogenauer 1981: registers of Bin + ceil(N log2 R) bits make wrap-around harmless; one spare
+    # bit keeps the (positive) CIC output below 2**31 so it reads correctly as int32.
+    assert fr.x_limit < 1 << (c.in_bits - 1)
+    assert cic.full_width(c.in_bits, c.order, c.ratio) <= c.width - 1
+    # Scaling product |wrap_s32(y - centre)| * mult stays inside int64.
+    assert (1 << 31) * sc.mult < 1 << 63
+    # IIR accumulators: sum of |coefficient| * data limit + rounding constant inside int64.
+    for f in d.filters:
+        for s in f.sections:
+            bound = sum(abs(v) for v in (s.b0, s.b1, s.b2, s.a1, s.a2)) * f.limit + (1 << (f.coef_bits - 1))
+            assert bound < 1 << 63
+    # The 16-bit timer: the gap limit keeps one stamp interval unambiguous.
+    if fr.timer_bits == 16:
+        assert fr.gap_ticks < 1 << 16
+
+
+@pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
+def test_scale_maps_full_scale_deviation(path):
+    """Centre and gain: the IF maps to 0, IF + full-scale deviation to 2**data_bits (to the
+    precision of the 24-bit multiplier: relative error below 2**-22)."""
+    d = edgetally.design(edgetally.load_spec(path))
+    unit = d.rates.grid_hz / (2 ** d.front.phase_shift * d.cic.ratio ** d.cic.order)   # Hz per CIC LSB
+    assert abs(d.scale.centre * unit - d.if_hz) <= unit
+    u = d.full_scale_hz / unit * d.scale.mult / 2 ** d.scale.shift
+    assert math.isclose(u, 2 ** d.scale.data_bits, rel_tol=2 ** -22)
