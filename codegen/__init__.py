@@ -3,13 +3,33 @@
 The API is pure (nothing prints or writes files):
     load_spec(path) -> Spec, plan(spec) -> Plan, design(spec) -> Design,
     emit(design) -> {filename: text}, verify(design, ...) -> VerifyResult
+
+Names that need scipy or cffi are imported on first use, so that reading and checking a spec
+stays fast.
 """
 
 __version__ = "0.1.0"
 
 from .spec import Spec, SpecError, load_spec, parse_spec  # noqa: E402
-from .planner import Plan, plan  # noqa: E402
-from .build import design  # noqa: E402
-from .ir import Design  # noqa: E402
 
-__all__ = ["Spec", "SpecError", "load_spec", "parse_spec", "Plan", "plan", "design", "Design", "__version__"]
+_LAZY = {
+    "Plan": ("planner", "Plan"),
+    "plan": ("planner", "plan"),
+    "design": ("build", "design"),
+    "Design": ("ir", "Design"),
+    "emit": ("emit", "emit"),
+    "verify": ("verify", "verify"),
+}
+
+__all__ = ["Spec", "SpecError", "load_spec", "parse_spec", "__version__", *_LAZY]
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+
+        module, attr = _LAZY[name]
+        value = getattr(importlib.import_module(f".{module}", __name__), attr)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'edgetally' has no attribute {name!r}")

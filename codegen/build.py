@@ -14,7 +14,6 @@ from .spec import Spec
 
 DATA_BITS = 24                 # internal full-scale deviation = 2**24
 DATA_LIMIT = (1 << 30) - 1     # every filter node saturates here: 64x headroom over full scale
-COEF_BITS = 29                 # Q29 coefficients: |c| < 4 covers every normalised biquad term
 OUT_BITS = 16
 ACC_LIMIT = (1 << 63) - 1
 
@@ -38,12 +37,12 @@ def _scale(p: Plan, spec: Spec) -> Scale:
 
 
 def _iir(role: str, sos) -> Iir:
-    q = iir.quantise(sos, COEF_BITS)
+    q = iir.quantise(sos, iir.COEF_BITS)
     if max(abs(c) for sec in q for c in sec) >= (1 << 31) - 1:
         raise ValueError(f"{role}: a coefficient does not fit 32 bits")
-    if iir.accumulator_bound(q, DATA_LIMIT) + (1 << (COEF_BITS - 1)) > ACC_LIMIT:
+    if iir.accumulator_bound(q, DATA_LIMIT) + (1 << (iir.COEF_BITS - 1)) > ACC_LIMIT:
         raise ValueError(f"{role}: 64-bit accumulator could overflow")
-    return Iir(role=role, coef_bits=COEF_BITS, limit=DATA_LIMIT,
+    return Iir(role=role, coef_bits=iir.COEF_BITS, limit=DATA_LIMIT,
                sections=tuple(Biquad(*s) for s in q),
                float_sos=tuple(tuple(float(c) for c in row) for row in sos))
 
@@ -62,9 +61,7 @@ def design(spec: Spec, chosen: Plan | None = None) -> Design:
     x_centre = round(Fraction(sig.if_hz) / p.grid_hz * (1 << p.phase_shift))
     front = StampFront(timer_bits=tgt.timer_bits, prescale=1, grid_ticks=p.grid_ticks, phase_shift=p.phase_shift,
                        gap_ticks=p.gap_ticks, x_limit=p.x_limit, x_centre=x_centre)
-    filters = [_iir("lowpass", iir.lowpass_sos(sig.audio_hz, out.rate_hz))]
-    if sig.deemphasis_us:
-        filters.append(_iir("deemphasis", iir.deemphasis_sos(sig.deemphasis_us * 1e-6, out.rate_hz)))
+    filters = [_iir(role, sos) for role, sos in iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz)]
     return Design(
         name=spec.name, tool_version=__version__, spec_hash=spec_hash(spec), scheme=p.scheme,
         rates=Rates(timer_hz=tgt.timer_hz, grid_hz=p.grid_hz, out_hz=out.rate_hz),

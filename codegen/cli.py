@@ -13,11 +13,10 @@ import traceback
 from pathlib import Path
 
 from . import __version__
-from .build import design as make_design
-from .emit import emit
-from .hostbuild import BuildError
-from .planner import Plan, plan
 from .spec import Spec, SpecError, load_spec
+
+# The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
+# when they run, so that a bad spec is refused without loading them.
 
 EXIT_OK, EXIT_FAIL, EXIT_SPEC = 0, 1, 2
 SHOW_GRID_FACTOR = 4   # the plan table leaves out grids faster than this many times the IF
@@ -61,7 +60,7 @@ def _warn(spec: Spec) -> None:
         print(f"edgetally: warning: {w}", file=sys.stderr)
 
 
-def _plan_table(spec: Spec, pl: Plan) -> str:
+def _plan_table(spec: Spec, pl) -> str:
     lines = [f"edgetally plan for '{spec.name}': scheme {pl.scheme}, CIC order {pl.order} ratio {pl.ratio}, "
              f"grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz", ""]
     head = f"{'scheme':<10} {'R':>3} {'grid Hz':>9} {'phase bits':>10} {'CPU':>7} {'SINAD dB':>9} {'timer':>7} {'interp':>7}  status"
@@ -102,6 +101,8 @@ def _json_safe(obj):
 def cmd_plan(args) -> int:
     spec = load_spec(args.spec)
     _warn(spec)
+    from .planner import plan
+
     pl = plan(spec)
     if args.json:
         print(json.dumps(_json_safe({"name": spec.name, **pl.to_dict()}), indent=2))
@@ -113,6 +114,9 @@ def cmd_plan(args) -> int:
 def cmd_emit(args) -> int:
     spec = load_spec(args.spec)
     _warn(spec)
+    from .build import design as make_design
+    from .emit import emit
+
     d = make_design(spec)
     files = dict(emit(d))
     files[f"{d.name}_design.json"] = d.to_json() + "\n"
@@ -140,6 +144,8 @@ def cmd_verify(args) -> int:
         raise UsageError(f"--seconds {args.seconds}: must be a number of seconds in (0, 600]")
     spec = load_spec(args.spec)
     _warn(spec)
+    from .build import design as make_design
+
     d = make_design(spec)
     tty = sys.stderr.isatty() and not args.json
     progress = (lambda m: print(f"edgetally: {m} ...", file=sys.stderr)) if tty else None
@@ -176,20 +182,26 @@ def main(argv: list[str] | None = None) -> int:
     except UsageError as e:
         print(f"edgetally: error: {e}", file=sys.stderr)
         return EXIT_SPEC
-    except BuildError as e:
-        if args.debug:
-            traceback.print_exc()
-        print(f"edgetally: the emitted C did not compile cleanly:\n{e}", file=sys.stderr)
-        return EXIT_FAIL
     except KeyboardInterrupt:
         print("edgetally: interrupted", file=sys.stderr)
         return 130
-    except Exception as e:  # internal failure: one line unless --debug
-        if args.debug:
-            traceback.print_exc()
+    except Exception as e:
+        return _internal(e, args.debug)
+
+
+def _internal(e: Exception, debug: bool) -> int:
+    """A failure that is not the user's spec: exit 1, one line unless --debug (a BuildError
+    carries the compiler's messages, which are printed in full)."""
+    from .hostbuild import BuildError
+
+    if debug:
+        traceback.print_exc()
+    if isinstance(e, BuildError):
+        print(f"edgetally: the emitted C did not compile cleanly:\n{e}", file=sys.stderr)
+    else:
         print(f"edgetally: internal error: {e.__class__.__name__}: {e} (run with --debug for the traceback)",
               file=sys.stderr)
-        return EXIT_FAIL
+    return EXIT_FAIL
 
 
 if __name__ == "__main__":

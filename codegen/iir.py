@@ -18,6 +18,7 @@ LPF_ORDER = 4
 LPF_RIPPLE_DB = 0.1
 LPF_STOP_DB = 60.0
 POLE_MARGIN = 1e-4  # quantised poles must stay this far inside the unit circle
+COEF_BITS = 29      # Q29 coefficients: |c| < 4 covers every normalised biquad term
 
 
 def lowpass_sos(audio_hz: float, fs_hz: float) -> np.ndarray:
@@ -34,6 +35,14 @@ def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
     b = k / (1.0 + k)
     a1 = (k - 1.0) / (1.0 + k)
     return np.array([[b, b, 0.0, 1.0, a1, 0.0]])
+
+
+def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float) -> list[tuple[str, np.ndarray]]:
+    """The output-rate filters of a design, in order: (role, float sos)."""
+    out = [("lowpass", lowpass_sos(audio_hz, fs_hz))]
+    if deemphasis_us:
+        out.append(("deemphasis", deemphasis_sos(deemphasis_us * 1e-6, fs_hz)))
+    return out
 
 
 def quantise(sos: np.ndarray, coef_bits: int) -> list[tuple[int, int, int, int, int]]:

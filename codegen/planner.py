@@ -76,6 +76,51 @@ def _phase_words(spec: Spec, ratio: int, grid_hz: int, prescale: int):
     return None
 
 
+FILTER_FIELDS = {"lowpass": "signal.audio_hz", "deemphasis": "signal.deemphasis_us"}
+
+
+def _checked_filters(spec: Spec) -> list:
+    """The output filters' float designs, refused as a spec error if their Q29 form is unusable."""
+    sig, out = spec.signal, spec.output
+    filters = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz)
+    for role, sos in filters:
+        try:
+            iir.quantise(sos, iir.COEF_BITS)
+        except ValueError:
+            fld = FILTER_FIELDS[role]
+            val = sig.audio_hz if role == "lowpass" else sig.deemphasis_us
+            raise SpecError(fld, val, f"the {role} filter at {out.rate_hz} Hz output has poles too close to "
+                                      f"z = 1 for Q{iir.COEF_BITS} coefficients; its corner must be a larger "
+                                      "fraction of the output rate") from None
+    return [sos for _, sos in filters]
+
+
+def _choose(candidates: list) -> tuple | None:
+    """Lowest load first; a costlier option wins only by more than TIE_DB of predicted SINAD."""
+    best = None
+    for cand in sorted(candidates, key=lambda c: c[0].load):
+        if best is None or cand[0].predicted_sinad_db > best[0].predicted_sinad_db + TIE_DB:
+            best = cand
+    return best
+
+
+def _refusal(spec: Spec, options: list, ticks_per_out: int) -> SpecError:
+    """The clearest single reason why no option is feasible, on the field the user should change."""
+    tgt = spec.target
+    if not options:
+        return SpecError("output.rate_hz", spec.output.rate_hz,
+                         f"no CIC ratio from 2 to {MAX_RATIO} divides the {ticks_per_out} timer ticks of one "
+                         "output period; choose a rate that leaves a small factor")
+    by_load = [o for o, words, *_ in options if words is not None]
+    if by_load:
+        low = min(by_load, key=lambda o: o.load)
+        return SpecError("target.cpu_budget", tgt.cpu_budget,
+                         f"every timestamp design exceeds it: the cheapest (R={low.ratio}, grid {low.grid_hz} Hz) "
+                         f"needs {low.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core}")
+    return SpecError("target.timer_hz", tgt.timer_hz,
+                     "no 32-bit phase word fits: the timer is too fast for the longest stamp interval")
+
+
 def plan(spec: Spec) -> Plan:
     """Choose the grid rate and word lengths of the timestamp scheme for ``spec``."""
     sig, out, tgt = spec.signal, spec.output, spec.target
@@ -84,12 +129,9 @@ def plan(spec: Spec) -> Plan:
     ticks_per_out = tgt.timer_hz // out.rate_hz
     edge_max = (sig.if_hz + sig.deviation_hz) / prescale
     edge_mean = sig.if_hz / prescale
-    post_sos = [iir.lowpass_sos(sig.audio_hz, out.rate_hz)]
-    if sig.deemphasis_us:
-        post_sos.append(iir.deemphasis_sos(sig.deemphasis_us * 1e-6, out.rate_hz))
+    post_sos = _checked_filters(spec)
     sections = sum(len(s) for s in post_sos)
     options = []
-    best = None
     for ratio in range(2, MAX_RATIO + 1):
         if ticks_per_out % ratio:
             continue
@@ -101,34 +143,31 @@ def plan(spec: Spec) -> Plan:
         pred = schemes.predict_timestamp(if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
                                          grid_hz=grid_hz, out_hz=out.rate_hz, r=ratio, n=CIC_ORDER,
                                          band_hz=sig.audio_hz, prescale=prescale, post_sos=post_sos)
-        if grid_hz > edge_mean:
-            # Beyond the mean edge rate successive grid instants share their bracketing stamps;
-            # measured on campus_fm: +0.6 dB from 240 to 480 kHz for twice the divisions.
-            reason = f"grid {grid_hz} Hz is above the mean edge rate {edge_mean:g} Hz: little to gain"
-            ok = False
-        elif words is None:
-            reason = "no 32-bit phase word fits this ratio"
-            ok = False
+        if words is None:
+            reason, ok = "no 32-bit phase word fits this ratio", False
         elif load.fraction > tgt.cpu_budget:
-            reason = f"CPU load {load.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}"
-            ok = False
+            reason, ok = f"CPU load {load.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}", False
         else:
-            reason = "feasible"
-            ok = True
+            reason, ok = "feasible", True
         opt = Option("timestamp", ratio, grid_hz, words[0] if words else 0, load.fraction, pred.sinad_db,
                      pred.timer_sinad_db, pred.curvature_sinad_db, ok, reason)
         options.append((opt, words, load, pred))
-        if ok and (best is None or opt.predicted_sinad_db > best[0].predicted_sinad_db + TIE_DB):
-            best = (opt, words, load, pred)
+    feasible = [c for c in options if c[0].kept]
+    # Beyond the mean edge rate successive grid instants share their bracketing stamps; measured on
+    # campus_fm: +0.6 dB from 240 to 480 kHz for twice the divisions. Such grids are used only when
+    # no slower one is feasible.
+    slow = [c for c in feasible if c[0].grid_hz <= edge_mean]
+    best = _choose(slow or feasible)
     if best is None:
-        why = "; ".join(f"R={o.ratio}: {o.reason}" for o, *_ in options) or \
-              f"no CIC ratio from 2 to {MAX_RATIO} divides the {ticks_per_out} timer ticks of one output period"
-        raise SpecError("target", tgt.core, f"no feasible timestamp design: {why}")
+        raise _refusal(spec, options, ticks_per_out)
     chosen, words, load, pred = best
     table = []
     for o, *_ in options:
         if o is chosen:
-            o = Option(**{**o.__dict__, "reason": f"CHOSEN: best predicted SINAD (a faster grid must gain over {TIE_DB} dB)"})
+            o = Option(**{**o.__dict__, "reason": f"CHOSEN: best predicted SINAD (a costlier option must gain over {TIE_DB} dB)"})
+        elif o.kept and slow and o.grid_hz > edge_mean:
+            o = Option(**{**o.__dict__, "kept": False,
+                          "reason": f"dropped: grid above the mean edge rate {edge_mean:g} Hz: little to gain"})
         elif o.kept:
             o = Option(**{**o.__dict__, "kept": False, "reason": "dropped: feasible, but not better by the tie margin"})
         else:

@@ -47,7 +47,7 @@ class Signal:
 class Output:
     rate_hz: int
     format: str = "s16"
-    full_scale_hz: float = 0.0  # 0 in the file means: the peak deviation
+    full_scale_hz: float = 0.0  # left out of the file: the peak deviation
 
 
 @dataclass(frozen=True)
@@ -57,7 +57,7 @@ class Target:
     timer_hz: int
     timer_bits: int = 32
     capture_dma: bool = False
-    isr_cycles: int = 0  # 0 in the file means: the core profile's figure
+    isr_cycles: int = 0  # left out of the file: the core profile's figure
     cpu_budget: float = 0.5
 
 
