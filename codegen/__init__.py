@@ -1,8 +1,9 @@
 """edgetally: firmware FM demodulators that count the edges of a limited IF signal.
 
 The API is pure (nothing prints or writes files):
-    load_spec(path) -> Spec, plan(spec) -> Plan, design(spec) -> Design,
-    emit(design) -> {filename: text}, verify(design, ...) -> VerifyResult
+    edgetally.load_spec(path) -> Spec, edgetally.plan(spec) -> Plan, edgetally.design(spec) -> Design,
+    edgetally.emit.emit(design) -> {filename: text}, edgetally.verify.verify(design, ...) -> VerifyResult
+(emit and verify are reached through their modules, whose names they share.)
 
 Names that need scipy or cffi are imported on first use, so that reading and checking a spec
 stays fast.
@@ -17,8 +18,6 @@ _LAZY = {
     "plan": ("planner", "plan"),
     "design": ("build", "design"),
     "Design": ("ir", "Design"),
-    "emit": ("emit", "emit"),
-    "verify": ("verify", "verify"),
 }
 
 __all__ = ["Spec", "SpecError", "load_spec", "parse_spec", "__version__", *_LAZY]

@@ -19,7 +19,7 @@ from .spec import Spec, SpecError, load_spec
 # when they run, so that a bad spec is refused without loading them.
 
 EXIT_OK, EXIT_FAIL, EXIT_SPEC = 0, 1, 2
-SHOW_GRID_FACTOR = 4   # the plan table leaves out grids faster than this many times the IF
+SCHEME_NAMES = ("timestamp", "interrupt", "counter")   # edgetally.planner.SCHEMES, without importing scipy
 
 
 class UsageError(Exception):
@@ -28,6 +28,8 @@ class UsageError(Exception):
 
 def _add_scheme_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("spec", help="the TOML spec file")
+    p.add_argument("--scheme", choices=SCHEME_NAMES, default=None,
+                   help="force how the MCU sees the edges (default: the planner's choice)")
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -41,6 +43,8 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("plan", help="show what was chosen and why")
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
+    p.add_argument("--simulate", action="store_true",
+                   help="also simulate each feasible option briefly (float reference, 0.25 s) and show its SINAD")
 
     p = sub.add_parser("emit", help="write the C header and source (and the Design as JSON)")
     _add_scheme_args(p)
@@ -60,31 +64,44 @@ def _warn(spec: Spec) -> None:
         print(f"edgetally: warning: {w}", file=sys.stderr)
 
 
-def _plan_table(spec: Spec, pl) -> str:
-    lines = [f"edgetally plan for '{spec.name}': scheme {pl.scheme}, CIC order {pl.order} ratio {pl.ratio}, "
-             f"grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz", ""]
-    head = f"{'scheme':<10} {'R':>3} {'grid Hz':>9} {'phase bits':>10} {'CPU':>7} {'SINAD dB':>9} {'timer':>7} {'interp':>7}  status"
+def _db(v: float) -> str:
+    return "-" if v == float("inf") else f"{v:.1f}"
+
+
+def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
+    lines = [f"edgetally plan for '{spec.name}': scheme {pl.scheme} ({pl.variant}), CIC order {pl.order} "
+             f"ratio {pl.ratio}, grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz", ""]
+    sim_head = f" {'sim dB':>7}" if sims is not None else ""
+    head = (f"{'scheme':<10} {'variant':<13} {'R':>3} {'grid Hz':>8} {'CPU':>6} {'RAM B':>6} {'SINAD dB':>8} "
+            f"{'quant':>6} {'interp':>6} {'jitter':>6}{sim_head}  status")
     lines += [head, "-" * len(head)]
-    shown = 0
     for o in pl.options:
-        if o.grid_hz > SHOW_GRID_FACTOR * spec.signal.if_hz and o.ratio != pl.ratio:
-            continue
-        shown += 1
-        lines.append(f"{o.scheme:<10} {o.ratio:>3} {o.grid_hz:>9} {o.phase_shift:>10} {o.load:>7.1%} "
-                     f"{o.predicted_sinad_db:>9.1f} {o.timer_sinad_db:>7.1f} {o.curvature_sinad_db:>7.1f}  "
-                     f"{o.reason}")
-    if shown < len(pl.options):
-        lines.append(f"({len(pl.options) - shown} more ratios not shown; --json lists them all)")
+        sim = ""
+        if sims is not None:
+            v = sims.get((o.scheme, o.variant))
+            sim = f" {v:>7.1f}" if v is not None else f" {'':>7}"
+        lines.append(f"{o.scheme:<10} {o.variant:<13} {o.ratio:>3} {o.grid_hz:>8} {o.load:>6.1%} {o.ram_bytes:>6} "
+                     f"{o.predicted_sinad_db:>7.1f}{'?' if o.doubtful else ' '} {_db(o.quant_sinad_db):>6} {_db(o.curvature_sinad_db):>6} "
+                     f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}")
     pr, ld = pl.prediction, pl.load
     lines += ["",
               f"predicted SINAD {pr.sinad_db:.1f} dB (1 kHz tone at 70 % deviation, {spec.signal.audio_hz:g} Hz band): "
-              f"timer {pr.timer_sinad_db:.1f}, interpolation {pr.curvature_sinad_db:.1f}, 16-bit output {pr.output_sinad_db:.1f}",
-              f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_stamp} cycles/stamp, "
-              f"{ld.per_grid}/grid instant, {ld.per_output}/output sample = {ld.fraction:.1%} "
-              f"(budget {spec.target.cpu_budget:.0%})",
-              f"words: phase fraction {pl.phase_shift} bits, CIC input {pl.cic_in_bits} bits in 32-bit registers, "
-              f"gap after {pl.gap_ticks} ticks"]
+              f"quantisation {_db(pr.quant_sinad_db)}, interpolation {_db(pr.curvature_sinad_db)}, "
+              f"jitter {_db(pr.jitter_sinad_db)}, 16-bit output {_db(pr.output_sinad_db)}",
+              f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_edge} cycles/edge in ISRs, "
+              f"{ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = {ld.fraction:.1%} "
+              f"(budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state"]
     lines += [f"note: {n}" for n in pl.notes]
+    if sims:
+        for (scheme, variant), v in sims.items():
+            o = next(o for o in pl.options if (o.scheme, o.variant) == (scheme, variant))
+            if abs(v - o.predicted_sinad_db) > 3:
+                lines.append(f"note: {scheme} {variant}: the simulation gives {v:.1f} dB, {v - o.predicted_sinad_db:+.1f} dB "
+                             "from the white-noise prediction"
+                             + (" (count errors of a nearly commensurate IF and grid are tones, not white noise)"
+                                if variant == "count" else ""))
+    lines.append("quant/interp/jitter: predicted SINAD if that source were alone; '-': the source is absent; "
+                 "'?': the white-noise model may be several dB off here (see --simulate)")
     return "\n".join(lines)
 
 
@@ -103,11 +120,21 @@ def cmd_plan(args) -> int:
     _warn(spec)
     from .planner import plan
 
-    pl = plan(spec)
+    pl = plan(spec, scheme=args.scheme)
+    sims = None
+    if args.simulate:
+        from .verify import simulate_options
+
+        if sys.stderr.isatty():
+            print("edgetally: simulating each feasible option ...", file=sys.stderr)
+        sims = simulate_options(spec, pl)
     if args.json:
-        print(json.dumps(_json_safe({"name": spec.name, **pl.to_dict()}), indent=2))
+        obj = {"name": spec.name, **pl.to_dict()}
+        if sims is not None:
+            obj["simulated_sinad_db"] = [{"scheme": k[0], "variant": k[1], "sinad_db": v} for k, v in sims.items()]
+        print(json.dumps(_json_safe(obj), indent=2))
     else:
-        print(_plan_table(spec, pl))
+        print(_plan_table(spec, pl, sims))
     return EXIT_OK
 
 
@@ -117,7 +144,7 @@ def cmd_emit(args) -> int:
     from .build import design as make_design
     from .emit import emit
 
-    d = make_design(spec)
+    d = make_design(spec, scheme=args.scheme)
     files = dict(emit(d))
     files[f"{d.name}_design.json"] = d.to_json() + "\n"
     out = Path(args.out)
@@ -146,7 +173,7 @@ def cmd_verify(args) -> int:
     _warn(spec)
     from .build import design as make_design
 
-    d = make_design(spec)
+    d = make_design(spec, scheme=args.scheme)
     tty = sys.stderr.isatty() and not args.json
     progress = (lambda m: print(f"edgetally: {m} ...", file=sys.stderr)) if tty else None
     res = verify(d, seconds=args.seconds, seed=DEFAULT_SEED if args.seed is None else args.seed, progress=progress)
@@ -154,15 +181,17 @@ def cmd_verify(args) -> int:
         print(json.dumps(_json_safe(res.to_dict()), indent=2))
     else:
         verdict = "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
-        print(f"edgetally verify '{res.name}' ({res.scheme}), {res.seconds:g} s of signal, seed {res.seed}, {res.edges} stamps")
+        print(f"edgetally verify '{res.name}' ({res.scheme}, {res.variant}), {res.seconds:g} s of signal, "
+              f"seed {res.seed}, {res.inputs} inputs")
         print(f"  emitted C vs integer model: {verdict} over {res.samples} output samples")
         print(f"  SINAD (1 kHz, 70 % deviation, {spec.signal.audio_hz:g} Hz band): C {res.sinad_db:.2f} dB, "
               f"float reference {res.float_sinad_db:.2f} dB, predicted {res.predicted_sinad_db:.2f} dB")
-        print(f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: timer "
-              f"{res.predicted_timer_sinad_db:.1f} dB, interpolation {res.predicted_curvature_sinad_db:.1f} dB")
-        if res.timer_gap_db > 3:
-            print(f"  the timer alone would allow {res.predicted_timer_sinad_db:.1f} dB: this design's estimator "
-                  f"(linear interpolation between stamps) falls {res.timer_gap_db:.1f} dB short of it")
+        print(f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: quantisation "
+              f"{_db(res.predicted_quant_sinad_db)} dB, interpolation {_db(res.predicted_curvature_sinad_db)} dB, "
+              f"jitter {_db(res.predicted_jitter_sinad_db)} dB")
+        if res.quant_gap_db > 3:
+            print(f"  quantisation alone would allow {res.predicted_quant_sinad_db:.1f} dB: this design falls "
+                  f"{res.quant_gap_db:.1f} dB short of it")
         print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
     return EXIT_OK if res.bit_exact else EXIT_FAIL

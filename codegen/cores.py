@@ -1,48 +1,67 @@
-"""Built-in core profiles: rough cycle costs the planner uses for CPU-load estimates.
+"""Built-in core profiles: what a class of MCU usually has, and rough cycle costs for planning.
 
-Every figure is an estimate for planning, not a measurement; the source of each is given beside it.
-"Architecture manual" figures are from memory of the vendor-neutral architecture reference
-(exception entry/exit, divide and multiply timings) and were not checked against the printed page.
+A profile gives the default of every capability field of a spec's [target] table; the spec may
+override any of them field by field. Every cycle figure is a planning estimate, not a
+measurement; the source of each is given beside it. "Architecture manual" figures are from memory
+of the vendor-neutral architecture references (exception entry and exit, divide and multiply
+timings) and were not checked against the printed page.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 
+HW_DIV32_CYCLES = 12    # architecture manual, from memory: a 32/32 divide instruction, 2..12 cycles, worst case
+HW_MAC64_CYCLES = 2     # architecture manual, from memory: single-issue 32x32->64 multiply-accumulate, +1 load
+
 
 @dataclass(frozen=True)
 class Core:
     name: str
-    isr_cycles: int        # exception entry + exit, no work
-    div32_cycles: int      # one unsigned 32/32 division
-    mac64_cycles: int      # one 32x32 -> 64 multiply-accumulate
-    op_cycles: int         # one plain 32-bit ALU step with its load/store share
     note: str
+    # capability defaults (the spec's [target] fields of the same name override them)
+    has_capture: bool          # timer input capture that can latch IF edges
+    has_edge_irq: bool         # comparator or pin-change interrupt on the IF
+    has_counter: bool          # a timer that can be clocked by the IF (external clock input)
+    capture_prescalers: tuple[int, ...]
+    hw_divide: bool
+    mul64: bool                # a 32x32 -> 64 multiply instruction
+    isr_cycles: int            # exception entry + exit with a minimal prologue, no work
+    irq_jitter_cycles: int     # peak-to-peak spread of the edge-interrupt latency
+    # costs of what the core lacks, done in software
+    soft_div32_cycles: int
+    soft_mac64_cycles: int
+    op_cycles: int             # one plain 32-bit ALU step with its load/store share
 
 
 CORES = {
     "cortex-m0plus": Core(
-        name="cortex-m0plus",
-        isr_cycles=31,     # architecture manual, from memory: 15 entry + 16 exit incl. a short prologue
-        div32_cycles=90,   # estimate: software division (no divide instruction on this class)
-        mac64_cycles=30,   # estimate: 32x32->64 built from 16x16 partial products (MULS is 32x32->32)
-        op_cycles=2,       # estimate: one ALU op plus a load/store share
-        note="ARMv6-M class, no hardware divide, 32x32->32 multiply",
+        name="cortex-m0plus", note="ARMv6-M class: no divide instruction, 32x32->32 multiply",
+        has_capture=True, has_edge_irq=True, has_counter=True, capture_prescalers=(1, 2, 4, 8),
+        hw_divide=False, mul64=False,
+        isr_cycles=31,          # architecture manual, from memory: 15 entry + 16 exit incl. a short prologue
+        irq_jitter_cycles=4,    # estimate: waiting for the longest multi-cycle instruction to finish
+        soft_div32_cycles=90,   # estimate: a run-time library division loop
+        soft_mac64_cycles=30,   # estimate: 32x32->64 from 16x16 partial products
+        op_cycles=2,            # estimate
     ),
     "cortex-m4": Core(
-        name="cortex-m4",
-        isr_cycles=24,     # architecture manual, from memory: 12 entry + 12 exit (tail-chaining aside)
-        div32_cycles=12,   # architecture manual, from memory: UDIV 2..12 cycles, worst case taken
-        mac64_cycles=2,    # architecture manual, from memory: SMLAL single-cycle issue, +1 for loads
-        op_cycles=1,
-        note="ARMv7E-M class, hardware divide, single-cycle 32x32->64 multiply-accumulate",
+        name="cortex-m4", note="ARMv7E-M class: divide instruction, single-cycle 32x32->64 multiply-accumulate",
+        has_capture=True, has_edge_irq=True, has_counter=True, capture_prescalers=(1, 2, 4, 8),
+        hw_divide=True, mul64=True,
+        isr_cycles=24,          # architecture manual, from memory: 12 entry + 12 exit (tail-chaining aside)
+        irq_jitter_cycles=12,   # estimate: a divide or load-multiple in progress delays entry
+        soft_div32_cycles=90, soft_mac64_cycles=30,
+        op_cycles=1,            # estimate
     ),
     "generic-8bit": Core(
-        name="generic-8bit",
-        isr_cycles=40,     # estimate: register save/restore of an 8-bit core with a C ISR
-        div32_cycles=600,  # estimate: software 32-bit division on an 8-bit ALU
-        mac64_cycles=250,  # estimate: 32x32->64 from 8x8 partial products
-        op_cycles=8,       # estimate: a 32-bit op is four 8-bit ops plus loads
-        note="8-bit class; 16-bit int; everything wide is done in software",
+        name="generic-8bit", note="8-bit class: 16-bit int, everything wide is done in software",
+        has_capture=True, has_edge_irq=True, has_counter=True, capture_prescalers=(1, 8),
+        hw_divide=False, mul64=False,
+        isr_cycles=40,          # estimate: register save and restore of an 8-bit core with a C ISR
+        irq_jitter_cycles=4,    # estimate: instructions take 1 to 4 cycles
+        soft_div32_cycles=600,  # estimate: 32-bit division on an 8-bit ALU
+        soft_mac64_cycles=250,  # estimate: 32x32->64 from 8x8 partial products
+        op_cycles=8,            # estimate: a 32-bit op is four 8-bit ops plus loads
     ),
 }

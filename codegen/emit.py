@@ -2,17 +2,74 @@
 
 The templates only print what the Design holds (StrictUndefined: a missing value is an error, never
 an empty string). The fixed-point helpers come from ``edgetally.fixedpoint``. No timestamps: the
-same Design always gives byte-identical files.
+same Design always gives byte-identical files. ``api(design)`` lists the public functions once,
+for the header and for the host build's cffi declarations alike.
 """
 
 from __future__ import annotations
 
 import importlib.resources
+from dataclasses import dataclass
 
 import jinja2
 
-from .ir import Design
 from .fixedpoint import c_definitions
+from .ir import Design
+
+
+@dataclass(frozen=True)
+class Function:
+    proto: str       # C prototype without the trailing semicolon
+    doc: str         # one comment line for the header
+
+
+def input_type(design: Design) -> str:
+    fr = design.front
+    bits = fr.timer_bits if fr.kind == "stamp" else fr.counter_bits
+    return "uint16_t" if bits == 16 else "uint32_t"
+
+
+def api(design: Design) -> list[Function]:
+    """The public functions of the emitted C for this design, in header order."""
+    p = design.name
+    st, inp = f"{p}_state_t *s", f"{p}_input_t"
+    fns = [
+        Function(f"void {p}_init({st})", "Reset the state; the grid starts with the first inputs after this."),
+        Function(f"size_t {p}_process({st}, const {inp} *in, size_t n, int16_t *out, size_t cap, size_t *produced)",
+                 "Process n inputs (oldest first); at most cap samples to out, their number to *produced; "
+                 "returns the inputs consumed (fewer than n when out filled up: call again with the rest)."),
+        Function(f"size_t {p}_service({st}, int16_t *out, size_t cap)",
+                 "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
+    ]
+    if design.scheme == "timestamp":
+        fns.append(Function(f"void {p}_capture_isr({st}, {inp} stamp)",
+                            "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full)."))
+    elif design.scheme == "interrupt" and design.front.kind == "stamp":
+        fns.append(Function(f"void {p}_edge_isr({st}, {inp} timer_now)",
+                            "Edge interrupt: queue the free-running timer's value read at entry."))
+    elif design.scheme == "interrupt":
+        fns.append(Function(f"void {p}_edge_isr({st})", "Edge interrupt: count one IF edge."))
+        fns.append(Function(f"void {p}_tick_isr({st})", "Grid timer interrupt: queue the edge count."))
+    else:
+        fns.append(Function(f"void {p}_tick_isr({st}, {inp} count)",
+                            "Grid timer interrupt: queue the IF-clocked counter's value."))
+    fns += [
+        Function(f"bool {p}_carrier_present(const {st})", "True while edges arrive at a plausible rate."),
+        Function(f"uint32_t {p}_gap_count(const {st})", "Grid instants with no carrier so far."),
+        Function(f"uint32_t {p}_clamp_count(const {st})", "Grid steps clamped to the legal range so far."),
+        Function(f"uint32_t {p}_overrun_count(const {st})", "Inputs lost because the queue was full."),
+    ]
+    return fns
+
+
+def _operations(design: Design) -> list[str]:
+    """The fixed-point operations this design's C calls."""
+    ops = ["wrap_s32", "rshr", "sat"]
+    if design.front.kind == "stamp":
+        ops.append("ratio_floor")
+        if design.front.order == "cubic":
+            ops.append("cubic_fraction")
+    return ops
 
 
 def _env() -> jinja2.Environment:
@@ -22,6 +79,7 @@ def _env() -> jinja2.Environment:
         undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
         autoescape=False)
     env.filters["hz"] = lambda v: f"{v:,.6g} Hz".replace(",", " ")
+    env.filters["mhz"] = lambda v: f"{v / 1e6:g} MHz"
     env.filters["pct"] = lambda v: f"{100 * v:.1f} %"
     return env
 
@@ -35,12 +93,12 @@ def emit(design: Design) -> dict[str, str]:
     """The C files of ``design``: {"<name>.h": text, "<name>.c": text}."""
     env = _env()
     p = design.name
+    inp = input_type(design)
     ctx = dict(
-        d=design, p=p, P=p.upper(), banner=banner(design),
+        d=design, fr=design.front, p=p, P=p.upper(), banner=banner(design), api=api(design),
         nsec=sum(len(f.sections) for f in design.filters),
-        stamp_type="uint16_t" if design.front.timer_bits == 16 else "uint32_t",
-        stamp_mask="UINT32_C(0xFFFF)" if design.front.timer_bits == 16 else "UINT32_C(0xFFFFFFFF)",
-        fixedpoint=c_definitions(p),
+        input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
+        fixedpoint=c_definitions(p, _operations(design)),
     )
     return {
         f"{p}.h": env.get_template("demod.h.j2").render(ctx),

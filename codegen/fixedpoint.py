@@ -47,32 +47,93 @@ def ratio_floor(num, shift: int, den):
     return (num << shift) // den
 
 
+INV6_BITS = 15
+INV6 = round((1 << INV6_BITS) / 6)       # 1/6 in Q15 for the cubic correction
+CUBIC_U_BITS = 12                        # the cubic correction reads the fraction in Q12
+CUBIC_T_BITS = 8                         # and corrects the time offset in Q8 ticks
+CUBIC_CORR_SHIFT = 3 * CUBIC_U_BITS + INV6_BITS - CUBIC_T_BITS   # Q24 * Q12 * Q15 -> Q8: 43
+
+
+def cubic_fraction(e1, d, d_prev, d_next, shift: int, delta_limit: int):
+    """Phase fraction (Q shift) at offset e1 into a stamp interval d, corrected for the curvature of
+    time as a function of phase through four stamps (intervals d_prev, d, d_next).
+
+    With u the linear fraction and the second differences delta0 = d - d_prev, delta1 = d_next - d
+    (clamped to +-delta_limit), the cubic through the four stamps lies below the chord by
+    u (1 - u) (A + B u) ticks, A = (2 delta0 + delta1) / 6, B = (delta1 - delta0) / 6; the fraction
+    is then (e1 + that) / d. Integer form:
+      u0 = ratio_floor(e1, shift, d); v = u0 >> (shift - 12)                 (Q12)
+      h = (2 delta0 + delta1) * 4096 + (delta1 - delta0) * v; q = v * (4096 - v)
+      corr = rshr(q * h * INV6, 43)                                           (Q8 ticks)
+    Bounds: v < 2**12, |delta| <= delta_limit <= 2**12, so |h| < 5 * 2**24, q <= 2**22 and
+    |q * h * INV6| < 2**62: inside int64. e1 < d and d << 8 < 2**32 (d <= the gap limit).
+      u = ratio_floor(sat((e1 << 8) + corr, 0, (d << 8) - 1), shift - 8, d)
+    """
+    one = 1 << CUBIC_U_BITS
+    u0 = ratio_floor(e1, shift, d)
+    v = u0 >> (shift - CUBIC_U_BITS)
+    dl0 = sat(d - d_prev, -delta_limit, delta_limit)
+    dl1 = sat(d_next - d, -delta_limit, delta_limit)
+    h = (2 * dl0 + dl1) * one + (dl1 - dl0) * v
+    q = v * (one - v)
+    corr = rshr(q * h * INV6, CUBIC_CORR_SHIFT)
+    num = sat((e1 << CUBIC_T_BITS) + corr, 0, (d << CUBIC_T_BITS) - 1)
+    return ratio_floor(num, shift - CUBIC_T_BITS, d)
+
+
 # C renderings of the same operations. ``{p}`` is replaced by the design's name prefix.
-C_DEFINITIONS = """\
-/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */
+C_DEFINITIONS = {
+    "wrap_s32": """\
 static inline int32_t {p}_wrap_s32(uint32_t x)
 {{
     /* uint32 pattern read as int32 without an implementation-defined conversion */
     return (x < UINT32_C(0x80000000)) ? (int32_t)x
                                       : (int32_t)(x - UINT32_C(0x80000000)) - INT32_C(0x7FFFFFFF) - 1;
 }}
+""",
+    "rshr": """\
 static inline int64_t {p}_rshr(int64_t x, unsigned s)
 {{
-    /* round half up, then arithmetic shift right (checked at compile time below) */
+    /* round half up, then arithmetic shift right (the emitted source checks that >> is arithmetic) */
     return (x + ((int64_t)1 << (s - 1u))) >> s;
 }}
+""",
+    "sat": """\
 static inline int64_t {p}_sat(int64_t x, int64_t lo, int64_t hi)
 {{
     return (x < lo) ? lo : ((x > hi) ? hi : x);
 }}
+""",
+    "ratio_floor": """\
 static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t den)
 {{
     /* floor(num * 2^shift / den), 0 <= num < den; the design keeps num << shift in 32 bits */
     return (uint32_t)(num << shift) / den;
 }}
-"""
+""",
+    "cubic_fraction": """\
+static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next,
+                                          unsigned shift, int64_t delta_limit)
+{{
+    /* phase fraction through four stamps (see edgetally.fixedpoint.cubic_fraction) */
+    const int64_t one = (int64_t)1 << {ub}u;
+    int64_t v = (int64_t)({p}_ratio_floor(e1, shift, d) >> (shift - {ub}u));
+    int64_t dl0 = {p}_sat((int64_t){p}_wrap_s32(d - d_prev), -delta_limit, delta_limit);
+    int64_t dl1 = {p}_sat((int64_t){p}_wrap_s32(d_next - d), -delta_limit, delta_limit);
+    int64_t h = (2 * dl0 + dl1) * one + (dl1 - dl0) * v;
+    int64_t q = v * (one - v);
+    int64_t corr = {p}_rshr(q * h * INT64_C({inv6}), {corr_shift}u);
+    int64_t num = {p}_sat(((int64_t)e1 << {tb}u) + corr, 0, ((int64_t)d << {tb}u) - 1);
+    return {p}_ratio_floor((uint32_t)num, shift - {tb}u, d);
+}}
+""",
+}
 
 
-def c_definitions(prefix: str) -> str:
-    """The C text of every operation above, with ``prefix`` on each name."""
-    return C_DEFINITIONS.format(p=prefix)
+def c_definitions(prefix: str, names=None) -> str:
+    """The C text of the named operations (all when ``names`` is None), in definition order, with
+    ``prefix`` on each name. Emit only what a design calls: unused static functions draw warnings."""
+    chosen = [n for n in C_DEFINITIONS if names is None or n in names]
+    text = "".join(C_DEFINITIONS[n] for n in chosen)
+    return ("/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */\n"
+            + text.format(p=prefix, ub=CUBIC_U_BITS, tb=CUBIC_T_BITS, inv6=INV6, corr_shift=CUBIC_CORR_SHIFT))

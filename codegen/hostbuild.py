@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from .ir import Design
-from .emit import emit
+from .emit import api, emit, input_type
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 OPT_FLAGS = ["-O2"]
@@ -40,19 +40,11 @@ def cache_root() -> Path:
     return Path(tempfile.gettempdir()) / f"edgetally-host-{uid}"
 
 
-def _cdef(p: str, stamp_type: str) -> str:
-    return f"""
-typedef {stamp_type} {p}_stamp_t;
-typedef struct {{ ...; }} {p}_state_t;
-void {p}_init({p}_state_t *s);
-size_t {p}_process({p}_state_t *s, const {p}_stamp_t *stamps, size_t n, int16_t *out, size_t cap, size_t *produced);
-void {p}_capture_isr({p}_state_t *s, {p}_stamp_t stamp);
-size_t {p}_service({p}_state_t *s, int16_t *out, size_t cap);
-bool {p}_carrier_present(const {p}_state_t *s);
-uint32_t {p}_gap_count(const {p}_state_t *s);
-uint32_t {p}_clamp_count(const {p}_state_t *s);
-uint32_t {p}_overrun_count(const {p}_state_t *s);
-"""
+def _cdef(design: Design) -> str:
+    p = design.name
+    lines = [f"typedef {input_type(design)} {p}_input_t;", f"typedef struct {{ ...; }} {p}_state_t;"]
+    lines += [f.proto + ";" for f in api(design)]
+    return "\n".join(lines) + "\n"
 
 
 def compile_strict(c_path: Path, obj_path: Path, extra: list[str] | None = None) -> None:
@@ -72,65 +64,81 @@ class HostDemod:
     lib: object
 
     @property
-    def stamp_dtype(self):
-        return np.uint16 if self.design.front.timer_bits == 16 else np.uint32
+    def input_dtype(self):
+        return np.uint16 if input_type(self.design) == "uint16_t" else np.uint32
+
+    def _fn(self, name: str):
+        return getattr(self.lib, f"{self.design.name}_{name}")
 
     def new_state(self):
         st = self.ffi.new(f"{self.design.name}_state_t *")
-        getattr(self.lib, f"{self.design.name}_init")(st)
+        self._fn("init")(st)
         return st
 
-    def process(self, stamps: np.ndarray, block: int = 4096, out_cap: int = 1024, state=None) -> tuple[np.ndarray, dict]:
-        """Feed the stamps in blocks of ``block`` through <name>_process, collecting every output.
-        Returns (outputs as int16, final counters)."""
-        p = self.design.name
-        ffi, lib = self.ffi, self.lib
-        st = state if state is not None else self.new_state()
-        proc = getattr(lib, f"{p}_process")
-        stamps = np.ascontiguousarray(stamps, dtype=self.stamp_dtype)
+    def counters(self, st) -> dict:
+        return {"gaps": int(self._fn("gap_count")(st)), "clamps": int(self._fn("clamp_count")(st)),
+                "overruns": int(self._fn("overrun_count")(st)), "carrier": bool(self._fn("carrier_present")(st))}
+
+    def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024) -> tuple[np.ndarray, dict]:
+        """Feed the inputs (stamps or counts) in blocks of ``block`` through <name>_process,
+        collecting every output. Returns (outputs as int16, final counters)."""
+        ffi = self.ffi
+        st = self.new_state()
+        proc = self._fn("process")
+        inputs = np.ascontiguousarray(inputs, dtype=self.input_dtype)
         out = np.empty(out_cap, dtype=np.int16)
         out_ptr = ffi.cast("int16_t *", ffi.from_buffer(out))
         produced = ffi.new("size_t *")
         chunks = []
-        ctype = f"{p}_stamp_t *"
-        for start in range(0, stamps.size, block):
-            blk = stamps[start:start + block]
+        ctype = f"{self.design.name}_input_t *"
+        for start in range(0, inputs.size, block):
+            blk = inputs[start:start + block]
             base = ffi.cast(ctype, ffi.from_buffer(blk))
             done = 0
             while done < blk.size:
-                used = proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
+                done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
                 chunks.append(out[:produced[0]].copy())
-                done += used
-        counters = {
-            "gaps": int(getattr(lib, f"{p}_gap_count")(st)),
-            "clamps": int(getattr(lib, f"{p}_clamp_count")(st)),
-            "overruns": int(getattr(lib, f"{p}_overrun_count")(st)),
-            "carrier": bool(getattr(lib, f"{p}_carrier_present")(st)),
-        }
-        return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=np.int16)), counters
+        return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=np.int16)), self.counters(st)
 
-    def process_isr(self, stamps: np.ndarray, service_every: int, out_cap: int = 64) -> np.ndarray:
-        """Feed the stamps one by one through <name>_capture_isr, calling <name>_service every
-        ``service_every`` stamps (slow: one foreign call per stamp; for tests of the ISR path)."""
-        p = self.design.name
+    def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64) -> tuple[np.ndarray, dict]:
+        """Drive the design's ISR functions as the hardware would, one input at a time (for an
+        edge-counting interrupt design the inputs are counts: the edge ISR is called once per new
+        edge before each tick), calling <name>_service every ``service_every`` inputs. Slow: one
+        foreign call per input; for tests of the ISR path."""
+        d = self.design
         st = self.new_state()
-        isr, service = getattr(self.lib, f"{p}_capture_isr"), getattr(self.lib, f"{p}_service")
+        service = self._fn("service")
         out = self.ffi.new("int16_t[]", out_cap)
         res: list[int] = []
-        for k, c in enumerate(stamps.tolist(), 1):
-            isr(st, c)
-            if k % service_every == 0:
-                while True:
-                    n = service(st, out, out_cap)
-                    res.extend(out[0:n])
-                    if n < out_cap:
-                        break
-        while True:
-            n = service(st, out, out_cap)
-            res.extend(out[0:n])
-            if n < out_cap:
-                break
-        return np.array(res, dtype=np.int16)
+
+        def drain():
+            while True:
+                n = service(st, out, out_cap)
+                res.extend(out[0:n])
+                if n < out_cap:
+                    return
+
+        if d.scheme == "interrupt" and d.front.kind == "count":
+            edge, tick = self._fn("edge_isr"), self._fn("tick_isr")
+            mask = (1 << d.front.counter_bits) - 1
+            values = inputs.astype(np.int64)
+            for _ in range(int(values[0])):
+                edge(st)
+            tick(st)
+            for k, step in enumerate((np.diff(values) & mask).tolist(), 2):
+                for _ in range(step):
+                    edge(st)
+                tick(st)
+                if k % service_every == 0:
+                    drain()
+        else:
+            isr = self._fn({"timestamp": "capture_isr", "interrupt": "edge_isr", "counter": "tick_isr"}[d.scheme])
+            for k, v in enumerate(inputs.tolist(), 1):
+                isr(st, v)
+                if k % service_every == 0:
+                    drain()
+        drain()
+        return np.array(res, dtype=np.int16), self.counters(st)
 
 
 def build(design: Design, workdir: Path | None = None) -> HostDemod:
@@ -139,8 +147,7 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
 
     files = emit(design)
     p = design.name
-    stamp_type = "uint16_t" if design.front.timer_bits == 16 else "uint32_t"
-    cdef = _cdef(p, stamp_type)
+    cdef = _cdef(design)
     parts = [k + "\0" + v for k, v in sorted(files.items())] + [cdef, compiler(), *STRICT_FLAGS, *OPT_FLAGS, sys.version]
     key = hashlib.sha256("\0".join(parts).encode()).hexdigest()[:16]
     modname = f"_edgetally_{p}_{key}"

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import types
 import typing
 from dataclasses import dataclass
 
@@ -16,20 +17,45 @@ from dataclasses import dataclass
 class StampFront:
     """Timer stamps -> unwrapped time -> phase on a uniform grid -> phase step per grid period.
 
-    Time is kept modulo 2**32 ticks. A grid instant g lies ``grid_ticks`` after the previous one,
-    the first one ``grid_ticks`` after the first stamp. For the stamps t_prev <= g < t_next that
-    bracket it (interval D = t_next - t_prev) the phase, in units of 2**-phase_shift stamp
-    intervals, is  count(t_prev) * 2**phase_shift + ratio_floor(g - t_prev, phase_shift, D);
-    when D > gap_ticks no phase is formed and the step is ``x_centre`` (carrier lost).
-    The step x = wrap_s32(phase - previous phase) is clamped to [0, x_limit]."""
+    Time is kept modulo 2**32 ticks; the phase in units of 2**-phase_shift stamp intervals (one
+    stamp interval = ``prescale`` IF cycles). For the stamps t1 <= g < t2 that bracket a grid
+    instant g (interval D = t2 - t1), ``order`` "linear" takes
+        u = ratio_floor(g - t1, phase_shift, D);
+    "cubic" also uses the stamps t0 before and t3 after, and corrects for the curvature of t(phase)
+    through the four stamps (see ``edgetally.model.cubic_fraction``). The phase is
+    count(t1) * 2**phase_shift + u; when D > gap_ticks no phase is formed and the step is
+    ``x_centre`` (carrier lost). The step x = wrap_s32(phase - previous phase) is clamped to
+    [0, x_limit]. The first grid instant lies ``grid_ticks`` after the first stamp ("linear") or
+    the second stamp ("cubic")."""
 
     timer_bits: int
-    prescale: int          # IF cycles between two stamps (capture prescaler), 1 here
+    prescale: int          # IF cycles between two stamps (capture prescaler)
     grid_ticks: int        # timer ticks per grid period
     phase_shift: int       # fractional bits of the phase per stamp interval
     gap_ticks: int         # longest stamp interval still taken as signal
     x_limit: int           # largest legal phase step per grid period
     x_centre: int          # phase step of the IF centre, used while the carrier is lost
+    order: str = "linear"  # "linear" or "cubic"
+    delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
+    kind: str = "stamp"
+
+
+@dataclass(frozen=True)
+class CountFront:
+    """Edge counts read at every grid instant -> count step per grid period.
+
+    x = (wrap of the count difference to counter_bits, clamped to diff_limit) << step_shift; a run of
+    more than gap_run zero differences means the carrier is lost, and the step is then x_centre."""
+
+    counter_bits: int
+    grid_ticks: int        # timer ticks per grid period (the grid timer runs at timer_hz)
+    step_shift: int
+    gap_run: int
+    diff_limit: int        # largest legal count difference per grid period
+    x_limit: int           # diff_limit << step_shift
+    x_centre: int
+    prescale: int = 1
+    kind: str = "count"
 
 
 @dataclass(frozen=True)
@@ -95,16 +121,21 @@ class Rates:
 
 @dataclass(frozen=True)
 class Budget:
-    """The planner's CPU estimate, printed into the emitted header (estimates, not measurements)."""
+    """The planner's CPU and RAM estimate, printed into the emitted header (estimates, not measured)."""
 
     core: str
     cpu_hz: float
-    capture_dma: bool
+    dma: bool                 # capture DMA (stamp fronts) or counter DMA (count fronts)
     edge_hz_max: float
-    cycles_per_stamp: int
+    variant: str
+    cycles_per_edge: int      # the edge or capture ISR; 0 when hardware or DMA does it
+    cycles_per_input: int     # per stamp or count taken from the queue or a DMA block
     cycles_per_grid: int
     cycles_per_output: int
     load_fraction: float
+    ram_bytes: int
+    isr_cycles: int           # for simulating an edge interrupt's latency
+    irq_jitter_cycles: int
 
 
 @dataclass(frozen=True)
@@ -112,9 +143,9 @@ class Design:
     name: str
     tool_version: str
     spec_hash: str
-    scheme: str
+    scheme: str            # "timestamp", "interrupt" or "counter"
     rates: Rates
-    front: StampFront
+    front: StampFront | CountFront
     cic: Cic
     scale: Scale
     filters: tuple[Iir, ...]
@@ -142,6 +173,9 @@ def _build(tp, value):
         if unknown:
             raise ValueError(f"{tp.__name__}: unknown fields {sorted(unknown)}")
         return tp(**{f.name: _build(hints[f.name], value[f.name]) for f in dataclasses.fields(tp)})
+    if origin in (typing.Union, types.UnionType):
+        kinds = {a.kind: a for a in typing.get_args(tp)}
+        return _build(kinds[value["kind"]], value)
     if origin is tuple:
         args = typing.get_args(tp)
         inner = args[0]

@@ -6,8 +6,8 @@ and each integrator is reduced modulo 2**32 before the next); the recursive filt
 sample on Python integers.
 
 Contract shared with the C: stamps arrive in capture order; two consecutive stamps are less than
-2**31 ticks apart once unwrapped (always true of 16-bit timers). Output samples do not depend on
-how the stamps are split into blocks.
+2**31 ticks apart once unwrapped (always true of 16-bit timers); counts are read once per grid
+instant. Output samples do not depend on how the inputs are split into blocks.
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .ir import Design
-from .fixedpoint import MASK32, ratio_floor, rshr, sat, wrap_s32
+from .fixedpoint import MASK32, cubic_fraction, ratio_floor, rshr, sat, wrap_s32
 
 
 @dataclass(frozen=True)
@@ -41,20 +41,45 @@ def phase_steps(design: Design, stamps: np.ndarray) -> tuple[np.ndarray, int, in
     """The CIC input x[k] for every grid instant the stamps complete, with the gap and clamp counts."""
     fr = design.front
     t = unwrap(stamps, fr.timer_bits)
-    if t.size < 2:
+    cubic = fr.order == "cubic"
+    first = 1 if cubic else 0                              # the grid starts at this stamp
+    last = t.size - 2 if cubic else t.size - 1             # instants before this stamp are complete
+    if last <= first:
         return np.zeros(0, dtype=np.int64), 0, 0
-    count = (t[-1] - t[0] - 1) // fr.grid_ticks            # grid instants strictly before the last stamp
-    g = t[0] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
-    i = np.searchsorted(t, g, side="right")                 # first stamp after each instant
-    t_prev, d = t[i - 1], t[i] - t[i - 1]
+    count = (t[last] - t[first] - 1) // fr.grid_ticks      # instants strictly before t[last]
+    g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
+    i = np.searchsorted(t, g, side="right")                # the stamp after each instant
+    t1, d = t[i - 1], t[i] - t[i - 1]
     gap = d > fr.gap_ticks
     safe_d = np.where(gap, 1, d)
-    frac = np.where(gap, 0, ratio_floor(np.where(gap, 0, g - t_prev), fr.phase_shift, safe_d))
-    p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + frac
-    step = wrap_s32(np.diff(np.concatenate(([0], p))))
+    e1 = np.where(gap, 0, g - t1)
+    if cubic:
+        frac = cubic_fraction(e1, safe_d, np.where(gap, 1, t1 - t[i - 2]), np.where(gap, 1, t[i + 1] - t[i]),
+                              fr.phase_shift, fr.delta_limit)
+    else:
+        frac = ratio_floor(e1, fr.phase_shift, safe_d)
+    p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
+    p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
+    step = wrap_s32(np.diff(np.concatenate(([p_start], p))))
     clamped = sat(step, 0, fr.x_limit)
     clamps = int(np.count_nonzero((clamped != step) & ~gap))
     x = np.where(gap, fr.x_centre, clamped)
+    return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
+
+
+def count_steps(design: Design, counts: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """The CIC input for each count read after the first, with the gap and clamp counts."""
+    fr = design.front
+    c = np.asarray(counts, dtype=np.int64)
+    if c.size < 2:
+        return np.zeros(0, dtype=np.int64), 0, 0
+    d = np.diff(c) & ((1 << fr.counter_bits) - 1)
+    k = np.arange(d.size)
+    last_nonzero = np.maximum.accumulate(np.where(d != 0, k, -1))
+    gap = (d == 0) & (k - last_nonzero > fr.gap_run)
+    clamped = sat(d, 0, fr.diff_limit)
+    clamps = int(np.count_nonzero(clamped != d))
+    x = np.where(gap, fr.x_centre, clamped << fr.step_shift)
     return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
 
 
@@ -90,7 +115,15 @@ def post_chain(design: Design, y: np.ndarray) -> np.ndarray:
     return out.astype(np.int16)
 
 
-def run(design: Design, stamps: np.ndarray) -> ModelRun:
-    """Everything the emitted C produces for this stamp sequence, computed independently."""
-    x, gaps, clamps = phase_steps(design, stamps)
+def front_steps(design: Design, inputs: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """The front end of the design's kind: stamps or counts -> CIC input."""
+    if design.front.kind == "stamp":
+        return phase_steps(design, inputs)
+    return count_steps(design, inputs)
+
+
+def run(design: Design, inputs: np.ndarray) -> ModelRun:
+    """Everything the emitted C produces for this input sequence (capture stamps, or counts read
+    at each grid instant), computed independently."""
+    x, gaps, clamps = front_steps(design, inputs)
     return ModelRun(out=post_chain(design, cic_decimate(design, x)), gaps=gaps, clamps=clamps, steps=x)

@@ -1,79 +1,84 @@
-"""The planner: picks the scheme, the grid rate (and so the CIC ratio) and the phase word, and says why.
+"""The planner: picks the counting scheme, its variant, the grid rate (and so the CIC ratio) and the
+front end's words, and says why, option by option.
 
-Only the timestamp scheme exists so far; the option table already has one row per grid choice so
-that other schemes slot in as more rows.
+Rule: among the feasible options (the part has the hardware, the words fit 32 bits, the CPU load
+is within the budget) the best predicted SINAD wins; a costlier option must gain more than TIE_DB
+over a cheaper one. Stamp front ends prefer grids no faster than their stamp rate (beyond it
+successive grid instants share their bracketing stamps: measured on campus_fm, +0.6 dB from 240 to
+480 kHz for twice the divisions).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
 from . import cic, iir, schemes
-from .cores import CORES
+from .ir import CountFront, StampFront
+from .schemes import Variant
 from .spec import Spec, SpecError
 
-CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 (DESIGN.md section 4)
+CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 after a counter (DESIGN.md section 4)
 MAX_RATIO = 64
 MAX_PHASE_SHIFT = 24   # finer phase than 2^-24 of a stamp interval buys nothing at any timer rate
 MIN_PHASE_SHIFT = 8
+CUBIC_MIN_SHIFT = 12   # the cubic correction reads the fraction in Q12
+CUBIC_DELTA_LIMIT = 4096
+MAX_STEP_SHIFT = 12
 REG_BITS = 32          # CIC registers and the phase word are 32-bit on every target
-OVERDEVIATION = 2.0    # the phase step limit allows this many times the peak deviation
+OVERDEVIATION = 2.0    # the step limit allows this many times the peak deviation
 GAP_FRACTION = 0.5     # a stamp interval longer than 1 / (this * lowest frequency) is a gap
 TIE_DB = 0.5           # predicted SINAD within this is a tie; the cheaper option wins
+SCHEMES = ("timestamp", "interrupt", "counter")
 
 
 @dataclass(frozen=True)
 class Option:
     scheme: str
+    variant: str
     ratio: int
     grid_hz: int
-    phase_shift: int
     load: float
+    ram_bytes: int
     predicted_sinad_db: float
-    timer_sinad_db: float
+    quant_sinad_db: float
     curvature_sinad_db: float
-    kept: bool
+    jitter_sinad_db: float
+    kept: bool             # the chosen option
     reason: str
+    feasible: bool = False
+    doubtful: bool = False     # the prediction may be several dB off (schemes.doubt)
 
 
 @dataclass(frozen=True)
 class Plan:
     scheme: str
+    variant: str
+    front: StampFront | CountFront
     ratio: int
     order: int
     grid_hz: int
-    grid_ticks: int
-    phase_shift: int
-    gap_ticks: int
-    x_limit: int
     cic_in_bits: int
+    queue_len: int
     load: schemes.Load
     prediction: schemes.Prediction
     options: tuple[Option, ...]
     notes: tuple[str, ...] = field(default=())
 
     def to_dict(self) -> dict:
-        import dataclasses
         return dataclasses.asdict(self)
 
 
-def _phase_words(spec: Spec, ratio: int, grid_hz: int, prescale: int):
-    """The largest phase_shift for which neither the division nor the CIC can overflow 32 bits,
-    with the gap limit and phase-step limit that go with it; None if below MIN_PHASE_SHIFT."""
-    sig, tgt = spec.signal, spec.target
-    f_lo_guard = GAP_FRACTION * (sig.if_hz - sig.deviation_hz)
-    gap = math.ceil(tgt.timer_hz * prescale / f_lo_guard)
-    if tgt.timer_bits == 16:
-        gap = min(gap, 65535)
-    f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
-    growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
-    for shift in range(min(MAX_PHASE_SHIFT, REG_BITS - gap.bit_length()), MIN_PHASE_SHIFT - 1, -1):
-        x_limit = math.ceil(f_hi / prescale / grid_hz * (1 << shift))
-        in_bits = x_limit.bit_length() + 1
-        if cic.full_width(in_bits, CIC_ORDER, ratio) <= REG_BITS - 1:
-            return shift, gap, x_limit, in_bits
-    return None
+@dataclass
+class _Cand:
+    variant: Variant
+    option: Option
+    front: StampFront | CountFront | None
+    in_bits: int
+    load: schemes.Load
+    pred: schemes.Prediction
+    queue_len: int
 
 
 FILTER_FIELDS = {"lowpass": "signal.audio_hz", "deemphasis": "signal.deemphasis_us"}
@@ -95,92 +100,176 @@ def _checked_filters(spec: Spec) -> list:
     return [sos for _, sos in filters]
 
 
-def _choose(candidates: list) -> tuple | None:
+def _queue_len(per_out: float) -> int:
+    """Inputs queued between two services: four output periods' worth, a power of two, >= 16."""
+    return max(16, 1 << math.ceil(math.log2(4 * per_out)))
+
+
+def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: int):
+    """The stamp front's words, or the reason there are none."""
+    sig, tgt = spec.signal, spec.target
+    k = v.prescale
+    longest = tgt.timer_hz * k / (sig.if_hz - sig.deviation_hz)
+    if tgt.timer_bits == 16 and longest >= 65536:
+        return None, f"16-bit stamps would wrap more than once between stamps ({longest:.0f} ticks)"
+    gap = math.ceil(tgt.timer_hz * k / (GAP_FRACTION * (sig.if_hz - sig.deviation_hz)))
+    if tgt.timer_bits == 16:
+        gap = min(gap, 65535)
+    f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
+    growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
+    low = CUBIC_MIN_SHIFT if v.order == "cubic" else MIN_PHASE_SHIFT
+    for shift in range(min(MAX_PHASE_SHIFT, REG_BITS - gap.bit_length()), low - 1, -1):
+        x_limit = math.ceil(f_hi / k / grid_hz * (1 << shift))
+        in_bits = x_limit.bit_length() + 1
+        if in_bits + growth <= REG_BITS - 1:
+            front = StampFront(
+                timer_bits=tgt.timer_bits, prescale=k, grid_ticks=grid_ticks, phase_shift=shift, gap_ticks=gap,
+                x_limit=x_limit, x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)), order=v.order,
+                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0)
+            return (front, in_bits), None
+    return None, "no 32-bit phase word fits this ratio"
+
+
+def _count_front(spec: Spec, ratio: int, grid_hz: int, grid_ticks: int):
+    sig, tgt = spec.signal, spec.target
+    f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
+    diff_limit = math.ceil(f_hi / grid_hz)
+    growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
+    for shift in range(min(MAX_STEP_SHIFT, REG_BITS - tgt.counter_bits), -1, -1):
+        x_limit = diff_limit << shift
+        in_bits = x_limit.bit_length() + 1
+        if in_bits + growth <= REG_BITS - 1:
+            front = CountFront(
+                counter_bits=tgt.counter_bits, grid_ticks=grid_ticks, step_shift=shift,
+                gap_run=math.ceil(grid_hz / (GAP_FRACTION * (sig.if_hz - sig.deviation_hz))),
+                diff_limit=diff_limit, x_limit=x_limit, x_centre=round(sig.if_hz / grid_hz * (1 << shift)))
+            return (front, in_bits), None
+    return None, "no 32-bit count word fits this ratio"
+
+
+def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, only_ratio: int | None) -> list[_Cand]:
+    sig, out, tgt = spec.signal, spec.output, spec.target
+    ticks_per_out = tgt.timer_hz // out.rate_hz
+    edge_max = sig.if_hz + sig.deviation_hz
+    sections = sum(len(s) for s in post_sos)
+    cands = []
+    for ratio in range(2, MAX_RATIO + 1):
+        if ticks_per_out % ratio or (only_ratio is not None and ratio != only_ratio):
+            continue
+        grid_hz = out.rate_hz * ratio
+        grid_ticks = ticks_per_out // ratio
+        if v.front == "stamp":
+            words, why = _stamp_front(spec, v, ratio, grid_hz, grid_ticks)
+            qlen = _queue_len(edge_max / v.prescale / out.rate_hz)
+        else:
+            words, why = _count_front(spec, ratio, grid_hz, grid_ticks)
+            qlen = _queue_len(ratio)
+        ld = schemes.load(v, tgt, edge_hz_max=edge_max, grid_hz=grid_hz, out_hz=out.rate_hz, n=CIC_ORDER,
+                          sections=sections, queue_len=qlen)
+        pr = schemes.predict(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
+                             cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles, grid_hz=grid_hz,
+                             out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=post_sos)
+        reason = impossible or why
+        if reason is None and ld.fraction > tgt.cpu_budget:
+            reason = f"CPU load {ld.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}"
+        doubtful = schemes.doubt(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, grid_hz=grid_hz, pred=pr) is not None
+        opt = Option(v.scheme, v.label, ratio, grid_hz, ld.fraction, ld.ram_bytes, pr.sinad_db, pr.quant_sinad_db,
+                     pr.curvature_sinad_db, pr.jitter_sinad_db, reason is None, reason or "feasible",
+                     doubtful=doubtful)
+        cands.append(_Cand(v, opt, words[0] if words else None, words[1] if words else 0, ld, pr, qlen))
+    return cands
+
+
+def _choose(cands: list[_Cand]) -> _Cand | None:
     """Lowest load first; a costlier option wins only by more than TIE_DB of predicted SINAD."""
     best = None
-    for cand in sorted(candidates, key=lambda c: c[0].load):
-        if best is None or cand[0].predicted_sinad_db > best[0].predicted_sinad_db + TIE_DB:
-            best = cand
+    for c in sorted(cands, key=lambda c: c.option.load):
+        if best is None or c.option.predicted_sinad_db > best.option.predicted_sinad_db + TIE_DB:
+            best = c
     return best
 
 
-def _refusal(spec: Spec, options: list, ticks_per_out: int) -> SpecError:
+def _best_of_variant(spec: Spec, cands: list[_Cand]) -> _Cand | None:
+    feasible = [c for c in cands if c.option.kept]
+    feasible = [c for c in feasible if not c.option.doubtful] or feasible
+    if cands and cands[0].variant.front == "stamp":
+        stamp_rate = spec.signal.if_hz / cands[0].variant.prescale
+        slow = [c for c in feasible if c.option.grid_hz <= stamp_rate]
+        feasible = slow or feasible
+    return _choose(feasible)
+
+
+def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, ratio: int | None = None) -> Plan:
+    """Plan the demodulator for ``spec``. ``scheme`` forces one of SCHEMES; ``variant`` (a label
+    from the option table) and ``ratio`` narrow the choice further."""
+    sig, out, tgt = spec.signal, spec.output, spec.target
+    if scheme is not None and scheme not in SCHEMES:
+        raise SpecError("--scheme", scheme, "must be one of " + ", ".join(SCHEMES))
+    post_sos = _checked_filters(spec)
+    per_variant = []
+    for v, impossible in schemes.variants(tgt):
+        if (scheme is not None and v.scheme != scheme) or (variant is not None and v.label != variant):
+            continue
+        cands = _candidates(spec, v, impossible, post_sos, ratio)
+        per_variant.append((v, cands, _best_of_variant(spec, cands)))
+    if variant is not None and not per_variant:
+        raise SpecError("--variant", variant, "is not a variant of " + (scheme or "any scheme") + " on this part")
+    if not any(c for _, c, _ in per_variant):
+        raise SpecError("output.rate_hz", out.rate_hz,
+                        f"no CIC ratio from 2 to {MAX_RATIO} divides the {tgt.timer_hz // out.rate_hz} timer ticks "
+                        "of one output period; choose a rate that leaves a small factor")
+    bests = [b for _, _, b in per_variant if b is not None]
+    # Trust the formulas only where they hold: an option whose prediction is in doubt is taken
+    # only when no option without doubt is feasible.
+    chosen = _choose([b for b in bests if not b.option.doubtful] or bests)
+    if chosen is None:
+        raise _refusal(spec, scheme, per_variant)
+    rows = []
+    for v, cands, best in per_variant:
+        shown = best or min(cands, key=lambda c: (c.option.reason.startswith("the part"), c.option.load))
+        o = shown.option
+        if shown is chosen:
+            reason = f"CHOSEN: best predicted SINAD (a costlier option must gain over {TIE_DB} dB)"
+        elif best is not None:
+            reason = "dropped: feasible, but not better by the tie margin"
+        else:
+            reason = "dropped: " + o.reason
+        rows.append(dataclasses.replace(o, kept=shown is chosen, reason=reason, feasible=best is not None))
+    notes = list(spec.warnings)
+    droop = cic.droop_db(sig.audio_hz, out.rate_hz, CIC_ORDER, chosen.option.ratio)
+    notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB (no compensation yet)")
+    pr = chosen.pred
+    if pr.curvature_sinad_db < pr.quant_sinad_db - 3:
+        notes.append("linear interpolation (phase curvature within one stamp interval) limits quality "
+                     f"to about {pr.curvature_sinad_db:.1f} dB, below the timer's {pr.quant_sinad_db:.1f} dB")
+    why = schemes.doubt(chosen.variant, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz,
+                        grid_hz=chosen.option.grid_hz, pred=pr)
+    if why:
+        notes.append(f"the prediction for the chosen option may be off by several dB: {why}; "
+                     "'plan --simulate' measures it")
+    if scheme is not None:
+        notes.append(f"scheme forced to {scheme}")
+    return Plan(scheme=chosen.variant.scheme, variant=chosen.variant.label, front=chosen.front,
+                ratio=chosen.option.ratio, order=CIC_ORDER, grid_hz=chosen.option.grid_hz, cic_in_bits=chosen.in_bits,
+                queue_len=chosen.queue_len, load=chosen.load, prediction=pr, options=tuple(rows), notes=tuple(notes))
+
+
+def _refusal(spec: Spec, scheme: str | None, per_variant) -> SpecError:
     """The clearest single reason why no option is feasible, on the field the user should change."""
     tgt = spec.target
-    if not options:
-        return SpecError("output.rate_hz", spec.output.rate_hz,
-                         f"no CIC ratio from 2 to {MAX_RATIO} divides the {ticks_per_out} timer ticks of one "
-                         "output period; choose a rate that leaves a small factor")
-    by_load = [o for o, words, *_ in options if words is not None]
-    if by_load:
-        low = min(by_load, key=lambda o: o.load)
+    cands = [c for _, cs, _ in per_variant for c in cs]
+    if scheme is not None:
+        real = [c for c in cands if not c.option.reason.startswith("the part")]
+        if not real:
+            return SpecError("--scheme", scheme, f"impossible on this part: {cands[0].option.reason}")
+        low = min(real, key=lambda c: c.option.load)
+        return SpecError("--scheme", scheme, f"infeasible: the cheapest {scheme} design ({low.variant.label}, "
+                                             f"R={low.option.ratio}) {low.option.reason}")
+    loads = [c for c in cands if c.front is not None and not c.option.reason.startswith("the part")]
+    if loads:
+        low = min(loads, key=lambda c: c.option.load)
         return SpecError("target.cpu_budget", tgt.cpu_budget,
-                         f"every timestamp design exceeds it: the cheapest (R={low.ratio}, grid {low.grid_hz} Hz) "
-                         f"needs {low.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core}")
+                         f"every design exceeds it: the cheapest ({low.variant.scheme} {low.variant.label}, "
+                         f"R={low.option.ratio}) needs {low.option.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core}")
     return SpecError("target.timer_hz", tgt.timer_hz,
-                     "no 32-bit phase word fits: the timer is too fast for the longest stamp interval")
-
-
-def plan(spec: Spec) -> Plan:
-    """Choose the grid rate and word lengths of the timestamp scheme for ``spec``."""
-    sig, out, tgt = spec.signal, spec.output, spec.target
-    core = CORES[tgt.core]
-    prescale = 1
-    ticks_per_out = tgt.timer_hz // out.rate_hz
-    edge_max = (sig.if_hz + sig.deviation_hz) / prescale
-    edge_mean = sig.if_hz / prescale
-    post_sos = _checked_filters(spec)
-    sections = sum(len(s) for s in post_sos)
-    options = []
-    for ratio in range(2, MAX_RATIO + 1):
-        if ticks_per_out % ratio:
-            continue
-        grid_hz = out.rate_hz * ratio
-        words = _phase_words(spec, ratio, grid_hz, prescale)
-        load = schemes.timestamp_load(core, cpu_hz=tgt.cpu_hz, isr_cycles=tgt.isr_cycles, dma=tgt.capture_dma,
-                                      edge_hz_max=edge_max, grid_hz=grid_hz, out_hz=out.rate_hz,
-                                      n=CIC_ORDER, sections=sections)
-        pred = schemes.predict_timestamp(if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
-                                         grid_hz=grid_hz, out_hz=out.rate_hz, r=ratio, n=CIC_ORDER,
-                                         band_hz=sig.audio_hz, prescale=prescale, post_sos=post_sos)
-        if words is None:
-            reason, ok = "no 32-bit phase word fits this ratio", False
-        elif load.fraction > tgt.cpu_budget:
-            reason, ok = f"CPU load {load.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}", False
-        else:
-            reason, ok = "feasible", True
-        opt = Option("timestamp", ratio, grid_hz, words[0] if words else 0, load.fraction, pred.sinad_db,
-                     pred.timer_sinad_db, pred.curvature_sinad_db, ok, reason)
-        options.append((opt, words, load, pred))
-    feasible = [c for c in options if c[0].kept]
-    # Beyond the mean edge rate successive grid instants share their bracketing stamps; measured on
-    # campus_fm: +0.6 dB from 240 to 480 kHz for twice the divisions. Such grids are used only when
-    # no slower one is feasible.
-    slow = [c for c in feasible if c[0].grid_hz <= edge_mean]
-    best = _choose(slow or feasible)
-    if best is None:
-        raise _refusal(spec, options, ticks_per_out)
-    chosen, words, load, pred = best
-    table = []
-    for o, *_ in options:
-        if o is chosen:
-            o = Option(**{**o.__dict__, "reason": f"CHOSEN: best predicted SINAD (a costlier option must gain over {TIE_DB} dB)"})
-        elif o.kept and slow and o.grid_hz > edge_mean:
-            o = Option(**{**o.__dict__, "kept": False,
-                          "reason": f"dropped: grid above the mean edge rate {edge_mean:g} Hz: little to gain"})
-        elif o.kept:
-            o = Option(**{**o.__dict__, "kept": False, "reason": "dropped: feasible, but not better by the tie margin"})
-        else:
-            o = Option(**{**o.__dict__, "reason": "dropped: " + o.reason})
-        table.append(o)
-    notes = list(spec.warnings)
-    droop = cic.droop_db(sig.audio_hz, out.rate_hz, CIC_ORDER, chosen.ratio)
-    notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB (no compensation yet)")
-    if pred.curvature_sinad_db < pred.timer_sinad_db - 3:
-        notes.append("linear interpolation (phase curvature within one stamp interval) limits quality "
-                     f"to about {pred.curvature_sinad_db:.1f} dB, below the timer's "
-                     f"{pred.timer_sinad_db:.1f} dB; a higher-order estimator would lift it")
-    shift, gap, x_limit, in_bits = words
-    return Plan(scheme="timestamp", ratio=chosen.ratio, order=CIC_ORDER, grid_hz=chosen.grid_hz,
-                grid_ticks=ticks_per_out // chosen.ratio, phase_shift=shift, gap_ticks=gap, x_limit=x_limit,
-                cic_in_bits=in_bits, load=load, prediction=pred, options=tuple(table), notes=tuple(notes))
+                     "no design fits: " + "; ".join(sorted({c.option.reason for c in cands})))

@@ -1,7 +1,8 @@
-"""Floating-point reference of the same chain, on the same stamps: exact division in the
-interpolation, the CIC as its FIR taps in double precision, the unquantised IIR design, no
-saturation. Its output is in output LSB (full-scale deviation = 2**15), so it compares directly
-with the integer output; the difference of their SINADs is the implementation loss."""
+"""Floating-point reference of the same chain, on the same inputs: exact division in the
+interpolation (and the same cubic correction, unrounded), the CIC as its FIR taps in double
+precision, the unquantised IIR design, no saturation. Its output is in output LSB (full-scale
+deviation = 2**15), so it compares directly with the integer output; the difference of their
+SINADs is the implementation loss."""
 
 from __future__ import annotations
 
@@ -13,21 +14,45 @@ from .ir import Design
 from .model import unwrap
 
 
-def run(design: Design, stamps: np.ndarray) -> np.ndarray:
-    fr, c = design.front, design.cic
+def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:
+    """Phase steps (stamp intervals per grid period) for every grid instant the stamps complete."""
+    fr = design.front
     t = unwrap(stamps, fr.timer_bits).astype(np.float64)
-    if t.size < 2:
+    cubic = fr.order == "cubic"
+    first = 1 if cubic else 0
+    last = t.size - 2 if cubic else t.size - 1
+    if last <= first:
         return np.zeros(0)
-    t0 = t[0]
-    t = t - t0
-    count = int((t[-1] - 1) // fr.grid_ticks)
-    g = fr.grid_ticks * np.arange(1, count + 1, dtype=np.float64)
+    count = int((t[last] - t[first] - 1) // fr.grid_ticks)
+    g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.float64)
     i = np.searchsorted(t, g, side="right")
     d = t[i] - t[i - 1]
     gap = d > fr.gap_ticks
-    phase = (i - 1) + np.where(gap, 0.0, (g - t[i - 1]) / np.where(gap, 1.0, d))   # stamp intervals
-    centre_step = design.if_hz / fr.prescale / design.rates.grid_hz
-    x = np.where(gap, centre_step, np.diff(np.concatenate(([0.0], phase))))
+    d = np.where(gap, 1.0, d)
+    u = np.where(gap, 0.0, (g - t[i - 1]) / d)
+    if cubic:
+        dl0 = np.clip(d - (t[i - 1] - t[i - 2]), -fr.delta_limit, fr.delta_limit)
+        dl1 = np.clip((t[i + 1] - t[i]) - d, -fr.delta_limit, fr.delta_limit)
+        corr = u * (1 - u) * ((2 * dl0 + dl1) + (dl1 - dl0) * u) / 6.0
+        u = np.where(gap, 0.0, np.clip((g - t[i - 1]) + corr, 0.0, d) / d)
+    phase = (i - 1) + u
+    step = np.diff(np.concatenate(([float(first)], phase)))
+    return np.where(gap, design.if_hz / fr.prescale / design.rates.grid_hz, step)
+
+
+def _count_steps(design: Design, counts: np.ndarray) -> np.ndarray:
+    fr = design.front
+    c = np.asarray(counts, dtype=np.int64)
+    d = np.diff(c) & ((1 << fr.counter_bits) - 1)
+    k = np.arange(d.size)
+    last_nonzero = np.maximum.accumulate(np.where(d != 0, k, -1))
+    gap = (d == 0) & (k - last_nonzero > fr.gap_run)
+    return np.where(gap, design.if_hz / design.rates.grid_hz, d.astype(np.float64))
+
+
+def run(design: Design, inputs: np.ndarray) -> np.ndarray:
+    fr, c = design.front, design.cic
+    x = _stamp_steps(design, inputs) if fr.kind == "stamp" else _count_steps(design, inputs)
     taps = cic.taps(c.order, c.ratio).astype(np.float64) / float(c.ratio) ** c.order
     y = signal.lfilter(taps, [1.0], x)[c.ratio - 1::c.ratio][c.order:]
     dev = y * fr.prescale * design.rates.grid_hz - design.if_hz

@@ -1,21 +1,42 @@
-"""Counting schemes: noise prediction and CPU load. Only the timestamp scheme exists so far.
+"""Counting schemes: how the MCU sees the edges, what that costs in CPU and RAM, and the noise it
+leaves in the audio band.
 
-Noise model (white-quantiser, see DESIGN.md section 4): the phase reconstructed at each grid
-instant carries a white error of variance sigma^2 (cycles^2). Differencing turns it into a
-frequency error with the two-sided PSD 2 sigma^2 fs (1 - cos(2 pi f / fs)) Hz^2/Hz at the grid
-rate fs; the CIC shapes it and folds it to the output rate; what lands in the audio band is the
-noise. Two sources are modelled:
+Schemes and the front end each uses (DESIGN.md section 4):
+- ``timestamp``: timer input capture of every k-th edge (k = capture prescaler), stamps by DMA or
+  a short capture ISR -> phase interpolated on the grid ("stamp" front).
+- ``interrupt``: a comparator or pin interrupt per edge. Variant "count": the ISR counts and a
+  grid-timer ISR samples the count ("count" front). Variant "stamp": the ISR also reads a
+  free-running timer, whose latency jitter adds to the timer's resolution ("stamp" front).
+- ``counter``: a timer clocked by the IF counts edges in hardware, read at every grid tick by DMA
+  or a tick ISR ("count" front); the free-running count is the CIC's first integrator.
 
+Noise model (white-quantiser, see DESIGN.md section 4): the phase at each grid instant carries a
+white error of variance sigma^2 (cycles^2). Differencing turns it into a frequency error with the
+two-sided PSD 2 sigma^2 fs (1 - cos(2 pi f / fs)) Hz^2/Hz at the grid rate fs; the CIC shapes it and
+folds it to the output rate; what lands in the audio band after the output filters (which shape
+signal and noise alike) is the noise. The sources:
+
+- count quantisation: sigma^2 = 1/12 (uniform error of a whole cycle): the first-order delta-sigma
+  result N_B ~ (2 pi^2 / 9) B^3 / fs (Beards & Copeland, IEEE TCAS-II 41(1), 1994; Schreier & Temes
+  2005, ch. 2), here with the CIC's aliasing and the filters' response included.
 - timer quantisation: each stamp is off by a uniform error of one tick, so the interpolated phase
-  error has variance (2/3) E[f^2] / (12 f_timer^2) (two stamps, interpolation weights w, 1-w with
-  E[w^2 + (1-w)^2] = 2/3). Measured on the examples, this is 1.5 to 2.5 dB pessimistic (the
-  stamp errors of a slowly swept period are not independent) and still fair a little above the
-  edge rate.
-- interpolation curvature: linear interpolation of a phase whose slope changes within one stamp
+  error has variance  w * E[f^2] / (12 f_timer^2)  with w = E[sum of squared interpolation
+  weights] = 2/3 for linear interpolation and CUBIC_WEIGHT for the four-stamp cubic. Measured on
+  the examples this is 1.5 to 2.5 dB pessimistic (the stamp errors of a slowly swept period are
+  not independent). A grid faster than the stamp rate gains nothing more (measured on campus_fm:
+  the noise stops falling near the edge rate), so the level is held at the stamp rate.
+- interrupt latency jitter: a uniform spread of J cycles at the CPU clock adds w E[f^2] J^2 /
+  (12 f_cpu^2).
+- interpolation residual: linear interpolation of a phase whose slope changes within one stamp
   interval D errs by (f'/2) tau (D - tau) at offset tau; for tau uniform on [0, D) its standard
-  deviation is D^2 / sqrt(180) * f' / 2 (our derivation; it limits narrowband, low-IF links).
-  The offsets of successive grid instants are not independent, and measured noise stops falling
-  with the grid rate beyond about 2/3 of the edge rate, so the level is held there.
+  deviation is D^2 / sqrt(180) * f' / 2. The cubic through four stamps errs by the fourth-order
+  term of the same expansion (our derivation, see ``predict``). The offsets of successive grid
+  instants are not independent, and measured noise stops falling with the grid rate beyond about
+  2/3 of the stamp rate, so the level is held there. Where the residual is large (a few stamps per
+  cycle of the tone) this small-error model is rough.
+- The count error is white only when the deviation spreads it: where the test deviation is under
+  half the grid rate, the IF and the grid can be nearly commensurate and the error turns into
+  tones. ``doubt`` says so; ``plan --simulate`` measures.
 
 These are planning figures; verify measures the truth by simulation.
 """
@@ -29,18 +50,74 @@ import numpy as np
 from scipy import signal
 
 from . import cic
-from .cores import Core
+from .spec import Target
 
 TEST_TONE_HZ = 1000.0
 TEST_LEVEL = 0.7           # fraction of full-scale deviation for the standard test tone
 BAND_LOW_HZ = 20.0         # SINAD band starts here: below is DC, which carries the tuning offset
 
 
+def _cubic_weight() -> float:
+    """E over u in [0, 1) of the summed squared Lagrange weights of nodes -1, 0, 1, 2."""
+    u = np.linspace(0.0, 1.0, 20001)
+    w = [-u * (u - 1) * (u - 2) / 6, (u + 1) * (u - 1) * (u - 2) / 2,
+         -(u + 1) * u * (u - 2) / 2, (u + 1) * u * (u - 1) / 6]
+    return float(np.trapezoid(sum(x * x for x in w), u))
+
+
+def _shape_var(shape) -> float:
+    u = np.linspace(0.0, 1.0, 20001)
+    p = shape(u)
+    return float(np.trapezoid(p * p, u) - np.trapezoid(p, u) ** 2)
+
+
+LINEAR_WEIGHT = 2.0 / 3.0
+CUBIC_WEIGHT = _cubic_weight()
+LINEAR_SHAPE_VAR = _shape_var(lambda u: u * (1 - u))                      # 1/180
+CUBIC_SHAPE_VAR = _shape_var(lambda u: u * (u + 1) * (u - 1) * (u - 2))
+
+
+@dataclass(frozen=True)
+class Variant:
+    """One way of seeing the edges."""
+
+    scheme: str                # "timestamp", "interrupt", "counter"
+    front: str                 # "stamp" or "count"
+    prescale: int = 1
+    order: str = "linear"      # stamp fronts: "linear" or "cubic"
+
+    @property
+    def label(self) -> str:
+        """Short name, one word: k<prescale>-<order> (capture), stamp-<order> (edge interrupt that
+        reads a timer), count (edge counts)."""
+        if self.front == "count":
+            return "count"
+        pre = f"k{self.prescale}" if self.scheme == "timestamp" else "stamp"
+        return f"{pre}-{self.order}"
+
+
+def variants(tgt: Target) -> list[tuple[Variant, str | None]]:
+    """Every variant with the reason it is impossible on this target (None if possible)."""
+    out = []
+    for k in tgt.capture_prescalers:
+        why = None if tgt.has_capture else "the part has no input capture on the IF (target.has_capture)"
+        for order in ("linear", "cubic"):
+            out.append((Variant("timestamp", "stamp", k, order), why))
+    no_irq = None if tgt.has_edge_irq else "the part has no edge interrupt on the IF (target.has_edge_irq)"
+    out.append((Variant("interrupt", "count"), no_irq))
+    for order in ("linear", "cubic"):
+        out.append((Variant("interrupt", "stamp", 1, order), no_irq))
+    out.append((Variant("counter", "count"),
+                None if tgt.has_counter else "the part has no IF-clocked counter (target.has_counter)"))
+    return out
+
+
 @dataclass(frozen=True)
 class Prediction:
     sinad_db: float            # all modelled sources together
-    timer_sinad_db: float      # timer quantisation alone
+    quant_sinad_db: float      # timer or count quantisation alone
     curvature_sinad_db: float  # interpolation curvature alone
+    jitter_sinad_db: float     # interrupt latency jitter alone
     output_sinad_db: float     # the 16-bit output word alone
 
 
@@ -69,46 +146,94 @@ def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, ba
     return 2.0 * float(np.trapezoid(total * _post_gain2(post_sos, f, out_hz), f))
 
 
-def predict_timestamp(*, if_hz: float, full_scale_hz: float, timer_hz: float, grid_hz: float, out_hz: float,
-                      r: int, n: int, band_hz: float, prescale: int = 1, post_sos=()) -> Prediction:
+def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
+            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
+            post_sos=()) -> Prediction:
     """Predicted SINAD of the standard test (1 kHz tone at 70 % of full-scale deviation)."""
     dev = TEST_LEVEL * full_scale_hz
     ef2 = if_hz ** 2 + 0.5 * dev ** 2                        # E[f^2] for a sinusoidal deviation
-    edge_hz = if_hz / prescale
-    sigma_t2 = ef2 / (12.0 * timer_hz ** 2)                  # one stamp, in cycles^2
-    sig_timer = (2.0 / 3.0) * sigma_t2
-    d = prescale / if_hz                                     # stamp interval (s)
-    fdot_rms2 = (2 * math.pi * TEST_TONE_HZ * dev) ** 2 / 2  # mean square of f' (Hz/s)^2
-    sig_curv = fdot_rms2 * d ** 4 / 180.0 / 4.0
-    sig_curv *= max(1.0, grid_hz / ((2.0 / 3.0) * edge_hz))
+    sig_quant = sig_curv = sig_jit = 0.0
+    if v.front == "count":
+        sig_quant = 1.0 / 12.0
+    else:
+        w = CUBIC_WEIGHT if v.order == "cubic" else LINEAR_WEIGHT
+        stamp_hz = if_hz / v.prescale
+        held = max(1.0, grid_hz / stamp_hz)          # no gain from grids faster than the stamps
+        sig_quant = w * ef2 / (12.0 * timer_hz ** 2) * held
+        if v.scheme == "interrupt":
+            sig_jit = w * ef2 * irq_jitter_cycles ** 2 / (12.0 * cpu_hz ** 2) * held
+        # Interpolation residual for a tone: phase amplitude dev / (2 pi fm) times theta^2 / 2 (linear)
+        # or theta^4 / 24 (cubic), theta = 2 pi fm k / f0 the tone's phase advance per stamp
+        # interval, times the shape u(1 - u) or u(u + 1)(u - 1)(u - 2) over the interval; its
+        # variance over u uniform in [0, 1) and over the tone's cycle (mean square 1/2).
+        theta = 2 * math.pi * TEST_TONE_HZ * v.prescale / if_hz
+        amp = dev / (2 * math.pi * TEST_TONE_HZ)
+        if v.order == "linear":
+            sig_curv = (amp * theta ** 2 / 2) ** 2 * LINEAR_SHAPE_VAR / 2
+        else:
+            sig_curv = (amp * theta ** 4 / 24) ** 2 * CUBIC_SHAPE_VAR / 2
+        sig_curv *= max(1.0, grid_hz / ((2.0 / 3.0) * if_hz / v.prescale))
     tone = np.array([TEST_TONE_HZ])
     s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(TEST_TONE_HZ / out_hz, n, r) / 10) \
         * float(_post_gain2(post_sos, tone, out_hz)[0])
     lsb = full_scale_hz / 32768.0
     n_out = lsb ** 2 / 12.0 * (band_hz - BAND_LOW_HZ) / (out_hz / 2)
-    n_timer = _band_noise(sig_timer, grid_hz, out_hz, r, n, band_hz, post_sos)
-    n_curv = _band_noise(sig_curv, grid_hz, out_hz, r, n, band_hz, post_sos)
+    parts = [_band_noise(s2, grid_hz, out_hz, r, n, band_hz, post_sos) if s2 else 0.0
+             for s2 in (sig_quant, sig_curv, sig_jit)]
 
     def db(noise):
         return 10 * math.log10(s_pow / noise) if noise > 0 else float("inf")
 
-    return Prediction(db(n_timer + n_curv + n_out), db(n_timer), db(n_curv), db(n_out))
+    return Prediction(db(sum(parts) + n_out), db(parts[0]), db(parts[1]), db(parts[2]), db(n_out))
+
+
+def doubt(v: Variant, *, if_hz: float, full_scale_hz: float, grid_hz: float, pred: Prediction) -> str | None:
+    """Why the white-noise prediction may be far off for this option, or None."""
+    if v.front == "stamp" and grid_hz > if_hz / v.prescale:
+        return ("the grid is faster than the stamps, so grid errors are correlated and the tone's "
+                "harmonics in the interpolation error are not modelled")
+    if v.front == "count" and TEST_LEVEL * full_scale_hz < grid_hz / 2:
+        return ("the test deviation is under half the grid rate, so the count error can form tones "
+                "(IF and grid nearly commensurate) instead of white noise")
+    if min(pred.curvature_sinad_db, pred.quant_sinad_db) < 40 and pred.curvature_sinad_db < pred.quant_sinad_db:
+        return "the interpolation residual is large (few stamps per cycle of the tone): the small-error model is rough"
+    return None
 
 
 @dataclass(frozen=True)
 class Load:
-    per_stamp: int       # cycles for each stamp (ISR share included when there is no DMA)
+    per_edge: int        # cycles per IF edge (the edge or capture ISR; 0 when hardware does it)
+    per_input: int       # cycles per stamp or count processed in the main loop
     per_grid: int        # cycles per grid instant
     per_output: int      # cycles per output sample
     fraction: float      # of the CPU at the spec's clock, at the highest edge rate
+    ram_bytes: int       # state size estimate (the queue included)
 
 
-def timestamp_load(core: Core, *, cpu_hz: float, isr_cycles: int, dma: bool, edge_hz_max: float,
-                   grid_hz: float, out_hz: float, n: int, sections: int) -> Load:
-    """Estimated cycles of the timestamp scheme (figures from the core profile: estimates)."""
-    op = core.op_cycles
-    per_stamp = 10 * op + (0 if dma else isr_cycles + 8 * op)   # unwrap + bracket test (+ ISR queue)
-    per_grid = core.div32_cycles + (14 + 2 * n) * op            # interpolation, clamp, integrators
-    per_output = (4 * n + 12) * op + core.mac64_cycles * (1 + 5 * sections) + 10 * op * sections
-    cycles = edge_hz_max * per_stamp + grid_hz * per_grid + out_hz * per_output
-    return Load(per_stamp, per_grid, per_output, cycles / cpu_hz)
+def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
+         sections: int, queue_len: int) -> Load:
+    """Estimated cycles (figures from the core profile and target: estimates) and RAM."""
+    op, isr = tgt.op_cycles, tgt.isr_cycles
+    stamp_rate = edge_hz_max / v.prescale
+    per_output = (4 * n + 12) * op + tgt.mac64_cycles * (1 + 5 * sections) + 10 * op * sections
+    if v.front == "stamp":
+        per_input = (14 if v.order == "cubic" else 10) * op           # unwrap + bracket test
+        if v.order == "cubic":
+            per_grid = 2 * tgt.div32_cycles + 2 * tgt.mac64_cycles + (30 + 2 * n) * op
+        else:
+            per_grid = tgt.div32_cycles + (14 + 2 * n) * op             # interpolation, clamp, integrators
+        if v.scheme == "interrupt":
+            per_edge = isr + 12 * op                                     # read timer, queue the stamp
+        else:
+            per_edge = 0 if tgt.capture_dma else isr + 8 * op            # queue the stamp
+        cycles = stamp_rate * (per_edge + per_input) + grid_hz * per_grid
+        in_bytes = 2 if tgt.timer_bits == 16 else 4
+    else:
+        per_input = (8 + 2 * n) * op                                     # difference, gap run, integrators
+        per_grid = 0 if (v.scheme == "counter" and tgt.counter_dma) else isr + 6 * op   # tick ISR queues
+        per_edge = isr + 3 * op if v.scheme == "interrupt" else 0        # the edge ISR counts
+        cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
+        in_bytes = 2 if tgt.counter_bits == 16 else 4
+    cycles += out_hz * per_output
+    ram = 4 * (10 + 2 * n) + 16 * sections + queue_len * in_bytes + (8 if v.order == "cubic" else 0)
+    return Load(per_edge, per_input, per_grid, per_output, cycles / tgt.cpu_hz, ram)

@@ -84,6 +84,26 @@ def capture(times: np.ndarray, timer_hz: float, timer_bits: int, offset_ticks: i
     return (ticks & ((1 << timer_bits) - 1)).astype(dtype)
 
 
+def software_stamps(times: np.ndarray, timer_hz: float, timer_bits: int, cpu_hz: float, latency_cycles: int,
+                    jitter_cycles: int, rng: np.random.Generator, offset_ticks: int = 0) -> np.ndarray:
+    """What an edge interrupt reads from a free-running timer: the edge time plus the interrupt
+    latency, a fixed part and a part uniform over [0, jitter_cycles] CPU cycles, then quantised and
+    wrapped like a capture. The stamps stay in order (a later edge cannot be read earlier)."""
+    late = (latency_cycles + rng.uniform(0, jitter_cycles, size=times.shape)) / cpu_hz
+    return capture(np.maximum.accumulate(times + late), timer_hz, timer_bits, offset_ticks)
+
+
+def counts_at(times: np.ndarray, grid_hz: float, duration_s: float, counter_bits: int,
+              offset: int = 0, start_s: float = 0.0) -> np.ndarray:
+    """What an IF-clocked counter reads at each grid instant start_s + k / grid_hz: the number of
+    edges before that instant plus the counter's start value, wrapped to counter_bits."""
+    k = np.arange(int(np.floor((duration_s - start_s) * grid_hz)) + 1)
+    grid = start_s + k / grid_hz
+    n = np.searchsorted(times, grid, side="left").astype(np.int64) + int(offset)
+    dtype = np.uint16 if counter_bits == 16 else np.uint32
+    return (n & ((1 << counter_bits) - 1)).astype(dtype)
+
+
 def test_tone(if_hz: float, full_scale_hz: float, level: float, tone_hz: float,
               rng: np.random.Generator) -> FmSignal:
     """A single tone at ``level`` of full-scale deviation with random start and modulation phase."""

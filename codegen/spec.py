@@ -14,7 +14,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .cores import CORES
+from .cores import CORES, HW_DIV32_CYCLES, HW_MAC64_CYCLES
 
 C_KEYWORDS = frozenset(
     """auto break case char const continue default do double else enum extern float for goto if
@@ -52,13 +52,36 @@ class Output:
 
 @dataclass(frozen=True)
 class Target:
+    """The MCU. Fields left out of the file take the core profile's value (edgetally.cores)."""
+
     core: str
     cpu_hz: float
     timer_hz: int
     timer_bits: int = 32
+    counter_bits: int = 16             # width of the IF-clocked counter (counter scheme)
+    has_capture: bool = True
+    has_edge_irq: bool = True
+    has_counter: bool = True
+    capture_prescalers: tuple[int, ...] = (1,)
     capture_dma: bool = False
-    isr_cycles: int = 0  # left out of the file: the core profile's figure
+    counter_dma: bool = False          # DMA can copy the counter at every grid tick
+    hw_divide: bool = False
+    mul64: bool = False
+    isr_cycles: int = 0
+    irq_jitter_cycles: int = 0         # peak-to-peak spread of the edge-interrupt latency
     cpu_budget: float = 0.5
+
+    @property
+    def div32_cycles(self) -> int:
+        return HW_DIV32_CYCLES if self.hw_divide else CORES[self.core].soft_div32_cycles
+
+    @property
+    def mac64_cycles(self) -> int:
+        return HW_MAC64_CYCLES if self.mul64 else CORES[self.core].soft_mac64_cycles
+
+    @property
+    def op_cycles(self) -> int:
+        return CORES[self.core].op_cycles
 
 
 @dataclass(frozen=True)
@@ -80,7 +103,9 @@ class Spec:
 _SECTIONS = {
     "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us"},
     "output": {"rate_hz", "format", "full_scale_hz"},
-    "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "capture_dma", "isr_cycles", "cpu_budget"},
+    "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "counter_bits", "has_capture", "has_edge_irq",
+               "has_counter", "capture_prescalers", "capture_dma", "counter_dma", "hw_divide", "mul64",
+               "isr_cycles", "irq_jitter_cycles", "cpu_budget"},
 }
 _TOP = {"name"} | set(_SECTIONS)
 
@@ -116,6 +141,24 @@ def _integer(tbl: dict, sec: str, key: str, *, default=None, choices=None, minim
     if minimum is not None and v < minimum:
         raise SpecError(fname, v, f"must be at least {minimum}")
     return v
+
+
+def _flag(tbl: dict, key: str, default: bool) -> bool:
+    v = tbl.get(key, default)
+    if not isinstance(v, bool):
+        raise SpecError(f"target.{key}", v, "must be true or false")
+    return v
+
+
+PRESCALERS = (1, 2, 4, 8)
+
+
+def _prescalers(tbl: dict, default: tuple[int, ...]) -> tuple[int, ...]:
+    v = tbl.get("capture_prescalers", list(default))
+    if (not isinstance(v, list) or not v
+            or any(isinstance(k, bool) or k not in PRESCALERS for k in v) or len(set(v)) != len(v)):
+        raise SpecError("target.capture_prescalers", v, "must be a list of distinct values from 1, 2, 4, 8")
+    return tuple(sorted(v))
 
 
 def _check_keys(tbl: dict, where: str, allowed: set[str]) -> None:
@@ -178,16 +221,23 @@ def parse_spec(raw: dict) -> Spec:
     core = t.get("core")
     if core not in CORES:
         raise SpecError("target.core", core, "must be one of " + ", ".join(sorted(CORES)))
-    dma = t.get("capture_dma", False)
-    if not isinstance(dma, bool):
-        raise SpecError("target.capture_dma", dma, "must be true or false")
+    prof = CORES[core]
     tgt = Target(
         core=core,
         cpu_hz=_number(t, "target", "cpu_hz"),
         timer_hz=_integer(t, "target", "timer_hz", minimum=1),
         timer_bits=_integer(t, "target", "timer_bits", default=32, choices=(16, 32)),
-        capture_dma=dma,
-        isr_cycles=_integer(t, "target", "isr_cycles", default=CORES[core].isr_cycles, minimum=0),
+        counter_bits=_integer(t, "target", "counter_bits", default=16, choices=(16, 32)),
+        has_capture=_flag(t, "has_capture", prof.has_capture),
+        has_edge_irq=_flag(t, "has_edge_irq", prof.has_edge_irq),
+        has_counter=_flag(t, "has_counter", prof.has_counter),
+        capture_prescalers=_prescalers(t, prof.capture_prescalers),
+        capture_dma=_flag(t, "capture_dma", False),
+        counter_dma=_flag(t, "counter_dma", False),
+        hw_divide=_flag(t, "hw_divide", prof.hw_divide),
+        mul64=_flag(t, "mul64", prof.mul64),
+        isr_cycles=_integer(t, "target", "isr_cycles", default=prof.isr_cycles, minimum=0),
+        irq_jitter_cycles=_integer(t, "target", "irq_jitter_cycles", default=prof.irq_jitter_cycles, minimum=0),
         cpu_budget=_number(t, "target", "cpu_budget", default=0.5),
     )
     if tgt.cpu_budget > 1:
@@ -225,12 +275,15 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
     if ticks < 4:
         raise SpecError("target.timer_hz", tgt.timer_hz,
                         f"cannot resolve the IF: {ticks:.2f} ticks per cycle at {f0 + df:g} Hz, need at least 4")
-    if tgt.timer_bits == 16:
+    if tgt.timer_bits == 16 and tgt.has_capture and not tgt.has_counter and not tgt.has_edge_irq:
         longest = tgt.timer_hz / (f0 - df)
         if longest >= 65536:
             raise SpecError("target.timer_bits", 16,
                             f"16-bit stamps would wrap more than once between two edges ({longest:.0f} ticks "
                             "at the lowest frequency); use 32 or a slower timer clock")
+    if not (tgt.has_capture or tgt.has_edge_irq or tgt.has_counter):
+        raise SpecError("target.has_capture", False,
+                        "the part must see the IF somehow: set has_capture, has_edge_irq or has_counter")
     if tgt.timer_hz % out.rate_hz:
         raise SpecError("output.rate_hz", out.rate_hz,
                         f"must divide target.timer_hz ({tgt.timer_hz}) exactly, so the sample grid locks to the timer")

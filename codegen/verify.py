@@ -26,9 +26,10 @@ DEFAULT_SEED = 20261202
 class VerifyResult:
     name: str
     scheme: str
+    variant: str
     seconds: float
     seed: int
-    edges: int
+    inputs: int
     bit_exact: bool
     samples: int
     mismatches: int
@@ -37,10 +38,11 @@ class VerifyResult:
     sinad_db: float
     float_sinad_db: float
     predicted_sinad_db: float
-    predicted_timer_sinad_db: float
+    predicted_quant_sinad_db: float
     predicted_curvature_sinad_db: float
+    predicted_jitter_sinad_db: float
     implementation_loss_db: float
-    timer_gap_db: float        # how far the float reference falls short of the timer-only prediction
+    quant_gap_db: float        # how far the float reference falls short of the quantisation-only prediction
     gaps: int
     clamps: int
     c_seconds: float
@@ -51,25 +53,59 @@ class VerifyResult:
         return asdict(self)
 
 
-def make_stamps(design: Design, seconds: float, seed: int, cnr_db: float | None = None) -> np.ndarray:
-    """Capture stamps of the standard test tone, LEAD_S + seconds long."""
+def variant_of(design: Design) -> schemes.Variant:
+    fr = design.front
+    return schemes.Variant(design.scheme, fr.kind, fr.prescale, getattr(fr, "order", "linear"))
+
+
+def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None = None,
+                sig: signals.FmSignal | None = None) -> np.ndarray:
+    """What the design's hardware delivers for LEAD_S + seconds of the standard test tone (or of
+    ``sig``): capture inputs_, software inputs_ from an edge interrupt, or counts per grid instant."""
     rng = np.random.default_rng(seed)
-    sig = signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
-    times = signals.edge_times(sig, LEAD_S + seconds)
+    if sig is None:
+        sig = signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+    duration = LEAD_S + seconds
+    times = signals.edge_times(sig, duration)
     if cnr_db is not None:
         times = signals.add_jitter(times, sig, cnr_db, rng)
-    times = times[:: design.front.prescale]
-    offset = int(rng.integers(0, 1 << design.front.timer_bits))
-    return signals.capture(times, design.rates.timer_hz, design.front.timer_bits, offset)
+    fr, b = design.front, design.budget
+    if fr.kind == "count":
+        offset = 0 if design.scheme == "interrupt" else int(rng.integers(0, 1 << fr.counter_bits))
+        return signals.counts_at(times, design.rates.grid_hz, duration, fr.counter_bits, offset)
+    offset = int(rng.integers(0, 1 << fr.timer_bits))
+    if design.scheme == "interrupt":
+        return signals.software_stamps(times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2,
+                                       b.irq_jitter_cycles, rng, offset)
+    return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, offset)
 
 
 def predict(design: Design) -> schemes.Prediction:
     """The planner's prediction for this design's rates and filters."""
-    return schemes.predict_timestamp(
-        if_hz=design.if_hz, full_scale_hz=design.full_scale_hz, timer_hz=design.rates.timer_hz,
+    return schemes.predict(
+        variant_of(design), if_hz=design.if_hz, full_scale_hz=design.full_scale_hz, timer_hz=design.rates.timer_hz,
+        cpu_hz=design.budget.cpu_hz, irq_jitter_cycles=design.budget.irq_jitter_cycles,
         grid_hz=design.rates.grid_hz, out_hz=design.rates.out_hz, r=design.cic.ratio, n=design.cic.order,
-        band_hz=design.audio_hz, prescale=design.front.prescale,
-        post_sos=[np.array(f.float_sos) for f in design.filters])
+        band_hz=design.audio_hz, post_sos=[np.array(f.float_sos) for f in design.filters])
+
+
+def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_SEED) -> dict[tuple[str, str], float]:
+    """SINAD of the float reference of every feasible option row of a plan, from a short
+    simulation: the refinement of the planner's formulas that ``plan --simulate`` shows."""
+    from .build import design as make_design
+    from .planner import plan
+
+    out = {}
+    for o in plan_obj.options:
+        if not o.feasible:
+            continue
+        d = make_design(spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio))
+        inputs = make_inputs(d, seconds, seed)
+        ref = reference.run(d, inputs)
+        skip = int(round(LEAD_S * d.rates.out_hz))
+        out[(o.scheme, o.variant)] = round(metrics.sinad_db(ref[skip:], d.rates.out_hz, schemes.TEST_TONE_HZ,
+                                                            schemes.BAND_LOW_HZ, d.audio_hz), 2)
+    return out
 
 
 def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_db: float | None = None,
@@ -79,18 +115,18 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     if not seconds > 0:
         raise ValueError("seconds must be positive")
     say("simulating the FM test signal")
-    stamps = make_stamps(design, seconds, seed, cnr_db)
+    inputs_ = make_inputs(design, seconds, seed, cnr_db)
     say("compiling the emitted C (strict flags)")
     host = hostbuild.build(design)
-    say(f"running the C on {stamps.size} stamps")
+    say(f"running the C on {inputs_.size} inputs")
     t0 = time.perf_counter()
-    c_out, counters = host.process(stamps)
+    c_out, counters = host.process(inputs_)
     t1 = time.perf_counter()
     say("running the integer model")
-    m = model.run(design, stamps)
+    m = model.run(design, inputs_)
     t2 = time.perf_counter()
     say("running the floating-point reference")
-    ref = reference.run(design, stamps)
+    ref = reference.run(design, inputs_)
 
     n = min(c_out.size, m.out.size)
     diff = np.flatnonzero(c_out[:n] != m.out[:n])
@@ -104,9 +140,10 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     fixed = metrics.sinad_db(c_out[skip:], fs, schemes.TEST_TONE_HZ, *band)
     flt = metrics.sinad_db(ref[skip:ref.size], fs, schemes.TEST_TONE_HZ, *band)
     pred = predict(design)
+    fr = design.front
     widths = {
-        "timer_bits": design.front.timer_bits,
-        "phase_fraction_bits": design.front.phase_shift,
+        "input_bits": fr.timer_bits if fr.kind == "stamp" else fr.counter_bits,
+        "step_fraction_bits": fr.phase_shift if fr.kind == "stamp" else fr.step_shift,
         "cic_in_bits": design.cic.in_bits,
         "cic_register_bits": design.cic.width,
         "data_bits": design.scale.data_bits,
@@ -115,13 +152,14 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
         "output_bits": 16,
     }
     return VerifyResult(
-        name=design.name, scheme=design.scheme, seconds=seconds, seed=seed, edges=int(stamps.size),
+        name=design.name, scheme=design.scheme, variant=design.budget.variant, seconds=seconds, seed=seed, inputs=int(inputs_.size),
         bit_exact=(mismatches == 0 and counters_match), samples=int(n), mismatches=mismatches,
         first_mismatch=first, counters_match=counters_match,
         sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),
-        predicted_timer_sinad_db=round(pred.timer_sinad_db, 2),
+        predicted_quant_sinad_db=round(pred.quant_sinad_db, 2),
         predicted_curvature_sinad_db=round(pred.curvature_sinad_db, 2),
+        predicted_jitter_sinad_db=round(pred.jitter_sinad_db, 2),
         implementation_loss_db=round(flt - fixed, 2) + 0.0,
-        timer_gap_db=round(pred.timer_sinad_db - flt, 2) + 0.0, gaps=m.gaps, clamps=m.clamps,
+        quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0, gaps=m.gaps, clamps=m.clamps,
         c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=widths,
     )

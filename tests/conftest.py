@@ -3,12 +3,31 @@ from pathlib import Path
 import pytest
 
 import edgetally
+from edgetally.planner import SCHEMES
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 EXAMPLE_FILES = sorted(EXAMPLES.glob("*.toml"))
 
 
+def _all_designs():
+    """Every example with its chosen scheme ("auto") and with every scheme forced that is feasible
+    on it, by id "<example>:<scheme>"."""
+    out = {}
+    for p in EXAMPLE_FILES:
+        spec = edgetally.load_spec(p)
+        out[f"{p.stem}:auto"] = edgetally.design(spec)
+        for scheme in SCHEMES:
+            try:
+                out[f"{p.stem}:{scheme}"] = edgetally.design(spec, scheme=scheme)
+            except edgetally.SpecError:
+                pass
+    return out
+
+
+ALL_DESIGNS = _all_designs()
+
+
 @pytest.fixture(scope="session")
 def designs():
-    """Every bundled example's Design, by file stem."""
-    return {p.stem: edgetally.design(edgetally.load_spec(p)) for p in EXAMPLE_FILES}
+    """Every bundled example's chosen Design, by file stem."""
+    return {k.split(":")[0]: d for k, d in ALL_DESIGNS.items() if k.endswith(":auto")}

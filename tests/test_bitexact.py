@@ -4,16 +4,24 @@ import numpy as np
 import pytest
 
 from edgetally import hostbuild, model, signals
-from edgetally.verify import make_stamps, verify
+from edgetally.verify import make_inputs, verify
 
-from conftest import EXAMPLE_FILES
+from conftest import ALL_DESIGNS, EXAMPLE_FILES
 
 NAMES = [p.stem for p in EXAMPLE_FILES]
+IDS = sorted(ALL_DESIGNS)                      # every example x (chosen, and each feasible scheme)
+STAMP_IDS = [k for k in IDS if ALL_DESIGNS[k].front.kind == "stamp"]
+COUNT_IDS = [k for k in IDS if ALL_DESIGNS[k].front.kind == "count"]
 
 
 @pytest.fixture(scope="module")
-def hosts(designs):
-    return {k: hostbuild.build(d) for k, d in designs.items()}
+def hosts():
+    return {k: hostbuild.build(d) for k, d in ALL_DESIGNS.items()}
+
+
+def test_every_scheme_is_exercised():
+    """Issue acceptance: each scheme is forced on at least one example."""
+    assert {ALL_DESIGNS[k].scheme for k in IDS} == {"timestamp", "interrupt", "counter"}
 
 
 @pytest.mark.parametrize("name", NAMES)
@@ -27,42 +35,55 @@ def test_verify_acceptance(designs, name):
     assert res.implementation_loss_db <= 0.5
     if name == "campus_fm":
         assert res.float_sinad_db >= 60.0
-    # The planner's honesty: DESIGN.md gives the white-quantiser formulas as +-2 dB for generic
-    # ratios and +-4 dB near small-integer IF/grid ratios (orchard's 24 kHz / 16 kHz is 3/2); the
-    # curvature term is our own derivation. 3 dB is the bound the planner promises users.
-    assert abs(res.predicted_sinad_db - res.float_sinad_db) <= 3.0
+    if name == "orchard_link":
+        # Issue 3: the narrowband timestamp design comes within 3 dB of its own quantisation
+        # prediction (the cubic estimator removes the linear interpolation floor).
+        assert res.quant_gap_db <= 3.0
 
 
-@pytest.mark.parametrize("name", NAMES)
-@pytest.mark.parametrize("block,cap", [(1, 1), (7, 3), (997, 64), (1 << 16, 4096)])
-def test_blocking_does_not_change_output(designs, hosts, name, block, cap):
-    """Output is independent of how stamps are split into blocks and of the output capacity."""
-    d = designs[name]
-    stamps = make_stamps(d, 0.2, seed=11)
-    want = model.run(d, stamps)
-    got, counters = hosts[name].process(stamps, block=block, out_cap=cap)
+@pytest.mark.parametrize("key", IDS)
+def test_every_scheme_bit_exact(hosts, key):
+    """Half a second of the standard test through every design: equal on every sample."""
+    d = ALL_DESIGNS[key]
+    inputs = make_inputs(d, 0.5, seed=4)
+    want = model.run(d, inputs)
+    got, counters = hosts[key].process(inputs)
+    assert got.size == want.out.size >= 0.5 * d.rates.out_hz
     np.testing.assert_array_equal(got, want.out)
     assert counters["gaps"] == want.gaps and counters["clamps"] == want.clamps
 
 
-@pytest.mark.parametrize("name", NAMES)
-def test_isr_queue_path(designs, hosts, name):
-    """capture_isr + service give the same samples as the block function, with no overrun when
-    the service keeps up (every quarter queue)."""
-    d = designs[name]
-    stamps = make_stamps(d, 0.05, seed=5)
-    want = model.run(d, stamps).out
-    got = hosts[name].process_isr(stamps, service_every=max(1, d.queue_len // 4), out_cap=5)
+@pytest.mark.parametrize("key", IDS)
+@pytest.mark.parametrize("block,cap", [(1, 1), (7, 3), (997, 64), (1 << 16, 4096)])
+def test_blocking_does_not_change_output(hosts, key, block, cap):
+    """Output is independent of how inputs are split into blocks and of the output capacity."""
+    d = ALL_DESIGNS[key]
+    inputs = make_inputs(d, 0.05, seed=11)
+    want = model.run(d, inputs)
+    got, counters = hosts[key].process(inputs, block=block, out_cap=cap)
+    np.testing.assert_array_equal(got, want.out)
+    assert counters["gaps"] == want.gaps and counters["clamps"] == want.clamps
+
+
+@pytest.mark.parametrize("key", IDS)
+def test_isr_queue_path(hosts, key):
+    """The scheme's ISR functions + service give the same samples as the block function, with no
+    overrun when the service keeps up (every quarter queue)."""
+    d = ALL_DESIGNS[key]
+    inputs = make_inputs(d, 0.02, seed=5)
+    want = model.run(d, inputs).out
+    got, counters = hosts[key].process_isr(inputs, service_every=max(1, d.queue_len // 4), out_cap=5)
     np.testing.assert_array_equal(got, want)
+    assert counters["overruns"] == 0
 
 
-@pytest.mark.parametrize("name", NAMES)
-def test_hostile_streams_stay_bit_exact(designs, hosts, name):
+@pytest.mark.parametrize("key", STAMP_IDS)
+def test_hostile_streams_stay_bit_exact(hosts, key):
     """Gaps (carrier lost), glitch bursts and random stamps: the C and the model still agree on
     every sample and on the gap and clamp counts (no claim about audio quality here)."""
-    d = designs[name]
+    d = ALL_DESIGNS[key]
     rng = np.random.default_rng(3)
-    good = make_stamps(d, 0.05, seed=9).astype(np.int64)
+    good = make_inputs(d, 0.05, seed=9).astype(np.int64)
     mask = (1 << d.front.timer_bits) - 1
     gap = good[-1] + 10 * d.front.gap_ticks + np.arange(50) * (d.rates.timer_hz // int(d.if_hz))
     burst = gap[-1] + np.cumsum(rng.integers(1, 4, size=300))
@@ -73,18 +94,37 @@ def test_hostile_streams_stay_bit_exact(designs, hosts, name):
         # the model's contract: consecutive stamps less than 2**31 ticks apart once unwrapped
         stream = np.concatenate([good, gap, burst, tail]) & mask
     want = model.run(d, stream)
-    got, counters = hosts[name].process(stream, block=64, out_cap=16)
+    got, counters = hosts[key].process(stream, block=64, out_cap=16)
     np.testing.assert_array_equal(got, want.out)
     assert counters["gaps"] == want.gaps > 0
     assert counters["clamps"] == want.clamps
 
 
-def test_noisy_signal_bit_exact(designs, hosts):
+@pytest.mark.parametrize("key", COUNT_IDS)
+def test_hostile_counts_stay_bit_exact(hosts, key):
+    """Counts that stop (carrier lost), jump (glitch bursts) or are random: C and model agree."""
+    d = ALL_DESIGNS[key]
+    rng = np.random.default_rng(8)
+    mask = (1 << d.front.counter_bits) - 1
+    good = make_inputs(d, 0.02, seed=9).astype(np.int64)
+    stall = np.full(5 * d.front.gap_run, good[-1])
+    jumps = stall[-1] + np.cumsum(rng.integers(0, 4 * d.front.diff_limit + 2, size=500))
+    noise = rng.integers(0, mask + 1, size=500)
+    stream = np.concatenate([good, stall, jumps, noise]) & mask
+    want = model.run(d, stream)
+    got, counters = hosts[key].process(stream, block=33, out_cap=7)
+    np.testing.assert_array_equal(got, want.out)
+    assert counters["gaps"] == want.gaps > 0
+    assert counters["clamps"] == want.clamps > 0
+
+
+@pytest.mark.parametrize("key", IDS)
+def test_noisy_signal_bit_exact(hosts, key):
     """Edge jitter from IF noise at 20 dB CNR: still equal sample for sample."""
-    d = designs["campus_fm"]
-    stamps = make_stamps(d, 0.1, seed=2, cnr_db=20.0)
-    want = model.run(d, stamps)
-    got, _ = hosts["campus_fm"].process(stamps)
+    d = ALL_DESIGNS[key]
+    inputs = make_inputs(d, 0.05, seed=2, cnr_db=20.0)
+    want = model.run(d, inputs)
+    got, _ = hosts[key].process(inputs)
     np.testing.assert_array_equal(got, want.out)
 
 
@@ -98,5 +138,5 @@ def test_16bit_wrap_alignment(designs, hosts):
     ref = model.run(d, signals.capture(t, d.rates.timer_hz, 16, 0)).out
     for off in (1, 4095, 32767, 65535 - 3000, 65535):
         stamps = signals.capture(t, d.rates.timer_hz, 16, off)
-        got, _ = hosts["orchard_link"].process(stamps)
+        got, _ = hosts["orchard_link:auto"].process(stamps)
         np.testing.assert_array_equal(got, ref)

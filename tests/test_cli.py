@@ -147,7 +147,9 @@ def test_plan_json_is_one_object(runs):
     assert isinstance(obj["options"], list) and obj["options"]
     # The grid is the output rate times the CIC ratio (orchard: 8000 Hz output).
     assert obj["grid_hz"] == 8000 * obj["ratio"]
-    assert sum(o["ratio"] == obj["ratio"] for o in obj["options"]) == 1
+    kept = [o for o in obj["options"] if o["kept"]]
+    assert len(kept) == 1
+    assert (kept[0]["scheme"], kept[0]["variant"], kept[0]["ratio"]) == (obj["scheme"], obj["variant"], obj["ratio"])
 
 
 def test_plan_text_marks_one_choice(runs):
@@ -161,8 +163,8 @@ def test_plan_text_marks_one_choice(runs):
 def test_plan_text_and_json_agree(runs):
     obj = json.loads(runs["plan-json"].stdout)
     chosen = next(ln for ln in runs["plan-text"].stdout.splitlines() if "CHOSEN" in ln)
-    scheme, ratio, grid = chosen.split()[:3]
-    assert (scheme, int(ratio), int(grid)) == (obj["scheme"], obj["ratio"], obj["grid_hz"])
+    scheme, variant, ratio, grid = chosen.split()[:4]
+    assert (scheme, variant, int(ratio), int(grid)) == (obj["scheme"], obj["variant"], obj["ratio"], obj["grid_hz"])
 
 
 # --- verify -------------------------------------------------------------------------------------

@@ -31,8 +31,12 @@ def test_emit_is_deterministic(path):
 def test_word_lengths_cannot_overflow(path):
     d = edgetally.design(edgetally.load_spec(path))
     fr, c, sc = d.front, d.cic, d.scale
-    # The phase fraction: (g - t_prev) < D <= gap_ticks, shifted by phase_shift, fits 32 bits.
-    assert fr.gap_ticks << fr.phase_shift < 1 << 32
+    if fr.kind == "stamp":
+        # The phase fraction: (g - t_prev) < D <= gap_ticks, shifted by phase_shift, fits 32 bits.
+        assert fr.gap_ticks << fr.phase_shift < 1 << 32
+    else:
+        # The count step: any counter difference, clamped to diff_limit, shifted, fits 32 bits.
+        assert fr.diff_limit << fr.step_shift == fr.x_limit < 1 << 32
     # Hogenauer 1981: registers of Bin + ceil(N log2 R) bits make wrap-around harmless; one spare
     # bit keeps the (positive) CIC output below 2**31 so it reads correctly as int32.
     assert fr.x_limit < 1 << (c.in_bits - 1)
@@ -54,7 +58,8 @@ def test_scale_maps_full_scale_deviation(path):
     """Centre and gain: the IF maps to 0, IF + full-scale deviation to 2**data_bits (to the
     precision of the 24-bit multiplier: relative error below 2**-22)."""
     d = edgetally.design(edgetally.load_spec(path))
-    unit = d.rates.grid_hz / (2 ** d.front.phase_shift * d.cic.ratio ** d.cic.order)   # Hz per CIC LSB
+    shift = d.front.phase_shift if d.front.kind == "stamp" else d.front.step_shift
+    unit = d.rates.grid_hz * d.front.prescale / (2 ** shift * d.cic.ratio ** d.cic.order)   # Hz per CIC LSB
     assert abs(d.scale.centre * unit - d.if_hz) <= unit
     u = d.full_scale_hz / unit * d.scale.mult / 2 ** d.scale.shift
     assert math.isclose(u, 2 ** d.scale.data_bits, rel_tol=2 ** -22)

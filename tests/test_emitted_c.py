@@ -8,7 +8,7 @@ import subprocess
 import pytest
 
 import edgetally
-from edgetally.emit import emit
+from edgetally.emit import api, emit
 from edgetally.hostbuild import STRICT_FLAGS
 
 from conftest import EXAMPLE_FILES
@@ -52,12 +52,25 @@ def test_integer_only_and_no_heap(emitted):
         assert re.search(r"#include <(math|stdlib|stdio)\.h>", code) is None, name
 
 
-def test_no_division_in_the_capture_isr(emitted):
+def _body(src, name):
+    """The body of C function ``name`` (one-line or multi-line), comments removed."""
+    m = re.search(r"\b%s\([^)]*\)\s*\{" % name, src)
+    depth, i = 1, m.end()
+    while depth:
+        depth += {"{": 1, "}": -1}.get(src[i], 0)
+        i += 1
+    return re.sub(r"/\*.*?\*/", "", src[m.end():i - 1], flags=re.S)
+
+
+def test_no_division_in_the_isrs(emitted):
+    """The functions an interrupt calls, and the queue they share, neither divide nor multiply."""
     d, _, files = emitted
     src = files[f"{d.name}.c"]
-    func = re.search(r"void %s_capture_isr\(.*?\n\}" % d.name, src, flags=re.S).group(0)
-    body = re.sub(r"/\*.*?\*/", "", func.split("{", 1)[1], flags=re.S)
-    assert "/" not in body and "*" not in body      # no division, no multiplication per edge
+    isrs = [f.proto.split("(")[0].split()[-1] for f in api(d) if "_isr(" in f.proto]
+    assert isrs
+    for name in isrs + [f"{d.name}_queue"]:
+        body = _body(src, name)
+        assert "/" not in body and "*" not in body.replace("*s", ""), name
 
 
 def test_names_carry_the_prefix(emitted):
@@ -74,5 +87,7 @@ def test_header_documents_events_and_banner(emitted):
     hdr = files[f"{d.name}.h"]
     assert f"edgetally {d.tool_version}" in hdr and d.spec_hash in hdr
     assert "Which hardware event calls what" in hdr
-    assert f"{d.name}_capture_isr" in hdr and f"{d.name}_process" in hdr
+    for f in api(d):
+        assert f.proto + ";" in hdr                          # every public function, documented
+    assert f"{d.name}_process" in hdr and "_isr(" in hdr
     assert not re.search(r"\b20\d\d-\d\d-\d\d\b", hdr)      # no timestamps: output is reproducible

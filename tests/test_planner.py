@@ -1,0 +1,165 @@
+"""The planner: honest predictions, the selection rule, CPU arithmetic, and refusals."""
+
+import dataclasses
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+import edgetally
+from edgetally import metrics, reference, schemes, signals
+from edgetally.planner import TIE_DB, plan
+from edgetally.schemes import Variant
+from edgetally.verify import LEAD_S, make_inputs, predict
+
+from conftest import ALL_DESIGNS, EXAMPLE_FILES, EXAMPLES
+
+SEEDS = (1, 2, 3, 4)
+
+
+def _float_sinad_avg(design, seconds=0.3):
+    """Float-reference SINAD with the noise power averaged over SEEDS (random start phase and
+    modulation phase each): the white-noise formulas predict an expected power, while one run of a
+    periodic test tone gives one draw of a deterministic pattern (seen: +-3 dB for a counter)."""
+    noise = []
+    for seed in SEEDS:
+        ref = reference.run(design, make_inputs(design, seconds, seed))
+        skip = int(round(LEAD_S * design.rates.out_hz))
+        sinad = metrics.sinad_db(ref[skip:], design.rates.out_hz, schemes.TEST_TONE_HZ, schemes.BAND_LOW_HZ,
+                                 design.audio_hz)
+        noise.append(10 ** (-sinad / 10))
+    return -10 * np.log10(np.mean(noise))
+
+
+def _spec_of(key):
+    return edgetally.load_spec(EXAMPLES / f"{key.split(':')[0]}.toml")
+
+
+@pytest.mark.parametrize("key", sorted(ALL_DESIGNS))
+def test_prediction_within_3db_or_flagged(key):
+    """Issue acceptance: for every example and every feasible scheme, predicted_sinad_db is within
+    3 dB of the measured float SINAD, or the plan says why not. DESIGN.md gives the
+    white-quantiser formulas as +-2 dB for generic ratios and +-4 dB near small-integer ratios;
+    3 dB is the bound the planner promises."""
+    d = ALL_DESIGNS[key]
+    scheme = None if key.endswith(":auto") else key.split(":")[1]
+    pl = plan(_spec_of(key), scheme=scheme)
+    chosen = next(o for o in pl.options if o.kept)
+    measured = _float_sinad_avg(d)
+    if chosen.doubtful:
+        assert any("may be off by several dB" in n for n in pl.notes)
+    else:
+        assert abs(predict(d).sinad_db - measured) <= 3.0, (predict(d).sinad_db, measured)
+
+
+def test_counter_noise_matches_first_order_delta_sigma():
+    """The count front's frequency error against the first-order delta-sigma result: in-band noise
+    N_B = (2 pi^2 / 9) B^3 / fs Hz^2 for a counter read at fs (Beards & Copeland, IEEE TCAS-II
+    41(1), 1994; Schreier & Temes 2005, ch. 2), within 3 dB, on non-commensurate ratios (IF and
+    grid rates below share no small factor; the deviation spreads the error over many grid
+    periods). Measured before the CIC: error of the count steps against the exact mean frequency
+    over each grid period, from the simulator's phase."""
+    fs, band = 512_000.0, 2500.0
+    noise = []
+    for seed in SEEDS:
+        rng = np.random.default_rng(seed)
+        sig = signals.test_tone(1_471_303.0, 500_000.0, 0.7, 1000.0, rng)
+        times = signals.edge_times(sig, 0.25)
+        counts = signals.counts_at(times, fs, 0.25, 32).astype(np.int64)
+        k = np.arange(counts.size)
+        ideal = sig.phase(k / fs)                                        # exact phase at each read
+        err_hz = (np.diff(counts) - np.diff(ideal)) * fs                  # step error in Hz
+        noise.append(metrics.band_power(err_hz, fs, schemes.BAND_LOW_HZ, band))
+    formula = 2 * np.pi ** 2 / 9 * (band ** 3 - schemes.BAND_LOW_HZ ** 3) / fs
+    assert abs(10 * np.log10(np.mean(noise) / formula)) <= 3.0
+
+
+def test_cpu_load_by_hand():
+    """The load arithmetic on a hand-computed case: timestamp, prescaler 1, linear, no DMA, on the
+    cortex-m0plus profile (ISR 31, software divide 90, software 32x32->64 MAC 30, 2 cycles an op),
+    N = 3, two IIR sections, 30 kHz edges, 16 kHz grid, 8 kHz output, 48 MHz."""
+    spec = edgetally.load_spec(EXAMPLES / "orchard_link.toml")
+    ld = schemes.load(Variant("timestamp", "stamp", 1, "linear"), spec.target, edge_hz_max=30_000,
+                      grid_hz=16_000, out_hz=8_000, n=3, sections=2, queue_len=16)
+    per_edge = 31 + 8 * 2                     # ISR entry/exit + queueing
+    per_input = 10 * 2                        # unwrap and bracket test
+    per_grid = 90 + (14 + 2 * 3) * 2          # one division + interpolation, clamp, integrators
+    per_output = (4 * 3 + 12) * 2 + 30 * (1 + 5 * 2) + 10 * 2 * 2
+    assert (ld.per_edge, ld.per_input, ld.per_grid, ld.per_output) == (per_edge, per_input, per_grid, per_output)
+    cycles = 30_000 * (per_edge + per_input) + 16_000 * per_grid + 8_000 * per_output
+    assert ld.fraction == pytest.approx(cycles / 48e6, rel=1e-12)
+    assert ld.ram_bytes == 4 * (10 + 6) + 16 * 2 + 16 * 2   # state words, IIR state, 16-bit queue
+
+
+def test_capture_dma_and_prescaler_cut_the_edge_load():
+    spec = edgetally.load_spec(EXAMPLES / "orchard_link.toml")
+    kw = dict(edge_hz_max=30_000, grid_hz=16_000, out_hz=8_000, n=3, sections=2, queue_len=16)
+    isr = schemes.load(Variant("timestamp", "stamp", 1), spec.target, **kw)
+    dma = schemes.load(Variant("timestamp", "stamp", 1), dataclasses.replace(spec.target, capture_dma=True), **kw)
+    k4 = schemes.load(Variant("timestamp", "stamp", 4), spec.target, **kw)
+    assert dma.per_edge == 0 and dma.fraction < isr.fraction
+    # a prescaler of 4 takes a quarter of the stamps: the per-stamp cycles fall by 3/4
+    saved = 30_000 * (isr.per_edge + isr.per_input) * 3 / 4 / 48e6
+    assert isr.fraction - k4.fraction == pytest.approx(saved, rel=1e-12)
+
+
+@pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
+def test_selection_rule(path):
+    """The chosen option has the best predicted SINAD among the trusted feasible options, up to the
+    tie margin; no cheaper trusted option predicts better."""
+    pl = plan(edgetally.load_spec(path))
+    chosen = next(o for o in pl.options if o.kept)
+    assert chosen.feasible and chosen.load <= edgetally.load_spec(path).target.cpu_budget
+    trusted = [o for o in pl.options if o.feasible and not o.doubtful]
+    if not chosen.doubtful:
+        for o in trusted:
+            assert o.predicted_sinad_db <= chosen.predicted_sinad_db + TIE_DB
+            if o.load < chosen.load:
+                assert o.predicted_sinad_db <= chosen.predicted_sinad_db
+    else:
+        assert not trusted
+
+
+def test_examples_choose_their_hardware():
+    got = {p.stem: plan(edgetally.load_spec(p)).scheme for p in EXAMPLE_FILES}
+    assert got["bench_counter"] == "counter"        # only an external-clock counter on that pin
+    assert got["tiny_irq"] == "interrupt"           # only a pin interrupt on that pin
+    assert got["orchard_link"] == got["campus_fm"] == "timestamp"
+
+
+def _cli(*args):
+    return subprocess.run([sys.executable, "-m", "edgetally", *args], capture_output=True, text=True)
+
+
+def test_forced_infeasible_interrupt_is_refused_with_the_load(tmp_path):
+    """An interrupt design that exceeds the budget: exit 2, one line with the load it would need."""
+    text = (EXAMPLES / "campus_fm.toml").read_text().replace("cpu_budget = 0.5", "cpu_budget = 0.1")
+    spec = tmp_path / "busy.toml"
+    spec.write_text(text)
+    r = _cli("plan", str(spec), "--scheme", "interrupt")
+    assert r.returncode == 2, r.stderr
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "--scheme" in lines[0] and "exceeds the budget 10%" in lines[0]
+    assert "CPU load" in lines[0] and "%" in lines[0].split("CPU load")[1]
+
+
+def test_forced_scheme_without_hardware_is_refused():
+    r = _cli("plan", str(EXAMPLES / "bench_counter.toml"), "--scheme", "timestamp")
+    assert r.returncode == 2
+    assert "has_capture" in r.stderr and r.stderr.count("\n") == 1
+
+
+@pytest.mark.parametrize("scheme", ["timestamp", "interrupt", "counter"])
+def test_cli_scheme_flag(tmp_path, scheme):
+    """--scheme reaches plan, emit and verify alike."""
+    path = EXAMPLES / "campus_fm.toml"
+    r = _cli("plan", str(path), "--scheme", scheme, "--json")
+    assert r.returncode == 0 and json.loads(r.stdout)["scheme"] == scheme
+    r = _cli("emit", str(path), "--scheme", scheme, "-o", str(tmp_path))
+    assert r.returncode == 0
+    assert f"scheme '{scheme}'" in (tmp_path / "campus.h").read_text()
+    r = _cli("verify", str(path), "--scheme", scheme, "--seconds", "0.2", "--json")
+    res = json.loads(r.stdout)
+    assert r.returncode == 0 and res["scheme"] == scheme and res["bit_exact"] is True
