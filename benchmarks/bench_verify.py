@@ -15,7 +15,7 @@ from pathlib import Path
 
 import edgetally
 from edgetally import hostbuild, model
-from edgetally.verify import make_stamps, verify
+from edgetally.verify import make_inputs, verify
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 
@@ -36,17 +36,18 @@ def main() -> None:
     args = ap.parse_args()
     print(f"edgetally {edgetally.__version__}, Python {platform.python_version()}, {platform.machine()}, "
           f"best of {args.repeat}")
-    print(f"{'example':<14} {'stamps':>8} {'verify s':>9} {'C edges/s':>12} {'model edges/s':>14} {'C/model':>8}")
+    print(f"{'example':<14} {'scheme':<10} {'inputs':>8} {'verify s':>9} {'C inputs/s':>12} {'model inputs/s':>15} "
+          f"{'C/model':>8}")
     for path in sorted(EXAMPLES.glob("*.toml")):
         d = edgetally.design(edgetally.load_spec(path))
         hostbuild.build(d)                       # compile once; verify's own figure reuses the cache
-        stamps = make_stamps(d, args.seconds, seed=1)
+        stamps = make_inputs(d, args.seconds, seed=1)
         host = hostbuild.build(d)
         t_verify = best_of(args.repeat, lambda: verify(d, seconds=args.seconds))
         t_c = best_of(args.repeat, lambda: host.process(stamps))
         t_m = best_of(args.repeat, lambda: model.run(d, stamps))
-        print(f"{path.stem:<14} {stamps.size:>8} {t_verify:>9.3f} {stamps.size / t_c:>12.3g} "
-              f"{stamps.size / t_m:>14.3g} {t_m / t_c:>8.1f}")
+        print(f"{path.stem:<14} {d.scheme:<10} {stamps.size:>8} {t_verify:>9.3f} {stamps.size / t_c:>12.3g} "
+              f"{stamps.size / t_m:>15.3g} {t_m / t_c:>8.1f}")
 
 
 if __name__ == "__main__":

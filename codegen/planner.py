@@ -235,6 +235,7 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
         else:
             reason = "dropped: " + o.reason
         rows.append(dataclasses.replace(o, kept=shown is chosen, reason=reason, feasible=best is not None))
+    rows = _collapse_missing_hardware(rows)
     notes = list(spec.warnings)
     droop = cic.droop_db(sig.audio_hz, out.rate_hz, CIC_ORDER, chosen.option.ratio)
     notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB (no compensation yet)")
@@ -252,6 +253,19 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
     return Plan(scheme=chosen.variant.scheme, variant=chosen.variant.label, front=chosen.front,
                 ratio=chosen.option.ratio, order=CIC_ORDER, grid_hz=chosen.option.grid_hz, cic_in_bits=chosen.in_bits,
                 queue_len=chosen.queue_len, load=chosen.load, prediction=pr, options=tuple(rows), notes=tuple(notes))
+
+
+def _collapse_missing_hardware(rows: list[Option]) -> list[Option]:
+    """One row, not one per variant, for a scheme whose hardware the part lacks."""
+    out, seen = [], set()
+    for o in rows:
+        if o.reason.startswith("dropped: the part"):
+            if o.scheme in seen:
+                continue
+            seen.add(o.scheme)
+            o = dataclasses.replace(o, variant="-")
+        out.append(o)
+    return out
 
 
 def _refusal(spec: Spec, scheme: str | None, per_variant) -> SpecError:
