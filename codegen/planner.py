@@ -170,6 +170,8 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
                              cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles, grid_hz=grid_hz,
                              out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=post_sos)
         reason = impossible or why
+        if reason is None:
+            reason = _rate_limit(spec, v, ld, grid_hz)
         if reason is None and ld.fraction > tgt.cpu_budget:
             reason = f"CPU load {ld.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}"
         doubtful = schemes.doubt(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, grid_hz=grid_hz, pred=pr) is not None
@@ -178,6 +180,25 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
                      doubtful=doubtful)
         cands.append(_Cand(v, opt, words[0] if words else None, words[1] if words else 0, ld, pr, qlen))
     return cands
+
+
+DMA_CYCLES_PER_TRANSFER = 4   # estimate: one peripheral-to-memory transfer every 4 CPU cycles at most
+
+
+def _rate_limit(spec: Spec, v: Variant, ld: schemes.Load, grid_hz: int) -> str | None:
+    """Hard rate limits: an ISR must finish before its next event (or the capture register or the
+    count is overwritten), and DMA moves at most one word per DMA_CYCLES_PER_TRANSFER cycles."""
+    sig, tgt = spec.signal, spec.target
+    edge_max = sig.if_hz + sig.deviation_hz
+    event_hz = edge_max / v.prescale if v.front == "stamp" else edge_max
+    if ld.per_edge and ld.per_edge > tgt.cpu_hz / event_hz:
+        return (f"the edge ISR ({ld.per_edge} cycles) outlasts the shortest interval between edges "
+                f"({tgt.cpu_hz / event_hz:.0f} cycles)")
+    dma_hz = (edge_max / v.prescale if v.front == "stamp" and tgt.capture_dma
+              else grid_hz if v.scheme == "counter" and tgt.counter_dma else 0.0)
+    if dma_hz * DMA_CYCLES_PER_TRANSFER > tgt.cpu_hz:
+        return f"DMA would need {dma_hz:.0f} transfers a second, more than one per {DMA_CYCLES_PER_TRANSFER} cycles"
+    return None
 
 
 def _choose(cands: list[_Cand]) -> _Cand | None:

@@ -8,7 +8,9 @@ Schemes and the front end each uses (DESIGN.md section 4):
   grid-timer ISR samples the count ("count" front). Variant "stamp": the ISR also reads a
   free-running timer, whose latency jitter adds to the timer's resolution ("stamp" front).
 - ``counter``: a timer clocked by the IF counts edges in hardware, read at every grid tick by DMA
-  or a tick ISR ("count" front); the free-running count is the CIC's first integrator.
+  or a tick ISR ("count" front). The free-running count is in effect the CIC's first integrator;
+  the front end differences it anyway (one subtraction per grid instant) to check for a lost
+  carrier and for glitches before the CIC integrates again.
 
 Noise model (white-quantiser, see DESIGN.md section 4): the phase at each grid instant carries a
 white error of variance sigma^2 (cycles^2). Differencing turns it into a frequency error with the

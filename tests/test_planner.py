@@ -163,3 +163,18 @@ def test_cli_scheme_flag(tmp_path, scheme):
     r = _cli("verify", str(path), "--scheme", scheme, "--seconds", "0.2", "--json")
     res = json.loads(r.stdout)
     assert r.returncode == 0 and res["scheme"] == scheme and res["bit_exact"] is True
+
+
+def test_edge_isr_must_finish_before_the_next_edge(tmp_path):
+    """A hard rate limit, whatever the average budget: on a 16 MHz part with edges up to 500 kHz
+    there are 16e6 / 500e3 = 32 cycles between edges; the counting edge ISR alone takes
+    31 + 3 x 2 = 37 (the cortex-m0plus profile), so the interrupt scheme is refused with that
+    reason even with the whole CPU granted."""
+    spec = edgetally.parse_spec({
+        "name": "fast", "signal": {"if_hz": 400_000, "deviation_hz": 100_000, "audio_hz": 3000},
+        "output": {"rate_hz": 8000},
+        "target": {"core": "cortex-m0plus", "cpu_hz": 16_000_000, "timer_hz": 16_000_000, "timer_bits": 16,
+                   "has_capture": False, "has_counter": False, "cpu_budget": 1.0}})
+    with pytest.raises(edgetally.SpecError) as err:
+        plan(spec, scheme="interrupt")
+    assert "outlasts the shortest interval between edges (32 cycles)" in str(err.value)
