@@ -51,6 +51,14 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
     p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
 
+    p = sub.add_parser("widths", help="show the word-length table and overflow margins, or check your own widths")
+    _add_scheme_args(p)
+    p.add_argument("--set", action="append", default=[], metavar="filters.KEY=VALUE",
+                   help="override a word length: filters.arith, data_bits, coef_bits, coef_width, acc_bits, scaling "
+                        "(repeatable)")
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
+    p.add_argument("--no-simulate", action="store_true", help="skip the simulation (bit-exact check and measured loss)")
+
     p = sub.add_parser("verify", help="compile the C, compare it bit for bit with the model, measure quality")
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
@@ -197,10 +205,40 @@ def cmd_verify(args) -> int:
     return EXIT_OK if res.bit_exact else EXIT_FAIL
 
 
+def cmd_widths(args) -> int:
+    spec = load_spec(args.spec)
+    _warn(spec)
+    from .widths import check_widths, parse_sets
+
+    rep = check_widths(spec, scheme=args.scheme, overrides=parse_sets(args.set), simulate=not args.no_simulate)
+    if args.json:
+        print(json.dumps(_json_safe(rep.to_dict()), indent=2))
+    else:
+        over = ", ".join(f"{k}={v}" for k, v in rep.overrides.items()) or "none"
+        print(f"edgetally widths for '{rep.name}': {rep.arith} arithmetic, overrides: {over}")
+        print()
+        print(f"{'register':<16} {'bits':>4} {'worst |value|':>22} {'margin':>7}  note")
+        for r in rep.registers:
+            flag = "  <-- FAILS" if r["margin_bits"] < 0 else ""
+            print(f"{r['name']:<16} {r['bits']:>4} {r['bound']:>22} {r['margin_bits']:>7.2f}  {r['note']}{flag}")
+        print()
+        print(f"predicted implementation loss {rep.predicted_loss_db:.3f} dB; response error {rep.response_error_db:.4f} dB "
+              f"(coefficients need {rep.coef_bits_needed} fraction bits for the tolerance)")
+        for c in rep.limit_cycles:
+            print(f"zero-input limit cycle, {c['section']}: {c['dead_band_lsb']:g} LSB (Jackson's estimate "
+                  f"{c['jackson_lsb']:g} LSB), " + ("no idle tone" if c["dead_band_lsb"] == 0 else
+                                                     f"idle tone {c['below_noise_db']:g} dB below the noise floor"))
+        if rep.simulated_loss_db is not None:
+            print(f"simulated: implementation loss {rep.simulated_loss_db:.2f} dB, emitted C "
+                  f"{'bit-exact' if rep.bit_exact else 'DIFFERS from the model'}")
+        print("OK: safe and within the targets" if rep.ok else "FAIL:\n  " + "\n  ".join(rep.failures))
+    return EXIT_OK if rep.ok else EXIT_FAIL
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = _parser()
     args = ap.parse_args(argv)
-    handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify}[args.command]
+    handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify, "widths": cmd_widths}[args.command]
     try:
         return handler(args)
     except SpecError as e:

@@ -31,6 +31,7 @@ class Core:
     # costs of what the core lacks, done in software
     soft_div32_cycles: int
     soft_mac64_cycles: int
+    mul32_cycles: int          # one 16x16 -> 32 (or 32x32 -> 32) multiply
     op_cycles: int             # one plain 32-bit ALU step with its load/store share
 
 
@@ -43,6 +44,7 @@ CORES = {
         irq_jitter_cycles=4,    # estimate: waiting for the longest multi-cycle instruction to finish
         soft_div32_cycles=90,   # estimate: a run-time library division loop
         soft_mac64_cycles=30,   # estimate: 32x32->64 from 16x16 partial products
+        mul32_cycles=1,         # architecture manual, from memory: MULS is 1 cycle with the fast multiplier
         op_cycles=2,            # estimate
     ),
     "cortex-m4": Core(
@@ -52,6 +54,7 @@ CORES = {
         isr_cycles=24,          # architecture manual, from memory: 12 entry + 12 exit (tail-chaining aside)
         irq_jitter_cycles=12,   # estimate: a divide or load-multiple in progress delays entry
         soft_div32_cycles=90, soft_mac64_cycles=30,
+        mul32_cycles=1,         # architecture manual, from memory: MUL is single-cycle
         op_cycles=1,            # estimate
     ),
     "generic-8bit": Core(
@@ -62,6 +65,7 @@ CORES = {
         irq_jitter_cycles=4,    # estimate: instructions take 1 to 4 cycles
         soft_div32_cycles=600,  # estimate: 32-bit division on an 8-bit ALU
         soft_mac64_cycles=250,  # estimate: 32x32->64 from 8x8 partial products
+        mul32_cycles=40,        # estimate: 16x16->32 from four 8x8 hardware multiplies and adds
         op_cycles=8,            # estimate: a 32-bit op is four 8-bit ops plus loads
     ),
 }

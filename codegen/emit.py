@@ -35,10 +35,10 @@ def api(design: Design) -> list[Function]:
     st, inp = f"{p}_state_t *s", f"{p}_input_t"
     fns = [
         Function(f"void {p}_init({st})", "Reset the state; the grid starts with the first inputs after this."),
-        Function(f"size_t {p}_process({st}, const {inp} *in, size_t n, int16_t *out, size_t cap, size_t *produced)",
+        Function(f"size_t {p}_process({st}, const {inp} *in, size_t n, {p}_sample_t *out, size_t cap, size_t *produced)",
                  "Process n inputs (oldest first); at most cap samples to out, their number to *produced; "
                  "returns the inputs consumed (fewer than n when out filled up: call again with the rest)."),
-        Function(f"size_t {p}_service({st}, int16_t *out, size_t cap)",
+        Function(f"size_t {p}_service({st}, {p}_sample_t *out, size_t cap)",
                  "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
     ]
     if design.scheme == "timestamp":
@@ -55,6 +55,10 @@ def api(design: Design) -> list[Function]:
                             "Grid timer interrupt: queue the IF-clocked counter's value."))
     fns += [
         Function(f"bool {p}_carrier_present(const {st})", "True while edges arrive at a plausible rate."),
+        Function(f"int32_t {p}_offset(const {st})",
+                 "The tuning offset: DC of the frequency estimate, in the units the header gives."),
+        Function(f"uint32_t {p}_saturation_count(const {st})", "Internal data nodes that saturated so far."),
+        Function(f"uint32_t {p}_clip_count(const {st})", "Output samples clipped to the output range so far."),
         Function(f"uint32_t {p}_gap_count(const {st})", "Grid instants with no carrier so far."),
         Function(f"uint32_t {p}_clamp_count(const {st})", "Grid steps clamped to the legal range so far."),
         Function(f"uint32_t {p}_overrun_count(const {st})", "Inputs lost because the queue was full."),
@@ -96,7 +100,11 @@ def emit(design: Design) -> dict[str, str]:
     inp = input_type(design)
     ctx = dict(
         d=design, fr=design.front, p=p, P=p.upper(), banner=banner(design), api=api(design),
-        nsec=sum(len(f.sections) for f in design.filters),
+        nsec=len(design.filters.sections),
+        data_type="int16_t" if design.filters.data_bits == 16 else "int32_t",
+        coef_type="int16_t" if design.filters.coef_width == 16 else "int32_t",
+        coef_macro="INT16_C" if design.filters.coef_width == 16 else "INT32_C",
+        offset_hz_per_lsb=f"{design.full_scale_hz / 2 ** design.scale.q:.6g}",
         input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
         fixedpoint=c_definitions(p, _operations(design)),
     )

@@ -42,7 +42,8 @@ def cache_root() -> Path:
 
 def _cdef(design: Design) -> str:
     p = design.name
-    lines = [f"typedef {input_type(design)} {p}_input_t;", f"typedef struct {{ ...; }} {p}_state_t;"]
+    lines = [f"typedef {input_type(design)} {p}_input_t;", f"typedef {design.output.ctype} {p}_sample_t;",
+             f"typedef struct {{ ...; }} {p}_state_t;"]
     lines += [f.proto + ";" for f in api(design)]
     return "\n".join(lines) + "\n"
 
@@ -75,9 +76,15 @@ class HostDemod:
         self._fn("init")(st)
         return st
 
+    @property
+    def sample_dtype(self):
+        return np.int16 if self.design.output.ctype == "int16_t" else np.uint16
+
     def counters(self, st) -> dict:
         return {"gaps": int(self._fn("gap_count")(st)), "clamps": int(self._fn("clamp_count")(st)),
-                "overruns": int(self._fn("overrun_count")(st)), "carrier": bool(self._fn("carrier_present")(st))}
+                "overruns": int(self._fn("overrun_count")(st)), "carrier": bool(self._fn("carrier_present")(st)),
+                "saturations": int(self._fn("saturation_count")(st)), "clips": int(self._fn("clip_count")(st)),
+                "offset": int(self._fn("offset")(st))}
 
     def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024) -> tuple[np.ndarray, dict]:
         """Feed the inputs (stamps or counts) in blocks of ``block`` through <name>_process,
@@ -86,8 +93,8 @@ class HostDemod:
         st = self.new_state()
         proc = self._fn("process")
         inputs = np.ascontiguousarray(inputs, dtype=self.input_dtype)
-        out = np.empty(out_cap, dtype=np.int16)
-        out_ptr = ffi.cast("int16_t *", ffi.from_buffer(out))
+        out = np.empty(out_cap, dtype=self.sample_dtype)
+        out_ptr = ffi.cast(f"{self.design.name}_sample_t *", ffi.from_buffer(out))
         produced = ffi.new("size_t *")
         chunks = []
         ctype = f"{self.design.name}_input_t *"
@@ -98,7 +105,7 @@ class HostDemod:
             while done < blk.size:
                 done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
                 chunks.append(out[:produced[0]].copy())
-        return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=np.int16)), self.counters(st)
+        return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)
 
     def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64) -> tuple[np.ndarray, dict]:
         """Drive the design's ISR functions as the hardware would, one input at a time (for an
@@ -108,7 +115,7 @@ class HostDemod:
         d = self.design
         st = self.new_state()
         service = self._fn("service")
-        out = self.ffi.new("int16_t[]", out_cap)
+        out = self.ffi.new(f"{d.name}_sample_t[]", out_cap)
         res: list[int] = []
 
         def drain():
@@ -138,7 +145,7 @@ class HostDemod:
                 if k % service_every == 0:
                     drain()
         drain()
-        return np.array(res, dtype=np.int16), self.counters(st)
+        return np.array(res, dtype=self.sample_dtype), self.counters(st)
 
 
 def build(design: Design, workdir: Path | None = None) -> HostDemod:

@@ -71,45 +71,77 @@ class Cic:
 
 @dataclass(frozen=True)
 class Scale:
-    """Centre removal and scaling: u = sat(rshr(wrap_s32(y - centre) * mult, shift), +-limit);
-    full-scale deviation becomes 2**data_bits."""
+    """Centre removal and scaling: u = sat(rshr(wrap_s32(y - centre) * mult, shift), +-limit), in
+    Q(q): full-scale deviation = 2**q. The offset tracker then follows the DC of u (the tuning
+    offset): dc_acc += u - rshr(dc_acc, dc_shift), dc = rshr(dc_acc, dc_shift), a one-pole
+    low-pass with a time constant of 2**dc_shift output samples; the filters get
+    sat(u - dc, +-limit)."""
 
     centre: int
     mult: int
     shift: int
-    data_bits: int
+    q: int
     limit: int
+    dc_shift: int
 
 
 @dataclass(frozen=True)
-class Biquad:
+class Section:
+    """One direct form I section: acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 (Q(coef_bits)),
+    y = sat(rshr(acc, coef_bits), +-limit). The b coefficients carry the change of format from the
+    section's input Q(q_in) to its output Q(q_out) (per-section scaling)."""
+
+    role: str                          # "lowpass" or "deemphasis"
     b0: int
     b1: int
     b2: int
     a1: int
     a2: int
+    q_out: int
+    float_sos: tuple[float, ...]       # the unscaled, unquantised design row, for the reference
 
 
 @dataclass(frozen=True)
-class Iir:
-    """Direct form I sections in Q(coef_bits) with 64-bit accumulators:
-    y = sat(rshr(b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2, coef_bits), +-limit)."""
+class Filters:
+    """The output-rate sections and the word lengths they run with. With acc_bits 32 the five
+    products (each exact in 32 bits) are summed modulo 2**32 and only the final sum must fit, as
+    the certificate proves for any input (two's complement wrap of partial sums is harmless); with
+    acc_bits 64 nothing can wrap."""
 
-    role: str                      # "lowpass" or "deemphasis"
-    coef_bits: int
-    limit: int
-    sections: tuple[Biquad, ...]
-    float_sos: tuple[tuple[float, ...], ...]   # the unquantised design, for the reference
+    data_bits: int                     # 16 or 32: every section input, output and state word
+    coef_bits: int                     # Q format of the coefficients
+    coef_width: int                    # 16 or 32: their storage
+    acc_bits: int                      # 32 or 64
+    scaling: str                       # "l1", "l2" or "linf": the norm that set each q_out
+    limit: int                         # 2**(data_bits - 1) - 1: every node saturates here
+    sections: tuple[Section, ...]
 
 
 @dataclass(frozen=True)
 class OutputFormat:
-    """out = sat(rshr(v, shift), lo, hi)."""
+    """out = sat(rshr(v * lmul, rshift) + mid, lo, hi) (rshr only when rshift > 0); "s16" is signed
+    PCM, "uN" an unsigned N-bit code with mid-scale at 2**(N-1) for a DAC or a PWM compare value.
+    Values outside [lo, hi] are clipped and counted."""
 
     format: str
-    shift: int
+    rshift: int
+    lmul: int
+    mid: int
     lo: int
     hi: int
+    ctype: str                         # "int16_t" or "uint16_t"
+
+
+@dataclass(frozen=True)
+class Register:
+    """One line of the overflow certificate: the worst |value| any input the spec allows can give
+    (inputs are clamped at the front end, so "any edge pattern" is covered), against the width."""
+
+    name: str
+    bits: int
+    bound: int
+    margin_bits: float                 # log2((2**(bits-1) - 1) / bound); >= 0 means it cannot wrap
+    note: str
 
 
 @dataclass(frozen=True)
@@ -148,13 +180,14 @@ class Design:
     front: StampFront | CountFront
     cic: Cic
     scale: Scale
-    filters: tuple[Iir, ...]
+    filters: Filters
     output: OutputFormat
     if_hz: float
     full_scale_hz: float
     audio_hz: float
     queue_len: int         # stamps the capture ISR can queue between two services
     budget: Budget
+    certificate: tuple[Register, ...] = ()
 
     def to_json(self) -> str:
         return json.dumps(dataclasses.asdict(self), indent=2, sort_keys=True)

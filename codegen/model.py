@@ -22,9 +22,11 @@ from .fixedpoint import MASK32, cubic_fraction, ratio_floor, rshr, sat, wrap_s32
 
 @dataclass(frozen=True)
 class ModelRun:
-    out: np.ndarray          # output samples, int16 (or the output format's type)
+    out: np.ndarray          # output samples, int16 or uint16 (the output format's type)
     gaps: int                # grid instants that fell in a gap (carrier lost)
     clamps: int              # phase steps clamped to [0, x_limit]
+    saturations: int         # internal data nodes that saturated
+    clips: int               # output samples clipped to the output range
     steps: np.ndarray        # the phase step per grid instant (CIC input), int64
 
 
@@ -95,24 +97,44 @@ def cic_decimate(design: Design, x: np.ndarray) -> np.ndarray:
     return v[c.order:]
 
 
-def post_chain(design: Design, y: np.ndarray) -> np.ndarray:
-    """Centre removal, scaling, the IIR sections and the output format, one sample at a time."""
-    sc, of = design.scale, design.output
-    u = sat(rshr(wrap_s32(y.astype(np.int64) - sc.centre) * sc.mult, sc.shift), -sc.limit, sc.limit)
-    v = [int(s) for s in u]
-    for flt in design.filters:
-        cb, lim = flt.coef_bits, flt.limit
-        for sec in flt.sections:
-            b0, b1, b2, a1, a2 = sec.b0, sec.b1, sec.b2, sec.a1, sec.a2
-            x1 = x2 = y1 = y2 = 0
-            res = []
-            for xn in v:
-                yn = sat(rshr(b0 * xn + b1 * x1 + b2 * x2 - a1 * y1 - a2 * y2, cb), -lim, lim)
-                x2, x1, y2, y1 = x1, xn, y1, yn
-                res.append(yn)
-            v = res
-    out = sat(rshr(np.array(v, dtype=np.int64), of.shift), of.lo, of.hi)
-    return out.astype(np.int16)
+def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """Centre removal, scaling, the offset tracker, the IIR sections and the output format, one
+    sample at a time. Returns (output samples, saturations at internal nodes, clipped outputs)."""
+    sc, f, of = design.scale, design.filters, design.output
+    lim, cb = f.limit, f.coef_bits
+    raw = rshr(wrap_s32(y.astype(np.int64) - sc.centre) * sc.mult, sc.shift)
+    u_all = sat(raw, -lim, lim)
+    sats = int(np.count_nonzero(u_all != raw))
+    coefs = [(s.b0, s.b1, s.b2, s.a1, s.a2) for s in f.sections]
+    state = [[0, 0, 0, 0] for _ in coefs]
+    narrow_acc = f.acc_bits == 32
+    dc_acc = 0
+    out = np.empty(u_all.size, dtype=np.int64)
+    clips = 0
+    for n, u in enumerate(u_all.tolist()):
+        dc = rshr(dc_acc, sc.dc_shift)
+        dc_acc += u - dc
+        v = u - dc
+        if v > lim or v < -lim:
+            sats += 1
+            v = sat(v, -lim, lim)
+        for (b0, b1, b2, a1, a2), z in zip(coefs, state):
+            acc = b0 * v + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3]
+            if narrow_acc:
+                acc = wrap_s32(acc)
+            yr = rshr(acc, cb)
+            yn = sat(yr, -lim, lim)
+            sats += yn != yr
+            z[1], z[0], z[3], z[2] = z[0], v, z[2], yn
+            v = yn
+        o = v * of.lmul
+        if of.rshift:
+            o = rshr(o, of.rshift)
+        o += of.mid
+        if o < of.lo or o > of.hi:
+            clips += 1
+        out[n] = sat(o, of.lo, of.hi)
+    return out.astype(np.int16 if of.ctype == "int16_t" else np.uint16), sats, clips
 
 
 def front_steps(design: Design, inputs: np.ndarray) -> tuple[np.ndarray, int, int]:
@@ -126,4 +148,5 @@ def run(design: Design, inputs: np.ndarray) -> ModelRun:
     """Everything the emitted C produces for this input sequence (capture stamps, or counts read
     at each grid instant), computed independently."""
     x, gaps, clamps = front_steps(design, inputs)
-    return ModelRun(out=post_chain(design, cic_decimate(design, x)), gaps=gaps, clamps=clamps, steps=x)
+    out, sats, clips = post_chain(design, cic_decimate(design, x))
+    return ModelRun(out=out, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x)

@@ -212,7 +212,6 @@ def _choose(cands: list[_Cand]) -> _Cand | None:
 
 def _best_of_variant(spec: Spec, cands: list[_Cand]) -> _Cand | None:
     feasible = [c for c in cands if c.option.kept]
-    feasible = [c for c in feasible if not c.option.doubtful] or feasible
     if cands and cands[0].variant.front == "stamp":
         stamp_rate = spec.signal.if_hz / cands[0].variant.prescale
         slow = [c for c in feasible if c.option.grid_hz <= stamp_rate]

@@ -56,7 +56,10 @@ def run(design: Design, inputs: np.ndarray) -> np.ndarray:
     taps = cic.taps(c.order, c.ratio).astype(np.float64) / float(c.ratio) ** c.order
     y = signal.lfilter(taps, [1.0], x)[c.ratio - 1::c.ratio][c.order:]
     dev = y * fr.prescale * design.rates.grid_hz - design.if_hz
-    v = dev / design.full_scale_hz
-    for flt in design.filters:
-        v = signal.sosfilt(np.array(flt.float_sos), v)
-    return v * 32768.0
+    u = dev / design.full_scale_hz
+    # the offset tracker: dc[n+1] = dc[n] + (u[n] - dc[n]) / 2**dc_shift, audio u - dc
+    alpha = 2.0 ** -design.scale.dc_shift
+    dc = signal.lfilter([0.0, alpha], [1.0, alpha - 1.0], u)
+    v = signal.sosfilt(np.array([list(s.float_sos) for s in design.filters.sections]), u - dc)
+    bits = 16 if design.output.format == "s16" else int(design.output.format[1:])
+    return v * 2.0 ** (bits - 1) + design.output.mid

@@ -52,6 +52,7 @@ import numpy as np
 from scipy import signal
 
 from . import cic
+from .cores import CORES
 from .spec import Target
 
 TEST_TONE_HZ = 1000.0
@@ -212,12 +213,21 @@ class Load:
     ram_bytes: int       # state size estimate (the queue included)
 
 
+def filter_cycles(tgt: Target, acc_bits: int, sections: int) -> int:
+    """Cycles of the IIR sections per output sample: five products and their sums per section,
+    as 32x32->64 multiply-accumulates (64-bit accumulators) or exact 32-bit products."""
+    mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
+    return sections * (5 * mul + 10 * tgt.op_cycles)
+
+
 def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
          sections: int, queue_len: int) -> Load:
     """Estimated cycles (figures from the core profile and target: estimates) and RAM."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
-    per_output = (4 * n + 12) * op + tgt.mac64_cycles * (1 + 5 * sections) + 10 * op * sections
+    # combs, offset tracker and output format, the scale product, the sections (planned wide;
+    # the designer may then pick a cheaper arithmetic and updates the figure)
+    per_output = (4 * n + 16) * op + tgt.mac64_cycles + filter_cycles(tgt, 64, sections)
     if v.front == "stamp":
         per_input = (14 if v.order == "cubic" else 10) * op           # unwrap + bracket test
         if v.order == "cubic":

@@ -85,11 +85,22 @@ class Target:
 
 
 @dataclass(frozen=True)
+class Fixed:
+    """Word-length targets of the output chain."""
+
+    loss_limit_db: float = 0.5         # largest implementation loss (float SINAD minus fixed SINAD)
+    response_tol_db: float = 0.05      # largest gain error of the quantised filters over the band
+    scaling: str = "l1"                # "l1" (no overflow for any input), "l2" or "linf" (wide only)
+    arith: str = "auto"                # "auto" (cheapest that meets the loss), "narrow" or "wide"
+
+
+@dataclass(frozen=True)
 class Spec:
     name: str
     signal: Signal
     output: Output
     target: Target
+    fixed: Fixed = Fixed()
     warnings: tuple[str, ...] = field(default=(), compare=False)
 
     def to_dict(self) -> dict:
@@ -103,6 +114,7 @@ class Spec:
 _SECTIONS = {
     "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us"},
     "output": {"rate_hz", "format", "full_scale_hz"},
+    "fixed": {"loss_limit_db", "response_tol_db", "scaling", "arith"},
     "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "counter_bits", "has_capture", "has_edge_irq",
                "has_counter", "capture_prescalers", "capture_dma", "counter_dma", "hw_divide", "mul64",
                "isr_cycles", "irq_jitter_cycles", "cpu_budget"},
@@ -210,8 +222,9 @@ def parse_spec(raw: dict) -> Spec:
     )
     o = _section(raw, "output")
     fmt = o.get("format", "s16")
-    if fmt != "s16":
-        raise SpecError("output.format", fmt, 'must be "s16" (signed 16-bit PCM)')
+    if not isinstance(fmt, str) or not re.fullmatch(r"s16|u([89]|1[0-6])", fmt):
+        raise SpecError("output.format", fmt, 'must be "s16" (signed 16-bit PCM) or "u8" .. "u16" '
+                                              "(unsigned code with mid-scale offset)")
     out = Output(
         rate_hz=_integer(o, "output", "rate_hz", minimum=1),
         format=fmt,
@@ -243,8 +256,29 @@ def parse_spec(raw: dict) -> Spec:
     if tgt.cpu_budget > 1:
         raise SpecError("target.cpu_budget", tgt.cpu_budget, "must be a fraction in (0, 1]")
 
+    fx = _fixed(raw)
     _physics(sig, out, tgt, warnings)
-    return Spec(name=name, signal=sig, output=out, target=tgt, warnings=tuple(warnings))
+    return Spec(name=name, signal=sig, output=out, target=tgt, fixed=fx, warnings=tuple(warnings))
+
+
+def _fixed(raw: dict) -> Fixed:
+    f = raw.get("fixed", {})
+    if not isinstance(f, dict):
+        raise SpecError("fixed", f, "must be a table [fixed]")
+    _check_keys(f, "fixed", _SECTIONS["fixed"])
+    choices = {"scaling": ("l1", "l2", "linf"), "arith": ("auto", "narrow", "wide")}
+    for key, allowed in choices.items():
+        if key in f and f[key] not in allowed:
+            raise SpecError(f"fixed.{key}", f[key], "must be one of " + ", ".join(f'"{a}"' for a in allowed))
+    fx = Fixed(
+        loss_limit_db=_number(f, "fixed", "loss_limit_db", default=0.5),
+        response_tol_db=_number(f, "fixed", "response_tol_db", default=0.05),
+        scaling=f.get("scaling", "l1"),
+        arith=f.get("arith", "auto"),
+    )
+    if fx.scaling != "l1" and fx.arith == "narrow":
+        raise SpecError("fixed.scaling", fx.scaling, 'the narrow arithmetic has 32-bit accumulators and needs "l1"')
+    return fx
 
 
 def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None:

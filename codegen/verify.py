@@ -45,6 +45,9 @@ class VerifyResult:
     quant_gap_db: float        # how far the float reference falls short of the quantisation-only prediction
     gaps: int
     clamps: int
+    saturations: int
+    clips: int
+    offset_hz: float           # the offset output at the end, in Hz
     c_seconds: float
     model_seconds: float
     widths: dict
@@ -86,7 +89,7 @@ def predict(design: Design) -> schemes.Prediction:
         variant_of(design), if_hz=design.if_hz, full_scale_hz=design.full_scale_hz, timer_hz=design.rates.timer_hz,
         cpu_hz=design.budget.cpu_hz, irq_jitter_cycles=design.budget.irq_jitter_cycles,
         grid_hz=design.rates.grid_hz, out_hz=design.rates.out_hz, r=design.cic.ratio, n=design.cic.order,
-        band_hz=design.audio_hz, post_sos=[np.array(f.float_sos) for f in design.filters])
+        band_hz=design.audio_hz, post_sos=[np.array([list(s.float_sos) for s in design.filters.sections])])
 
 
 def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_SEED) -> dict[tuple[str, str], float]:
@@ -132,7 +135,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     diff = np.flatnonzero(c_out[:n] != m.out[:n])
     mismatches = int(diff.size) + abs(c_out.size - m.out.size)
     first = int(diff[0]) if diff.size else (n if c_out.size != m.out.size else None)
-    counters_match = counters["gaps"] == m.gaps and counters["clamps"] == m.clamps
+    counters_match = all(counters[k] == getattr(m, k) for k in ("gaps", "clamps", "saturations", "clips"))
 
     fs = design.rates.out_hz
     skip = int(round(LEAD_S * fs))
@@ -140,16 +143,20 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     fixed = metrics.sinad_db(c_out[skip:], fs, schemes.TEST_TONE_HZ, *band)
     flt = metrics.sinad_db(ref[skip:ref.size], fs, schemes.TEST_TONE_HZ, *band)
     pred = predict(design)
-    fr = design.front
+    fr, f = design.front, design.filters
     widths = {
         "input_bits": fr.timer_bits if fr.kind == "stamp" else fr.counter_bits,
         "step_fraction_bits": fr.phase_shift if fr.kind == "stamp" else fr.step_shift,
         "cic_in_bits": design.cic.in_bits,
         "cic_register_bits": design.cic.width,
-        "data_bits": design.scale.data_bits,
-        "coef_bits": sorted({f.coef_bits for f in design.filters}),
-        "accumulator_bits": 64,
-        "output_bits": 16,
+        "data_bits": f.data_bits,
+        "coef_bits": f.coef_bits,
+        "coef_width": f.coef_width,
+        "accumulator_bits": f.acc_bits,
+        "scaling": f.scaling,
+        "section_q": [s.q_out for s in f.sections],
+        "output": design.output.format,
+        "min_margin_bits": min(r.margin_bits for r in design.certificate),
     }
     return VerifyResult(
         name=design.name, scheme=design.scheme, variant=design.budget.variant, seconds=seconds, seed=seed, inputs=int(inputs_.size),
@@ -161,5 +168,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
         predicted_jitter_sinad_db=round(pred.jitter_sinad_db, 2),
         implementation_loss_db=round(flt - fixed, 2) + 0.0,
         quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0, gaps=m.gaps, clamps=m.clamps,
+        saturations=m.saturations, clips=m.clips,
+        offset_hz=round(counters["offset"] * design.full_scale_hz / 2 ** design.scale.q, 3),
         c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=widths,
     )

@@ -86,7 +86,9 @@ def test_cpu_load_by_hand():
     per_edge = 31 + 8 * 2                     # ISR entry/exit + queueing
     per_input = 10 * 2                        # unwrap and bracket test
     per_grid = 90 + (14 + 2 * 3) * 2          # one division + interpolation, clamp, integrators
-    per_output = (4 * 3 + 12) * 2 + 30 * (1 + 5 * 2) + 10 * 2 * 2
+    # combs, offset tracker and output (4N + 16 ops), the scale product (one 64-bit MAC), and two
+    # sections of five 64-bit MACs and 10 ops each (planned wide)
+    per_output = (4 * 3 + 16) * 2 + 30 + 2 * (5 * 30 + 10 * 2)
     assert (ld.per_edge, ld.per_input, ld.per_grid, ld.per_output) == (per_edge, per_input, per_grid, per_output)
     cycles = 30_000 * (per_edge + per_input) + 16_000 * per_grid + 8_000 * per_output
     assert ld.fraction == pytest.approx(cycles / 48e6, rel=1e-12)

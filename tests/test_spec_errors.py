@@ -128,7 +128,7 @@ CASES = [
     Case("unknown-core", "target.core", "abacus-9", {"target.core": "abacus-9"}),
     Case("cpu-budget-above-one", "target.cpu_budget", "1.5", {"target.cpu_budget": 1.5}),
     Case("cpu-budget-zero", "target.cpu_budget", "0", {"target.cpu_budget": 0}),
-    Case("format-u8", "output.format", "u8", {"output.format": "u8"}),
+    Case("format-u17", "output.format", "u17", {"output.format": "u17"}),
     Case("rate-does-not-divide-timer", "output.rate_hz", "44100", {"output.rate_hz": 44100}),
     # 10 us puts the corner at 15.9 kHz, above half of the 8 kHz output rate.
     Case("deemphasis-corner-above-half-rate", "signal.deemphasis_us", "10", {"signal.deemphasis_us": 10}),

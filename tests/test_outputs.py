@@ -1,0 +1,58 @@
+"""Output formats and the offset output."""
+
+import math
+
+import numpy as np
+import pytest
+
+import edgetally
+from edgetally import hostbuild, model, signals
+from edgetally.verify import make_inputs, verify
+
+from conftest import EXAMPLES
+
+
+def _spec(path, **changes):
+    import tomllib
+
+    raw = tomllib.loads((EXAMPLES / path).read_text())
+    for dotted, value in changes.items():
+        sec, key = dotted.split("__")
+        raw[sec][key] = value
+    return edgetally.parse_spec(raw)
+
+
+@pytest.mark.parametrize("fmt,bits", [("u12", 12), ("u8", 8), ("u16", 16)])
+def test_unsigned_codes_sit_at_mid_scale(fmt, bits):
+    """An unsigned N-bit code for a DAC or PWM compare value: mid-scale 2**(N-1) at the IF centre,
+    full-scale deviation spans the code range, bit-exact C."""
+    d = edgetally.design(_spec("orchard_link.toml", output__format=fmt))
+    assert (d.output.lo, d.output.hi, d.output.mid) == (0, (1 << bits) - 1, 1 << (bits - 1))
+    res = verify(d, seconds=0.3)
+    assert res.bit_exact
+    out = model.run(d, make_inputs(d, 0.3, seed=1)).out.astype(np.int64)
+    settled = out[len(out) // 3:]
+    assert abs(np.mean(settled) - (1 << (bits - 1))) < 0.01 * (1 << bits)     # centred: no DC
+    # 70 % deviation tone: peak near 0.7 of half the code range (CIC droop at 1 kHz aside, 1 dB)
+    peak = np.max(np.abs(settled - (1 << (bits - 1))))
+    assert 0.7 * 10 ** (-1 / 20) * (1 << (bits - 1)) <= peak <= 0.7 * (1 << (bits - 1)) * 1.02 + 1
+
+
+def test_offset_output_reads_the_tuning_error_and_the_audio_has_no_dc():
+    """An IF 3 kHz above the nominal centre: the offset output reads +3 kHz (within the ripple the
+    one-pole tracker leaves from the 1 kHz tone: deviation x corner / tone frequency), and the
+    audio carries no DC."""
+    d = edgetally.design(edgetally.load_spec(EXAMPLES / "campus_fm.toml"))
+    tone = signals.Tone(1000.0, 0.7 * d.full_scale_hz, 0.3)
+    sig = signals.FmSignal(d.if_hz + 3000.0, (tone,), 0.25)
+    inputs = make_inputs(d, 0.6, seed=5, sig=sig)
+    host = hostbuild.build(d)
+    out, counters = host.process(inputs)
+    want = model.run(d, inputs)
+    np.testing.assert_array_equal(out, want.out)
+    hz = counters["offset"] * d.full_scale_hz / 2 ** d.scale.q
+    corner = d.rates.out_hz / (2 * math.pi * 2 ** d.scale.dc_shift)
+    ripple = tone.deviation_hz * corner / tone.freq_hz
+    assert abs(hz - 3000.0) <= 1.2 * ripple + 10
+    tail = out[-int(0.2 * d.rates.out_hz):].astype(float)
+    assert abs(np.mean(tail)) < 0.002 * 32768           # 3 kHz would be 4 % of full scale as DC
