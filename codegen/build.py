@@ -11,7 +11,7 @@ import math
 from dataclasses import dataclass
 from fractions import Fraction
 
-from . import __version__, fixed, iir, schemes
+from . import __version__, cic, fixed, iir, schemes
 from .ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale
 from .planner import REG_BITS, Plan, plan
 from .spec import Spec, SpecError
@@ -59,7 +59,7 @@ def _bound_rel(spec: Spec, p: Plan) -> float:
 
 def _filters(spec: Spec, p: Plan, a: fixed.Arith, scaling: str, coef_bits: int | None) -> tuple[Filters, int]:
     sig, out = spec.signal, spec.output
-    pairs = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz)
+    pairs = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz, droop=_droop(spec, p))
     rows = [list(map(float, r)) for _, sos in pairs for r in sos]
     roles = [role for role, sos in pairs for _ in sos]
     lim = fixed.limit_of(a.data_bits)
@@ -69,6 +69,14 @@ def _filters(spec: Spec, p: Plan, a: fixed.Arith, scaling: str, coef_bits: int |
     cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, fixed.coef_bits_for(rows, q_in, qs, a.coef_width))
     sections = fixed.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
+
+
+def _droop(spec: Spec, p: Plan) -> tuple[int, int] | None:
+    """(order, ratio) of the CIC when its droop at the band edge exceeds the spec's limit."""
+    lim = spec.fixed.droop_limit_db
+    if lim and cic.droop_db(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio) > lim:
+        return p.order, p.ratio
+    return None
 
 
 def _out_format(spec: Spec, q_last: int) -> OutputFormat:

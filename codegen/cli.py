@@ -222,6 +222,11 @@ def cmd_widths(args) -> int:
             flag = "  <-- FAILS" if r["margin_bits"] < 0 else ""
             print(f"{r['name']:<16} {r['bits']:>4} {r['bound']:>22} {r['margin_bits']:>7.2f}  {r['note']}{flag}")
         print()
+        ci = rep.cic
+        print(f"CIC: order {ci['order']} ratio {ci['ratio']}, {ci['in_bits']}-bit input, full width {ci['full_width']} "
+              f"bits in {ci['register_bits']}-bit registers; droop at the band edge {ci['droop_db_at_band_edge']:.2f} dB"
+              f"{' (compensated)' if ci['compensated'] else ''}; worst alias into the band {ci['worst_alias_db']:.1f} dB; "
+              f"pruning {ci['pruning']}")
         print(f"predicted implementation loss {rep.predicted_loss_db:.3f} dB; response error {rep.response_error_db:.4f} dB "
               f"(coefficients need {rep.coef_bits_needed} fraction bits for the tolerance)")
         for c in rep.limit_cycles:

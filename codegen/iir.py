@@ -12,6 +12,8 @@ import math
 import numpy as np
 from scipy import signal
 
+from . import cic
+
 # Audio low-pass: elliptic, 0.1 dB ripple, 60 dB stopband. Common practice, no source: an
 # elliptic low-pass is the cheapest IIR per dB of stopband for a given order.
 LPF_ORDER = 4
@@ -22,8 +24,23 @@ COEF_BITS = 29      # Q29 coefficients: |c| < 4 covers every normalised biquad t
 
 
 def lowpass_sos(audio_hz: float, fs_hz: float) -> np.ndarray:
-    """Float design of the audio low-pass with its passband edge at audio_hz."""
-    return signal.ellip(LPF_ORDER, LPF_RIPPLE_DB, LPF_STOP_DB, audio_hz, btype="low", fs=fs_hz, output="sos")
+    """Float design of the audio low-pass with its passband edge at audio_hz, as second-order
+    sections: poles paired with their nearest zeros, sections ordered with the poles nearest the
+    unit circle last (scipy.signal.zpk2sos, pairing "nearest"), which keeps the high-gain sections'
+    roundoff from passing through the others."""
+    z, p, k = signal.ellip(LPF_ORDER, LPF_RIPPLE_DB, LPF_STOP_DB, audio_hz, btype="low", fs=fs_hz, output="zpk")
+    return signal.zpk2sos(z, p, k, pairing="nearest")
+
+
+def droop_fir(order: int, ratio: int, audio_hz: float, fs_hz: float) -> np.ndarray:
+    """A three-tap compensator [-a, 1 + 2a, -a] (gain 1 + 2a (1 - cos w), unity at DC) with ``a``
+    chosen by least squares so that it times the CIC's droop is flattest over [0, audio_hz]."""
+    f = np.linspace(0.0, audio_hz, 200)
+    w = 2 * np.pi * f / fs_hz
+    droop = 10 ** (cic.response_db(f / fs_hz, order, ratio) / 20)
+    g = 2 * (1 - np.cos(w)) * droop                      # d(compensated gain) / da
+    a = float(np.dot(g, 1 - droop) / np.dot(g, g))      # least squares of droop + a g = 1
+    return np.array([[-a, 1 + 2 * a, -a, 1.0, 0.0, 0.0]])
 
 
 def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
@@ -37,9 +54,12 @@ def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
     return np.array([[b, b, 0.0, 1.0, a1, 0.0]])
 
 
-def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float) -> list[tuple[str, np.ndarray]]:
-    """The output-rate filters of a design, in order: (role, float sos)."""
-    out = [("lowpass", lowpass_sos(audio_hz, fs_hz))]
+def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float,
+                   droop: tuple[int, int] | None = None) -> list[tuple[str, np.ndarray]]:
+    """The output-rate filters of a design, in order: (role, float sos); ``droop`` = (order, ratio)
+    of a CIC to compensate first."""
+    out = [("droop", droop_fir(droop[0], droop[1], audio_hz, fs_hz))] if droop else []
+    out.append(("lowpass", lowpass_sos(audio_hz, fs_hz)))
     if deemphasis_us:
         out.append(("deemphasis", deemphasis_sos(deemphasis_us * 1e-6, fs_hz)))
     return out

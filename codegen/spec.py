@@ -92,6 +92,7 @@ class Fixed:
     response_tol_db: float = 0.05      # largest gain error of the quantised filters over the band
     scaling: str = "l1"                # "l1" (no overflow for any input), "l2" or "linf" (wide only)
     arith: str = "auto"                # "auto" (cheapest that meets the loss), "narrow" or "wide"
+    droop_limit_db: float = 0.0        # compensate the CIC droop when it exceeds this at the band edge (0: never)
 
 
 @dataclass(frozen=True)
@@ -114,7 +115,7 @@ class Spec:
 _SECTIONS = {
     "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us"},
     "output": {"rate_hz", "format", "full_scale_hz"},
-    "fixed": {"loss_limit_db", "response_tol_db", "scaling", "arith"},
+    "fixed": {"loss_limit_db", "response_tol_db", "scaling", "arith", "droop_limit_db"},
     "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "counter_bits", "has_capture", "has_edge_irq",
                "has_counter", "capture_prescalers", "capture_dma", "counter_dma", "hw_divide", "mul64",
                "isr_cycles", "irq_jitter_cycles", "cpu_budget"},
@@ -275,6 +276,7 @@ def _fixed(raw: dict) -> Fixed:
         response_tol_db=_number(f, "fixed", "response_tol_db", default=0.05),
         scaling=f.get("scaling", "l1"),
         arith=f.get("arith", "auto"),
+        droop_limit_db=_number(f, "fixed", "droop_limit_db", default=0.0, allow_zero=True),
     )
     if fx.scaling != "l1" and fx.arith == "narrow":
         raise SpecError("fixed.scaling", fx.scaling, 'the narrow arithmetic has 32-bit accumulators and needs "l1"')

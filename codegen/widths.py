@@ -7,7 +7,7 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, field
 
-from . import build, fixed, schemes
+from . import build, cic, fixed, schemes
 from .ir import Design
 from .planner import plan
 from .spec import Spec, SpecError
@@ -25,6 +25,7 @@ class WidthReport:
     limit_cycles: list         # per section: measured dead band (its LSB), Jackson's estimate, in output LSB
     simulated_loss_db: float | None
     bit_exact: bool | None
+    cic: dict = field(default_factory=dict)
     failures: list = field(default_factory=list)
 
     @property
@@ -111,8 +112,18 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
             failures.append(f"simulated implementation loss {sim_loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
         if not bit_exact:
             failures.append("the emitted C differs from the integer model")
+    c, out_hz, band = d.cic, d.rates.out_hz, d.audio_hz
+    cic_info = {
+        "order": c.order, "ratio": c.ratio, "in_bits": c.in_bits, "register_bits": c.width,
+        "full_width": cic.full_width(c.in_bits, c.order, c.ratio),
+        "droop_db_at_band_edge": round(cic.droop_db(band, out_hz, c.order, c.ratio), 3),
+        "compensated": any(s.role == "droop" for s in d.filters.sections),
+        "worst_alias_db": round(float(cic.response_db((out_hz - band) / out_hz, c.order, c.ratio)), 2),
+        "pruning": "not applied: every CIC register is a 32-bit word on these targets, so Hogenauer's "
+                   "pruning would save no storage or cycles",
+    }
     return WidthReport(
-        name=spec.name, arith=opt.arith, overrides=dict(overrides or {}),
+        name=spec.name, cic=cic_info, arith=opt.arith, overrides=dict(overrides or {}),
         registers=[asdict(r) for r in d.certificate], predicted_loss_db=round(opt.loss_db, 3),
         response_error_db=round(opt.response_error_db, 4), coef_bits_needed=opt.coef_bits_needed,
         limit_cycles=cycles, simulated_loss_db=sim_loss, bit_exact=bit_exact, failures=failures)
