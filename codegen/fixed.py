@@ -74,14 +74,18 @@ def section_formats(rows: list, q_in: int, in_bound_rel: float, data_bits: int, 
 
 
 def coef_bits_for(rows: list, q_in: int, qs: list[int], width: int) -> int:
-    """The largest Q format in which every scaled coefficient fits ``width`` bits."""
-    biggest = 0.0
-    prev = q_in
+    """The largest Q format in which every scaled coefficient, once rounded, fits ``width`` bits
+    (two's complement: -2**(width-1) .. 2**(width-1) - 1)."""
+    coefs, prev = [], q_in
     for row, q in zip(rows, qs):
         b0, b1, b2, _, a1, a2 = row
-        biggest = max(biggest, max(abs(c) for c in (b0, b1, b2)) * 2.0 ** (q - prev), abs(a1), abs(a2))
+        coefs += [c * 2.0 ** (q - prev) for c in (b0, b1, b2)] + [a1, a2]
         prev = q
-    return (width - 1) - math.floor(math.log2(biggest)) - 1
+    lo, hi = -(1 << (width - 1)), (1 << (width - 1)) - 1
+    cb = (width - 1) - math.floor(math.log2(max(abs(c) for c in coefs)))
+    while any(not lo <= round(c * 2.0 ** cb) <= hi for c in coefs):
+        cb -= 1
+    return cb
 
 
 def quantise_rows(rows: list, roles: list[str], q_in: int, qs: list[int], cb: int) -> tuple[Section, ...]:
@@ -119,8 +123,9 @@ def response_error_db(f: Filters, q_in: int, out_hz: float, band_hz: float) -> f
 
 def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo: float, band_hz: float) -> float:
     """In-band roundoff noise at the output in full-scale^2 units (Jackson 1970): the scale
-    stage's rounding through every section, each section's rounding through its own recursion and
-    the sections after it, and the output word's rounding; each white, q^2 / 12."""
+    stage's and the offset tracker's roundings through every section, each section's rounding
+    through its own recursion and the sections after it, and the output word's rounding when it
+    drops bits; each white, q^2 / 12."""
     rows = quantised_rows(f, q_in)
     fgrid = np.linspace(band_lo, band_hz, 512)
 
@@ -132,11 +137,14 @@ def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo:
             g2 = np.ones_like(fgrid)
         return var * 2.0 / out_hz * float(np.trapezoid(g2, fgrid))
 
-    total = band(2.0 ** (-2 * q_in) / 12, rows)
+    # the scale stage's rounding and the offset tracker's (its rounded DC is subtracted from the
+    # filter input): two sources of the input's LSB through every section
+    total = 2 * band(2.0 ** (-2 * q_in) / 12, rows)
     for k, s in enumerate(f.sections):
         recursion = [[1.0, 0.0, 0.0] + rows[k][3:]]          # 1 / A_k(z): the rounding is inside the loop
         total += band(2.0 ** (-2 * s.q_out) / 12, recursion + rows[k + 1:])
-    total += band(2.0 ** (-2 * (out_bits - 1)) / 12, [])
+    if f.sections[-1].q_out > out_bits - 1:                 # the output word rounds only when it is coarser
+        total += band(2.0 ** (-2 * (out_bits - 1)) / 12, [])
     return total
 
 
