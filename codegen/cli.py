@@ -50,6 +50,8 @@ def _parser() -> argparse.ArgumentParser:
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
     p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--no-test", action="store_true",
+                   help="leave out the desktop unit test (<name>_test.c, vectors, Makefile, CMakeLists.txt)")
 
     p = sub.add_parser("widths", help="show the word-length table and overflow margins, or check your own widths")
     _add_scheme_args(p)
@@ -155,6 +157,11 @@ def cmd_emit(args) -> int:
     d = make_design(spec, scheme=args.scheme)
     files = dict(emit(d))
     files[f"{d.name}_design.json"] = d.to_json() + "\n"
+    if not args.no_test:
+        from .emit import unit_test
+        from .verify import test_vectors
+
+        files.update(unit_test(d, test_vectors(d)))
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"-o {out}: exists and is not a folder")

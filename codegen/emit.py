@@ -93,6 +93,31 @@ def banner(design: Design) -> str:
             f" * Design '{design.name}', scheme '{design.scheme}'. Do not edit: change the spec and emit again. */")
 
 
+@dataclass(frozen=True)
+class Vectors:
+    """Recorded inputs and the integer model's outputs for the emitted unit test."""
+
+    inputs: tuple[int, ...]
+    outputs: tuple[int, ...]
+    seconds: float
+    seed: int
+    block: int = 256
+
+
+def unit_test(design: Design, vectors: Vectors) -> dict[str, str]:
+    """The desktop unit test around the emitted C: <name>_test.c, <name>_vectors.h, a Makefile
+    (``make test``) and a CMakeLists.txt (``ctest``)."""
+    env = _env()
+    p = design.name
+    ctx = dict(d=design, p=p, P=p.upper(), banner=banner(design), vectors=vectors)
+    return {
+        f"{p}_test.c": env.get_template("unit_test.c.j2").render(ctx),
+        f"{p}_vectors.h": env.get_template("vectors.h.j2").render(ctx),
+        "Makefile": env.get_template("Makefile.j2").render(ctx),
+        "CMakeLists.txt": env.get_template("CMakeLists.txt.j2").render(ctx),
+    }
+
+
 def emit(design: Design) -> dict[str, str]:
     """The C files of ``design``: {"<name>.h": text, "<name>.c": text}."""
     env = _env()

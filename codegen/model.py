@@ -69,6 +69,14 @@ def phase_steps(design: Design, stamps: np.ndarray) -> tuple[np.ndarray, int, in
     return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
 
 
+def zero_run_gaps(d: np.ndarray, gap_run: int) -> np.ndarray:
+    """True where a count difference is zero and ends a run of more than gap_run zeros (carrier
+    lost): the C's saturating zero-run counter."""
+    k = np.arange(d.size)
+    last_nonzero = np.maximum.accumulate(np.where(d != 0, k, -1))
+    return (d == 0) & (k - last_nonzero > gap_run)
+
+
 def count_steps(design: Design, counts: np.ndarray) -> tuple[np.ndarray, int, int]:
     """The CIC input for each count read after the first, with the gap and clamp counts."""
     fr = design.front
@@ -76,9 +84,7 @@ def count_steps(design: Design, counts: np.ndarray) -> tuple[np.ndarray, int, in
     if c.size < 2:
         return np.zeros(0, dtype=np.int64), 0, 0
     d = np.diff(c) & ((1 << fr.counter_bits) - 1)
-    k = np.arange(d.size)
-    last_nonzero = np.maximum.accumulate(np.where(d != 0, k, -1))
-    gap = (d == 0) & (k - last_nonzero > fr.gap_run)
+    gap = zero_run_gaps(d, fr.gap_run)
     clamped = sat(d, 0, fr.diff_limit)
     clamps = int(np.count_nonzero(clamped != d))
     x = np.where(gap, fr.x_centre, clamped << fr.step_shift)

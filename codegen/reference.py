@@ -11,7 +11,7 @@ from scipy import signal
 
 from . import cic
 from .ir import Design
-from .model import unwrap
+from .model import unwrap, zero_run_gaps
 
 
 def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:
@@ -44,9 +44,7 @@ def _count_steps(design: Design, counts: np.ndarray) -> np.ndarray:
     fr = design.front
     c = np.asarray(counts, dtype=np.int64)
     d = np.diff(c) & ((1 << fr.counter_bits) - 1)
-    k = np.arange(d.size)
-    last_nonzero = np.maximum.accumulate(np.where(d != 0, k, -1))
-    gap = (d == 0) & (k - last_nonzero > fr.gap_run)
+    gap = zero_run_gaps(d, fr.gap_run)
     return np.where(gap, design.if_hz / design.rates.grid_hz, d.astype(np.float64))
 
 

@@ -83,6 +83,15 @@ def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None 
     return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, offset)
 
 
+def test_vectors(design: Design, seconds: float = 0.05, seed: int = DEFAULT_SEED):
+    """Inputs of the standard test and the integer model's outputs, for the emitted unit test."""
+    from .emit import Vectors
+
+    inputs = make_inputs(design, seconds, seed)
+    out = model.run(design, inputs).out
+    return Vectors(tuple(int(v) for v in inputs), tuple(int(v) for v in out), seconds, seed)
+
+
 def predict(design: Design) -> schemes.Prediction:
     """The planner's prediction for this design's rates and filters."""
     return schemes.predict(

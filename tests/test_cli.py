@@ -21,7 +21,8 @@ import edgetally
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 ORCHARD = EXAMPLES / "orchard_link.toml"
 CAMPUS = EXAMPLES / "campus_fm.toml"
-ORCHARD_FILES = {"orchard.h", "orchard.c", "orchard_design.json"}
+ORCHARD_FILES = {"orchard.h", "orchard.c", "orchard_design.json", "orchard_test.c", "orchard_vectors.h",
+                 "Makefile", "CMakeLists.txt"}
 
 
 def _cli(*args) -> subprocess.CompletedProcess:
@@ -121,7 +122,7 @@ def test_emit_rerun_edit_and_force(tmp_path):
     assert "Traceback" not in refused.stderr
     lines = refused.stderr.splitlines()
     assert len(lines) == 1 and "orchard.c" in lines[0], refused.stderr
-    assert "orchard.h" not in lines[0] and "orchard_design.json" not in lines[0]
+    assert "orchard.h" not in lines[0] and "orchard_design.json" not in lines[0] and "Makefile" not in lines[0]
     assert (out / "orchard.c").read_bytes() == edited
     assert {n: b for n, b in _tree(out).items() if n != "orchard.c"} == \
         {n: b for n, b in original.items() if n != "orchard.c"}
@@ -131,8 +132,7 @@ def test_emit_rerun_edit_and_force(tmp_path):
     assert forced.returncode == 0, forced.stderr
     assert _tree(out) == original
     assert sorted(forced.stdout.splitlines()) == sorted(
-        [f"written: {out / 'orchard.c'}", f"unchanged: {out / 'orchard.h'}",
-         f"unchanged: {out / 'orchard_design.json'}"])
+        [f"written: {out / 'orchard.c'}"] + [f"unchanged: {out / n}" for n in ORCHARD_FILES if n != "orchard.c"])
 
 
 # --- plan ---------------------------------------------------------------------------------------
