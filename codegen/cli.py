@@ -43,6 +43,9 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("plan", help="show what was chosen and why")
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
+    p.add_argument("--measured", action="store_true",
+                   help="cross-compile the chosen design for the spec's core, run it in the Thumb emulator and "
+                        "give its measured CPU load beside the estimate (needs arm-none-eabi-gcc and unicorn)")
     p.add_argument("--simulate", action="store_true",
                    help="also simulate each feasible option briefly (float reference, 0.25 s) and show its SINAD")
 
@@ -66,6 +69,9 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
     p.add_argument("--seconds", type=float, default=1.0, help="test signal length in seconds (default 1)")
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signal (default fixed)")
+    p.add_argument("--no-target", action="store_true",
+                   help="skip the cross-compiled runs in the Thumb emulator (done when arm-none-eabi-gcc and "
+                        "unicorn are installed)")
     return ap
 
 
@@ -138,14 +144,41 @@ def cmd_plan(args) -> int:
         if sys.stderr.isatty():
             print("edgetally: simulating each feasible option ...", file=sys.stderr)
         sims = simulate_options(spec, pl)
+    measured = None
+    if args.measured:
+        measured = _measure(spec, pl)
     if args.json:
         obj = {"name": spec.name, **pl.to_dict()}
+        if measured is not None:
+            obj["measured"] = measured
         if sims is not None:
             obj["simulated_sinad_db"] = [{"scheme": k[0], "variant": k[1], "sinad_db": v} for k, v in sims.items()]
         print(json.dumps(_json_safe(obj), indent=2))
     else:
         print(_plan_table(spec, pl, sims))
+        if measured is not None:
+            print(f"measured on the emulated {spec.target.core} (-Os): CPU load {measured['load_fraction']:.1%} "
+                  f"(estimate {pl.load.fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
+                  f"{measured['cycles_per_input']:g}/input, {measured['cycles_per_grid']:g}/grid instant, "
+                  f"{measured['cycles_per_output']:g}/output; flash {measured['flash_bytes']} B")
     return EXIT_OK
+
+
+def _measure(spec: Spec, pl) -> dict:
+    """The chosen design's cycles measured in the emulator for the spec's core (exit 2 if that core
+    cannot be emulated, 1 if the tools are missing)."""
+    from . import target
+    from .build import design as make_design
+    from .verify import measured_load, target_check
+
+    if spec.target.core not in ("cortex-m0plus", "cortex-m4"):
+        raise UsageError(f"--measured: the {spec.target.core} core is not emulated (cortex-m0plus, cortex-m4 are)")
+    if target.toolchain() is None or not target.emulator_available():
+        raise RuntimeError("--measured needs arm-none-eabi-gcc and the unicorn and pyelftools packages")
+    d = make_design(spec, pl)
+    t = target_check(d)[spec.target.core]
+    t["load_fraction"] = measured_load(d, t)
+    return t
 
 
 def cmd_emit(args) -> int:
@@ -191,7 +224,8 @@ def cmd_verify(args) -> int:
     d = make_design(spec, scheme=args.scheme)
     tty = sys.stderr.isatty() and not args.json
     progress = (lambda m: print(f"edgetally: {m} ...", file=sys.stderr)) if tty else None
-    res = verify(d, seconds=args.seconds, seed=DEFAULT_SEED if args.seed is None else args.seed, progress=progress)
+    res = verify(d, seconds=args.seconds, seed=DEFAULT_SEED if args.seed is None else args.seed, progress=progress,
+                 targets=not args.no_target)
     if args.json:
         print(json.dumps(_json_safe(res.to_dict()), indent=2))
     else:
@@ -209,7 +243,16 @@ def cmd_verify(args) -> int:
                   f"{res.quant_gap_db:.1f} dB short of it")
         print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
-    return EXIT_OK if res.bit_exact else EXIT_FAIL
+        if res.target:
+            for core, t in res.target.items():
+                print(f"  {core} (-Os, emulated, {t['samples']} samples): "
+                      f"{'bit-exact' if t['bit_exact'] else 'DIFFERS'}; cycles: {t['cycles_per_edge_isr']:g}/edge ISR, "
+                      f"{t['cycles_per_input']:g}/input, {t['cycles_per_grid']:g}/grid instant, "
+                      f"{t['cycles_per_output']:g}/output; flash {t['flash_bytes']} B, state {t['state_bytes']} B")
+        else:
+            print("  target runs: skipped (needs arm-none-eabi-gcc and the unicorn and pyelftools packages)")
+    ok = res.bit_exact and res.target_bit_exact is not False
+    return EXIT_OK if ok else EXIT_FAIL
 
 
 def cmd_widths(args) -> int:

@@ -17,6 +17,10 @@ from dataclasses import dataclass
 class StampFront:
     """Timer stamps -> unwrapped time -> phase on a uniform grid -> phase step per grid period.
 
+    The interval from the previous stamp is its timer difference (modulo 2**timer_bits), taken as
+    at most max_delta ticks, so that one stamp never makes more than max_delta / grid_ticks grid
+    instants however long the silence or wild the value.
+
     Time is kept modulo 2**32 ticks; the phase in units of 2**-phase_shift stamp intervals (one
     stamp interval = ``prescale`` IF cycles). For the stamps t1 <= g < t2 that bracket a grid
     instant g (interval D = t2 - t1), ``order`` "linear" takes
@@ -37,6 +41,7 @@ class StampFront:
     x_centre: int          # phase step of the IF centre, used while the carrier is lost
     order: str = "linear"  # "linear" or "cubic"
     delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
+    max_delta: int = 0     # a stamp interval is taken as at most this (a long gap is just a gap)
     kind: str = "stamp"
 
 

@@ -5,9 +5,7 @@ the CIC are vectorised with numpy int64 (values stay far from 2**63: phase steps
 and each integrator is reduced modulo 2**32 before the next); the recursive filters run sample by
 sample on Python integers.
 
-Contract shared with the C: stamps arrive in capture order; two consecutive stamps are less than
-2**31 ticks apart once unwrapped (always true of 16-bit timers); counts are read once per grid
-instant. Output samples do not depend on how the inputs are split into blocks.
+Contract shared with the C: inputs are processed in order; counts are read once per grid instant. Output samples do not depend on how the inputs are split into blocks.
 """
 
 from __future__ import annotations
@@ -30,19 +28,20 @@ class ModelRun:
     steps: np.ndarray        # the phase step per grid instant (CIC input), int64
 
 
-def unwrap(stamps: np.ndarray, timer_bits: int) -> np.ndarray:
-    """Stamps -> exact tick times, the first stamp's value as origin (the C keeps these mod 2**32)."""
+def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:
+    """Stamps -> tick times, the first stamp's value as origin (the C keeps these mod 2**32); each
+    interval is the timer difference modulo 2**timer_bits, taken as at most max_delta."""
     c = np.asarray(stamps, dtype=np.int64)
     if c.size == 0:
         return c
-    delta = np.diff(c) & ((1 << timer_bits) - 1)
+    delta = np.minimum(np.diff(c) & ((1 << timer_bits) - 1), max_delta)
     return c[0] + np.concatenate(([0], np.cumsum(delta)))
 
 
 def phase_steps(design: Design, stamps: np.ndarray) -> tuple[np.ndarray, int, int]:
     """The CIC input x[k] for every grid instant the stamps complete, with the gap and clamp counts."""
     fr = design.front
-    t = unwrap(stamps, fr.timer_bits)
+    t = unwrap(stamps, fr.timer_bits, fr.max_delta)
     cubic = fr.order == "cubic"
     first = 1 if cubic else 0                              # the grid starts at this stamp
     last = t.size - 2 if cubic else t.size - 1             # instants before this stamp are complete

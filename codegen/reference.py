@@ -17,7 +17,7 @@ from .model import unwrap, zero_run_gaps
 def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:
     """Phase steps (stamp intervals per grid period) for every grid instant the stamps complete."""
     fr = design.front
-    t = unwrap(stamps, fr.timer_bits).astype(np.float64)
+    t = unwrap(stamps, fr.timer_bits, fr.max_delta).astype(np.float64)
     cubic = fr.order == "cubic"
     first = 1 if cubic else 0
     last = t.size - 2 if cubic else t.size - 1

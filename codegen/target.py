@@ -80,6 +80,16 @@ class TargetRunError(RuntimeError):
     """The emulated code did not return normally."""
 
 
+def emulator_available() -> bool:
+    """True when the unicorn and pyelftools packages can be imported."""
+    try:
+        import elftools  # noqa: F401
+        import unicorn  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
 def toolchain() -> str | None:
     """The cross compiler's path, or None when it is not installed."""
     return shutil.which(os.environ.get("ARM_CC", "arm-none-eabi-gcc"))
@@ -484,6 +494,10 @@ class _Profiler:
         except ImportError:
             self.cs = None
         self.method = "classes (capstone)" if self.cs else "single CPI estimate"
+        # the hook is installed before anything runs (unicorn applies a block hook only to code
+        # translated after it was added) and counts only while active
+        self.active = False
+        m.mu.hook_add(m.uc_mod.UC_HOOK_BLOCK, self.hook, begin=FLASH_BASE, end=FLASH_BASE + FLASH_SIZE - 1)
 
     def category(self, addr: int) -> str | None:
         for name, ranges in self.anchors:
@@ -546,6 +560,8 @@ class _Profiler:
         return res
 
     def hook(self, mu, addr, size, _user):
+        if not self.active:
+            return
         if addr in self.entries:
             name = self.entries[addr]
             self.calls[name] = self.calls.get(name, 0) + 1
@@ -607,7 +623,7 @@ def _dwarf_ranges(elf_path: Path) -> dict[str, list[tuple[int, int]]]:
                     ranges.append((lo, hi))
                 elif "DW_AT_ranges" in at and rl is not None:
                     base = base0
-                    for e in rl.get_range_list_at_offset(at["DW_AT_ranges"].value):
+                    for e in rl.get_range_list_at_offset(at["DW_AT_ranges"].value, cu=cu):
                         if type(e).__name__ == "BaseAddressEntry":
                             base = e.base_address
                         elif getattr(e, "is_absolute", False):
@@ -639,8 +655,6 @@ def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: 
     from . import model
     from .cores import CORES
 
-    import unicorn as uc
-
     p = design.name
     inputs = np.ascontiguousarray(inputs[:max_inputs], dtype=build.input_dtype)
     ref = model.run(design, inputs)
@@ -659,7 +673,7 @@ def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: 
     m = _Machine(build)
     prof = _Profiler(m, anchors, entries)
     m.call("harness_init")
-    m.mu.hook_add(uc.UC_HOOK_BLOCK, prof.hook, begin=FLASH_BASE, end=FLASH_BASE + FLASH_SIZE - 1)
+    prof.active = True
     chunks = _feed_process(m, build, inputs, min(IN_LEN, 1024))
     produced = sum(c.size for c in chunks)
     n_grid, n_out, n_in = int(ref.steps.size), int(ref.out.size), int(inputs.size)
@@ -672,7 +686,7 @@ def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: 
     m2 = _Machine(build)
     prof2 = _Profiler(m2, anchors, entries)
     m2.call("harness_init")
-    m2.mu.hook_add(uc.UC_HOOK_BLOCK, prof2.hook, begin=FLASH_BASE, end=FLASH_BASE + FLASH_SIZE - 1)
+    prof2.active = True
     n_isr = min(n_in, 1000)
     _feed_isr(m2, build, inputs[:n_isr], max(1, design.queue_len // 4))
     stack = max(stack, m2.stack_used())
@@ -703,12 +717,11 @@ def total_cycles(build: TargetBuild, entry: str, *args: int, setup=None) -> tupl
     """(instructions, estimated cycles, r0) of one call of ``entry`` with every instruction counted,
     whatever function it is in; ``setup(machine)`` runs first (e.g. to write the input buffer).
     For benchmarks of code without DWARF anchors."""
-    import unicorn as uc
-
     m = _Machine(build)
+    prof = _Profiler(m, [("all", [(FLASH_BASE, FLASH_BASE + FLASH_SIZE)])], {})
     if setup is not None:
         setup(m)
-    prof = _Profiler(m, [("all", [(FLASH_BASE, FLASH_BASE + FLASH_SIZE)])], {})
-    m.mu.hook_add(uc.UC_HOOK_BLOCK, prof.hook, begin=FLASH_BASE, end=FLASH_BASE + FLASH_SIZE - 1)
+    prof.active = True
+    prof.prev_last = None
     r0 = m.call(entry, *args)
     return prof.counts.get("all", 0), prof.cycles.get("all", 0.0), r0

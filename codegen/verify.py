@@ -51,6 +51,8 @@ class VerifyResult:
     c_seconds: float
     model_seconds: float
     widths: dict
+    target_bit_exact: bool | None = None     # None: not run (no cross compiler or emulator)
+    target: dict = None                       # per core: bit_exact, cycles per event, sizes
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -120,9 +122,64 @@ def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_
     return out
 
 
+TARGET_CORES = ("cortex-m0plus", "cortex-m4")
+TARGET_SECONDS = 0.1
+
+
+def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARGET_SECONDS) -> dict:
+    """The same C cross-compiled for each ARM core (-Os) and run in the Thumb emulator on the
+    first ``seconds`` of the standard test: bit-exact against the model, and the measured cycles
+    per event (estimates from instruction counts, see edgetally.target). Empty when the cross
+    compiler or the emulator is not installed."""
+    from . import target
+
+    if target.toolchain() is None or not target.emulator_available():
+        return {}
+    inputs = make_inputs(design, seconds, seed)
+    want = model.run(design, inputs)
+    out = {}
+    for core in TARGET_CORES:
+        b = target.cross_build(design, core, "-Os")
+        r = target.run(b, design, inputs)
+        c = target.measure(b, design, inputs)
+        out[core] = {
+            "bit_exact": bool(np.array_equal(r.outputs, want.out)),
+            "samples": int(r.outputs.size),
+            "cycles_per_edge_isr": max(c.isr_cycles_with_entry.values(), default=0.0),
+            "cycles_per_input": c.cycles_per_input, "cycles_per_grid": c.cycles_per_grid,
+            "cycles_per_output": c.cycles_per_output, "flash_bytes": b.flash_demod + b.flash_runtime,
+            "state_bytes": b.ram_state, "stack_bytes": c.stack_bytes, "cycle_method": c.method,
+            "isr_cycles_with_entry": dict(c.isr_cycles_with_entry),
+        }
+        out[core]["load_fraction"] = measured_load(design, out[core])
+    return out
+
+
+def measured_load(design: Design, t: dict) -> float:
+    """CPU fraction at the highest edge rate from cycles measured in the emulator: ISR calls (with
+    exception entry and exit) at their event rates, inputs, grid instants and output samples."""
+    fr, b, rates = design.front, design.budget, design.rates
+    edge_hz = b.edge_hz_max
+    isr = t["isr_cycles_with_entry"]
+    if fr.kind == "stamp":
+        input_hz = edge_hz / fr.prescale
+        isr_load = 0.0 if (design.scheme == "timestamp" and b.dma) else sum(isr.values()) * input_hz
+    else:
+        input_hz = rates.grid_hz
+        isr_load = 0.0
+        for name, cyc in isr.items():
+            if name.endswith("_edge_isr"):
+                isr_load += cyc * edge_hz
+            elif not (design.scheme == "counter" and b.dma):
+                isr_load += cyc * rates.grid_hz
+    work = input_hz * t["cycles_per_input"] + rates.grid_hz * t["cycles_per_grid"] + rates.out_hz * t["cycles_per_output"]
+    return round((isr_load + work) / b.cpu_hz, 4)
+
+
 def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_db: float | None = None,
-           progress: Callable[[str], None] | None = None) -> VerifyResult:
-    """Run the whole check. ``progress`` (optional) is told each step as it starts."""
+           progress: Callable[[str], None] | None = None, targets: bool = False) -> VerifyResult:
+    """Run the whole check. ``progress`` (optional) is told each step as it starts; ``targets``
+    adds the cross-compiled runs in the emulator (target_check)."""
     say = progress or (lambda _msg: None)
     if not seconds > 0:
         raise ValueError("seconds must be positive")
@@ -137,6 +194,10 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     say("running the integer model")
     m = model.run(design, inputs_)
     t2 = time.perf_counter()
+    tgt = {}
+    if targets:
+        say("cross-compiling for the target cores and running them in the emulator")
+        tgt = target_check(design, seed)
     say("running the floating-point reference")
     ref = reference.run(design, inputs_)
 
@@ -180,4 +241,5 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
         saturations=m.saturations, clips=m.clips,
         offset_hz=round(counters["offset"] * design.full_scale_hz / 2 ** design.scale.q, 3),
         c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=widths,
+        target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None, target=tgt,
     )
