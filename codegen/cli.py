@@ -161,6 +161,10 @@ def cmd_plan(args) -> int:
                   f"(estimate {pl.load.fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
                   f"{measured['cycles_per_input']:g}/input, {measured['cycles_per_grid']:g}/grid instant, "
                   f"{measured['cycles_per_output']:g}/output; flash {measured['flash_bytes']} B")
+            if measured["load_fraction"] > spec.target.cpu_budget:
+                print(f"warning: the measured load exceeds the budget {spec.target.cpu_budget:.0%}; the planner's "
+                      "estimates were optimistic for this design: force a lighter option (--scheme) or raise "
+                      "target.cpu_budget")
     return EXIT_OK
 
 

@@ -190,6 +190,10 @@ def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, 
     return Prediction(db(sum(parts) + n_out), db(parts[0]), db(parts[1]), db(parts[2]), db(n_out))
 
 
+SMALL_RATIO_DEN = 4      # IF / grid = p / q with q up to this counts as commensurate
+RATIO_NEAR = 0.02        # how close to p / q (in units of 1 / q) counts as near
+
+
 def doubt(v: Variant, *, if_hz: float, full_scale_hz: float, grid_hz: float, pred: Prediction) -> str | None:
     """Why the white-noise prediction may be far off for this option, or None."""
     if v.front == "stamp" and grid_hz > if_hz / v.prescale:
@@ -198,6 +202,12 @@ def doubt(v: Variant, *, if_hz: float, full_scale_hz: float, grid_hz: float, pre
     if v.front == "count" and TEST_LEVEL * full_scale_hz < grid_hz / 2:
         return ("the test deviation is under half the grid rate, so the count error can form tones "
                 "(IF and grid nearly commensurate) instead of white noise")
+    if v.front == "count":
+        ratio = if_hz / grid_hz
+        for q in range(1, SMALL_RATIO_DEN + 1):
+            if abs(ratio * q - round(ratio * q)) < RATIO_NEAR:
+                return (f"the IF is {round(ratio * q)}/{q} of the grid rate: near a small-integer ratio the "
+                        "count error forms tones (DESIGN.md: +-4 dB) instead of white noise")
     if min(pred.curvature_sinad_db, pred.quant_sinad_db) < 40 and pred.curvature_sinad_db < pred.quant_sinad_db:
         return "the interpolation residual is large (few stamps per cycle of the tone): the small-error model is rough"
     return None
@@ -213,27 +223,39 @@ class Load:
     ram_bytes: int       # state size estimate (the queue included)
 
 
+# Operation counts of the emitted C per event, in "ops" of the core profile's op_cycles, beside the
+# divisions and 64-bit multiply-accumulates counted apart. Calibrated against the emitted C itself:
+# -Os builds run in the Thumb emulator (edgetally.target, whose cycle figures are estimates from
+# instruction classes), on the four examples, both ARM cores, rounded; within about 25 % of those
+# figures. `plan --measured` replaces them by the measured figures for one design.
+STAMP_INPUT_OPS = {"linear": 72, "cubic": 80}      # unwrap, bracket test, loop and queue bookkeeping
+STAMP_GRID_OPS = {"linear": 60, "cubic": 250}      # interpolation (besides its divisions), clamp
+COUNT_INPUT_OPS = 40                               # difference, zero run, clamp
+GRID_OPS_PER_STAGE = 8                             # each CIC integrator and comb, per grid instant
+OUTPUT_OPS = 60                                    # combs' share, scale, offset tracker, output word
+SECTION_OPS = {64: 100, 32: 45}                    # a section's rounding, saturation and state moves
+
+
 def filter_cycles(tgt: Target, acc_bits: int, sections: int) -> int:
     """Cycles of the IIR sections per output sample: five products and their sums per section,
     as 32x32->64 multiply-accumulates (64-bit accumulators) or exact 32-bit products."""
     mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
-    return sections * (5 * mul + 10 * tgt.op_cycles)
+    return sections * (5 * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
 
 
 def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
          sections: int, queue_len: int) -> Load:
-    """Estimated cycles (figures from the core profile and target: estimates) and RAM."""
+    """Estimated cycles (core profile figures and the calibrated op counts above) and RAM."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
-    # combs, offset tracker and output format, the scale product, the sections (planned wide;
-    # the designer may then pick a cheaper arithmetic and updates the figure)
-    per_output = (4 * n + 16) * op + tgt.mac64_cycles + filter_cycles(tgt, 64, sections)
+    # the scale product, the sections (planned wide; the designer may then pick a cheaper
+    # arithmetic and updates the figure), and the rest of the output path
+    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + filter_cycles(tgt, 64, sections)
+    cic = GRID_OPS_PER_STAGE * n * op
     if v.front == "stamp":
-        per_input = (14 if v.order == "cubic" else 10) * op           # unwrap + bracket test
-        if v.order == "cubic":
-            per_grid = 2 * tgt.div32_cycles + 2 * tgt.mac64_cycles + (30 + 2 * n) * op
-        else:
-            per_grid = tgt.div32_cycles + (14 + 2 * n) * op             # interpolation, clamp, integrators
+        per_input = STAMP_INPUT_OPS[v.order] * op
+        divs, macs = (2, 2) if v.order == "cubic" else (1, 0)
+        per_grid = divs * tgt.div32_cycles + macs * tgt.mac64_cycles + STAMP_GRID_OPS[v.order] * op + cic
         if v.scheme == "interrupt":
             per_edge = isr + 12 * op                                     # read timer, queue the stamp
         else:
@@ -241,7 +263,7 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
         cycles = stamp_rate * (per_edge + per_input) + grid_hz * per_grid
         in_bytes = 2 if tgt.timer_bits == 16 else 4
     else:
-        per_input = (8 + 2 * n) * op                                     # difference, gap run, integrators
+        per_input = COUNT_INPUT_OPS * op + cic
         per_grid = 0 if (v.scheme == "counter" and tgt.counter_dma) else isr + 6 * op   # tick ISR queues
         per_edge = isr + 3 * op if v.scheme == "interrupt" else 0        # the edge ISR counts
         cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
