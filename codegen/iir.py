@@ -81,16 +81,3 @@ def quantise(sos: np.ndarray, coef_bits: int) -> list[tuple[int, int, int, int, 
             raise ValueError(f"quantised poles {poles} leave the unit circle margin")
         out.append(q)
     return out
-
-
-def as_sos(sections, coef_bits: int) -> np.ndarray:
-    """Quantised sections back to a float sos array (for responses of the integer filter)."""
-    scale = float(1 << coef_bits)
-    return np.array([[b0 / scale, b1 / scale, b2 / scale, 1.0, a1 / scale, a2 / scale]
-                     for (b0, b1, b2, a1, a2) in sections])
-
-
-def accumulator_bound(sections, data_limit: int) -> int:
-    """Largest |accumulator| any section can reach when every input and state is within
-    +-data_limit: sum of |coefficient| * limit, plus the rounding constant added before the shift."""
-    return max(sum(abs(c) for c in sec) for sec in sections) * data_limit
