@@ -6,6 +6,7 @@ recovery afterwards."""
 import os
 import shutil
 import subprocess
+import zlib
 
 import numpy as np
 import pytest
@@ -151,7 +152,7 @@ def test_sanitizers_on_a_million_hostile_events(tmp_path, cc, key):
     time constant is under 0.1 s, the CIC and filters forget faster)."""
     d = ALL_DESIGNS[key]
     _write_c(d, tmp_path)
-    rng = np.random.default_rng(hash(key) & 0xFFFF)
+    rng = np.random.default_rng(zlib.crc32(key.encode()))          # the same storm on every run
     clean = make_inputs(d, 1.2, seed=8)
     storm = _hostile(d, rng, 1_000_000)
     if d.front.kind == "stamp":
@@ -168,9 +169,11 @@ def test_sanitizers_on_a_million_hostile_events(tmp_path, cc, key):
     band = (schemes.BAND_LOW_HZ, d.audio_hz)
     after = metrics.sinad_db(got[-tail:], d.rates.out_hz, schemes.TEST_TONE_HZ, *band)
     # the grid meets the tone at another phase after the storm, so compare quality, not samples:
-    # the worst of the same signal through a fresh state at several start phases, less 1 dB
+    # the worst of the same signal through a fresh state at several start phases, less 3 dB (four
+    # phases were seen to spread by up to 2.7 dB on one design, so a fifth phase can fall below
+    # their minimum; a state that had not recovered would sit tens of dB lower)
     fresh = []
     for seed in (8, 9, 10, 11):
         out = model.run(d, make_inputs(d, 1.2, seed=seed)).out.astype(np.int64)
         fresh.append(metrics.sinad_db(out[-tail:], d.rates.out_hz, schemes.TEST_TONE_HZ, *band))
-    assert after >= min(fresh) - 1.0, (after, fresh)
+    assert after >= min(fresh) - 3.0, (after, fresh)
