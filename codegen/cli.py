@@ -44,8 +44,9 @@ def _parser() -> argparse.ArgumentParser:
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--measured", action="store_true",
-                   help="cross-compile the chosen design for the spec's core, run it in the Thumb emulator and "
-                        "give its measured CPU load beside the estimate (needs arm-none-eabi-gcc and unicorn)")
+                   help="cross-compile the chosen design for the spec's core and run it in the Thumb emulator; "
+                        "if its measured CPU load exceeds the budget, drop it and plan again (needs "
+                        "arm-none-eabi-gcc and unicorn)")
     p.add_argument("--simulate", action="store_true",
                    help="also simulate each feasible option briefly (float reference, 0.25 s) and show its SINAD")
 
@@ -146,7 +147,8 @@ def cmd_plan(args) -> int:
         sims = simulate_options(spec, pl)
     measured = None
     if args.measured:
-        measured = _measure(spec, pl)
+        pl, measured = _measured_plan(spec, pl, args.scheme)
+        measured = dict(measured)
     if args.json:
         obj = {"name": spec.name, **pl.to_dict()}
         if measured is not None:
@@ -161,28 +163,39 @@ def cmd_plan(args) -> int:
                   f"(estimate {pl.load.fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
                   f"{measured['cycles_per_input']:g}/input, {measured['cycles_per_grid']:g}/grid instant, "
                   f"{measured['cycles_per_output']:g}/output; flash {measured['flash_bytes']} B")
-            if measured["load_fraction"] > spec.target.cpu_budget:
-                print(f"warning: the measured load exceeds the budget {spec.target.cpu_budget:.0%}; the planner's "
-                      "estimates were optimistic for this design: force a lighter option (--scheme) or raise "
-                      "target.cpu_budget")
+            for o in measured["dropped_after_measuring"]:
+                print(f"note: {o['scheme']} {o['variant']} R={o['ratio']} was dropped after measuring it: {o['reason']}")
     return EXIT_OK
 
 
-def _measure(spec: Spec, pl) -> dict:
-    """The chosen design's cycles measured in the emulator for the spec's core (exit 2 if that core
-    cannot be emulated, 1 if the tools are missing)."""
+MEASURE_TRIES = 4   # options measured at most before giving up on --measured
+
+
+def _measured_plan(spec: Spec, pl, scheme):
+    """Measure the chosen design's cycles in the emulator for the spec's core; while the measured
+    load exceeds the budget, drop that option (with the measured figure as its reason) and plan
+    again. Returns the final plan and its measurement."""
     from . import target
     from .build import design as make_design
-    from .verify import measured_load, target_check
+    from .planner import plan
+    from .verify import target_check
 
     if spec.target.core not in ("cortex-m0plus", "cortex-m4"):
         raise UsageError(f"--measured: the {spec.target.core} core is not emulated (cortex-m0plus, cortex-m4 are)")
     if target.toolchain() is None or not target.emulator_available():
         raise RuntimeError("--measured needs arm-none-eabi-gcc and the unicorn and pyelftools packages")
-    d = make_design(spec, pl)
-    t = target_check(d)[spec.target.core]
-    t["load_fraction"] = measured_load(d, t)
-    return t
+    exclude = {}
+    for _ in range(MEASURE_TRIES):
+        t = target_check(make_design(spec, pl))[spec.target.core]
+        if t["load_fraction"] <= spec.target.cpu_budget:
+            t["dropped_after_measuring"] = [{"scheme": k[0], "variant": k[1], "ratio": k[2], "reason": r}
+                                            for k, r in exclude.items()]
+            return pl, t
+        exclude[(pl.scheme, pl.variant, pl.ratio)] = (f"measured load {t['load_fraction']:.1%} exceeds the budget "
+                                                      f"{spec.target.cpu_budget:.0%}")
+        pl = plan(spec, scheme=scheme, exclude=exclude)
+    raise RuntimeError(f"--measured: {MEASURE_TRIES} options in a row measured over the budget; raise "
+                       "target.cpu_budget or force a lighter scheme")
 
 
 def cmd_emit(args) -> int:

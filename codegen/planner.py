@@ -147,7 +147,8 @@ def _count_front(spec: Spec, ratio: int, grid_hz: int, grid_ticks: int):
     return None, "no 32-bit count word fits this ratio"
 
 
-def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, only_ratio: int | None) -> list[_Cand]:
+def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, only_ratio: int | None,
+                exclude: dict | None = None) -> list[_Cand]:
     sig, out, tgt = spec.signal, spec.output, spec.target
     ticks_per_out = tgt.timer_hz // out.rate_hz
     edge_max = sig.if_hz + sig.deviation_hz
@@ -174,6 +175,8 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
             reason = _rate_limit(spec, v, ld, grid_hz)
         if reason is None and ld.fraction > tgt.cpu_budget:
             reason = f"CPU load {ld.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}"
+        if reason is None and exclude and (v.scheme, v.label, ratio) in exclude:
+            reason = exclude[(v.scheme, v.label, ratio)]
         doubtful = schemes.doubt(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, grid_hz=grid_hz, pred=pr) is not None
         opt = Option(v.scheme, v.label, ratio, grid_hz, ld.fraction, ld.ram_bytes, pr.sinad_db, pr.quant_sinad_db,
                      pr.curvature_sinad_db, pr.jitter_sinad_db, reason is None, reason or "feasible",
@@ -219,9 +222,11 @@ def _best_of_variant(spec: Spec, cands: list[_Cand]) -> _Cand | None:
     return _choose(feasible)
 
 
-def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, ratio: int | None = None) -> Plan:
+def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, ratio: int | None = None,
+         exclude: dict | None = None) -> Plan:
     """Plan the demodulator for ``spec``. ``scheme`` forces one of SCHEMES; ``variant`` (a label
-    from the option table) and ``ratio`` narrow the choice further."""
+    from the option table) and ``ratio`` narrow the choice further; ``exclude`` maps
+    (scheme, variant, ratio) to the reason an option may not be used (e.g. its measured load)."""
     sig, out, tgt = spec.signal, spec.output, spec.target
     if scheme is not None and scheme not in SCHEMES:
         raise SpecError("--scheme", scheme, "must be one of " + ", ".join(SCHEMES))
@@ -230,7 +235,7 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
     for v, impossible in schemes.variants(tgt):
         if (scheme is not None and v.scheme != scheme) or (variant is not None and v.label != variant):
             continue
-        cands = _candidates(spec, v, impossible, post_sos, ratio)
+        cands = _candidates(spec, v, impossible, post_sos, ratio, exclude)
         per_variant.append((v, cands, _best_of_variant(spec, cands)))
     if variant is not None and not per_variant:
         raise SpecError("--variant", variant, "is not a variant of " + (scheme or "any scheme") + " on this part")

@@ -14,7 +14,7 @@ import pytest
 from edgetally import model, target
 from edgetally.verify import make_inputs
 
-from conftest import ALL_DESIGNS
+from conftest import ALL_DESIGNS, EXAMPLES
 
 for _mod in ("unicorn", "elftools"):
     pytest.importorskip(_mod, reason=f"the Python package {_mod} is not installed (pip install "
@@ -153,3 +153,24 @@ def test_build_errors_carry_the_compiler_output(tmp_path):
         target.cross_build(d, "cortex-m99", workdir=tmp_path)
     with pytest.raises(target.TargetBuildError, match="arm-none-eabi-gcc"):
         target.cross_build(d, "cortex-m4", opt="-Onot-a-level", workdir=tmp_path)
+
+
+def test_plan_measured_drops_an_option_over_budget(tmp_path):
+    """plan --measured uses the emulated figures: campus_fm with a 45 % budget fits by estimate at
+    R = 5 (about 42 %) but measures about 49 %, so that option is dropped and the plan falls back
+    to a lighter one whose measured load fits."""
+    import json
+    import subprocess
+    import sys
+
+    text = (EXAMPLES / "campus_fm.toml").read_text().replace("cpu_budget = 0.5", "cpu_budget = 0.45")
+    spec = tmp_path / "campus45.toml"
+    spec.write_text(text)
+    r = subprocess.run([sys.executable, "-m", "edgetally", "plan", str(spec), "--measured", "--json"],
+                       capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    obj = json.loads(r.stdout)
+    dropped = obj["measured"]["dropped_after_measuring"]
+    assert dropped and all("exceeds the budget 45%" in d["reason"] for d in dropped)
+    assert obj["measured"]["load_fraction"] <= 0.45
+    assert (obj["scheme"], obj["variant"], obj["ratio"]) not in {(d["scheme"], d["variant"], d["ratio"]) for d in dropped}
