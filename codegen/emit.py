@@ -66,6 +66,11 @@ def api(design: Design) -> list[Function]:
     return fns
 
 
+def isr_names(design: Design) -> list[str]:
+    """The functions of api() that interrupts call, in header order (edge before tick)."""
+    return [f.proto.split("(")[0].split()[-1] for f in api(design) if "_isr(" in f.proto]
+
+
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
     ops = ["wrap_s32", "rshr", "sat"]

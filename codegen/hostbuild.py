@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from .ir import Design
-from .emit import api, emit, input_type
+from .emit import api, emit, input_type, isr_names
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 OPT_FLAGS = ["-O2"]
@@ -139,7 +139,7 @@ class HostDemod:
                 if k % service_every == 0:
                     drain()
         else:
-            isr = self._fn({"timestamp": "capture_isr", "interrupt": "edge_isr", "counter": "tick_isr"}[d.scheme])
+            isr = getattr(self.lib, isr_names(d)[0])
             for k, v in enumerate(inputs.tolist(), 1):
                 isr(st, v)
                 if k % service_every == 0:

@@ -34,7 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .emit import emit, input_type
+from .emit import emit, input_type, isr_names
 from .hostbuild import STRICT_FLAGS
 from .ir import Design
 
@@ -639,14 +639,8 @@ def _dwarf_ranges(elf_path: Path) -> dict[str, list[tuple[int, int]]]:
 
 
 def isr_functions(design: Design) -> list[str]:
-    p = design.name
-    if design.scheme == "timestamp":
-        return [f"{p}_capture_isr"]
-    if design.scheme == "interrupt" and design.front.kind == "stamp":
-        return [f"{p}_edge_isr"]
-    if design.scheme == "interrupt":
-        return [f"{p}_edge_isr", f"{p}_tick_isr"]
-    return [f"{p}_tick_isr"]
+    """The ISR functions of the design (their one definition is edgetally.emit.api)."""
+    return isr_names(design)
 
 
 def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: int = 3000) -> Costs:

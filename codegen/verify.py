@@ -66,7 +66,7 @@ def variant_of(design: Design) -> schemes.Variant:
 def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None = None,
                 sig: signals.FmSignal | None = None) -> np.ndarray:
     """What the design's hardware delivers for LEAD_S + seconds of the standard test tone (or of
-    ``sig``): capture inputs_, software inputs_ from an edge interrupt, or counts per grid instant."""
+    ``sig``): capture stamps, software stamps from an edge interrupt, or counts per grid instant."""
     rng = np.random.default_rng(seed)
     if sig is None:
         sig = signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
@@ -184,22 +184,22 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     if not seconds > 0:
         raise ValueError("seconds must be positive")
     say("simulating the FM test signal")
-    inputs_ = make_inputs(design, seconds, seed, cnr_db)
+    stream = make_inputs(design, seconds, seed, cnr_db)
     say("compiling the emitted C (strict flags)")
     host = hostbuild.build(design)
-    say(f"running the C on {inputs_.size} inputs")
+    say(f"running the C on {stream.size} inputs")
     t0 = time.perf_counter()
-    c_out, counters = host.process(inputs_)
+    c_out, counters = host.process(stream)
     t1 = time.perf_counter()
     say("running the integer model")
-    m = model.run(design, inputs_)
+    m = model.run(design, stream)
     t2 = time.perf_counter()
     tgt = {}
     if targets:
         say("cross-compiling for the target cores and running them in the emulator")
         tgt = target_check(design, seed)
     say("running the floating-point reference")
-    ref = reference.run(design, inputs_)
+    ref = reference.run(design, stream)
 
     n = min(c_out.size, m.out.size)
     diff = np.flatnonzero(c_out[:n] != m.out[:n])
@@ -229,7 +229,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
         "min_margin_bits": min(r.margin_bits for r in design.certificate),
     }
     return VerifyResult(
-        name=design.name, scheme=design.scheme, variant=design.budget.variant, seconds=seconds, seed=seed, inputs=int(inputs_.size),
+        name=design.name, scheme=design.scheme, variant=design.budget.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
         bit_exact=(mismatches == 0 and counters_match), samples=int(n), mismatches=mismatches,
         first_mismatch=first, counters_match=counters_match,
         sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),

@@ -8,7 +8,7 @@ import subprocess
 import pytest
 
 import edgetally
-from edgetally.emit import api, emit
+from edgetally.emit import api, emit, isr_names
 from edgetally.hostbuild import STRICT_FLAGS
 
 from conftest import EXAMPLE_FILES
@@ -66,7 +66,7 @@ def test_no_division_in_the_isrs(emitted):
     """The functions an interrupt calls, and the queue they share, neither divide nor multiply."""
     d, _, files = emitted
     src = files[f"{d.name}.c"]
-    isrs = [f.proto.split("(")[0].split()[-1] for f in api(d) if "_isr(" in f.proto]
+    isrs = isr_names(d)
     assert isrs
     for name in isrs + [f"{d.name}_queue"]:
         body = _body(src, name)
