@@ -59,9 +59,15 @@ def api(design: Design) -> list[Function]:
                  "The tuning offset: DC of the frequency estimate, in the units the header gives."),
         Function(f"uint32_t {p}_saturation_count(const {st})", "Internal data nodes that saturated so far."),
         Function(f"uint32_t {p}_clip_count(const {st})", "Output samples clipped to the output range so far."),
-        Function(f"uint32_t {p}_gap_count(const {st})", "Grid instants with no carrier so far."),
-        Function(f"uint32_t {p}_clamp_count(const {st})", "Grid steps clamped to the legal range so far."),
-        Function(f"uint32_t {p}_overrun_count(const {st})", "Inputs lost because the queue was full."),
+        Function(f"uint32_t {p}_gap_count(const {st})",
+                 "Grid instants with no carrier so far (gaps, lost inputs and the resync after each: muted)."),
+        Function(f"uint32_t {p}_clamp_count(const {st})",
+                 "Grid steps outside the range this carrier can make so far (noise, spurious edges: muted)."),
+        Function(f"uint32_t {p}_overrun_count(const {st})",
+                 "Losses so far: inputs dropped because the queue was full, and calls of inputs_lost."),
+        Function(f"void {p}_inputs_lost({st})",
+                 "Inputs were lost before the next one (e.g. a DMA overrun): the interval across the loss is "
+                 "taken as a gap. Call from the context that calls process()."),
     ]
     return fns
 

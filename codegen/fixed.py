@@ -191,7 +191,7 @@ def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width
     d_max = max(centre, y_max - centre)
     u_b = min(u_limit, rshr(d_max * mult, shift) + 1)
     regs = [
-        reg("front.step", in_bits, x_limit, "clamped to [0, x_limit] whatever the edges do"),
+        reg("front.step", in_bits, x_limit, "in [x_low, x_limit], or the centre step, whatever the edges do"),
         reg("cic.output", cic_width, y_max, "integrators wrap by design (Hogenauer 1981); the output cannot"),
         reg("scale.product", 64, d_max * mult, "|y - centre| * mult"),
         reg("scale.out", f.data_bits, u_b, "saturated at the data limit"),

@@ -86,9 +86,11 @@ class HostDemod:
                 "saturations": int(self._fn("saturation_count")(st)), "clips": int(self._fn("clip_count")(st)),
                 "offset": int(self._fn("offset")(st))}
 
-    def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024) -> tuple[np.ndarray, dict]:
+    def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024,
+                lost=None) -> tuple[np.ndarray, dict]:
         """Feed the inputs (stamps or counts) in blocks of ``block`` through <name>_process,
-        collecting every output. Returns (outputs as int16, final counters)."""
+        collecting every output; before each index in ``lost`` (inputs lost there, as after a DMA
+        overrun) a block ends and <name>_inputs_lost is called. Returns (outputs, final counters)."""
         ffi = self.ffi
         st = self.new_state()
         proc = self._fn("process")
@@ -98,8 +100,12 @@ class HostDemod:
         produced = ffi.new("size_t *")
         chunks = []
         ctype = f"{self.design.name}_input_t *"
-        for start in range(0, inputs.size, block):
-            blk = inputs[start:start + block]
+        lost_set = {int(i) for i in (lost if lost is not None else ())}
+        breaks = sorted(lost_set | set(range(0, inputs.size, block)))
+        for start, stop in zip(breaks, breaks[1:] + [inputs.size]):
+            if start in lost_set:
+                self._fn("inputs_lost")(st)
+            blk = inputs[start:stop]
             base = ffi.cast(ctype, ffi.from_buffer(blk))
             done = 0
             while done < blk.size:
@@ -107,10 +113,12 @@ class HostDemod:
                 chunks.append(out[:produced[0]].copy())
         return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)
 
-    def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64) -> tuple[np.ndarray, dict]:
+    def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64,
+                    stall: tuple[int, int] | None = None) -> tuple[np.ndarray, dict]:
         """Drive the design's ISR functions as the hardware would, one input at a time (for an
         edge-counting interrupt design the inputs are counts: the edge ISR is called once per new
-        edge before each tick), calling <name>_service every ``service_every`` inputs. Slow: one
+        edge before each tick), calling <name>_service after every ``service_every`` inputs, except
+        after inputs a..b-1 (0-based) when ``stall`` = (a, b): a late service loop. Slow: one
         foreign call per input; for tests of the ISR path."""
         d = self.design
         st = self.new_state()
@@ -125,6 +133,9 @@ class HostDemod:
                 if n < out_cap:
                     return
 
+        def due(k: int) -> bool:              # k: inputs so far
+            return k % service_every == 0 and not (stall and stall[0] < k <= stall[1])
+
         if d.scheme == "interrupt" and d.front.kind == "count":
             edge, tick = self._fn("edge_isr"), self._fn("tick_isr")
             mask = (1 << d.front.counter_bits) - 1
@@ -136,13 +147,13 @@ class HostDemod:
                 for _ in range(step):
                     edge(st)
                 tick(st)
-                if k % service_every == 0:
+                if due(k):
                     drain()
         else:
             isr = getattr(self.lib, isr_names(d)[0])
             for k, v in enumerate(inputs.tolist(), 1):
                 isr(st, v)
-                if k % service_every == 0:
+                if due(k):
                     drain()
         drain()
         return np.array(res, dtype=self.sample_dtype), self.counters(st)

@@ -28,8 +28,11 @@ class StampFront:
     "cubic" also uses the stamps t0 before and t3 after, and corrects for the curvature of t(phase)
     through the four stamps (see ``edgetally.model.cubic_fraction``). The phase is
     count(t1) * 2**phase_shift + u; when D > gap_ticks no phase is formed and the step is
-    ``x_centre`` (carrier lost). The step x = wrap_s32(phase - previous phase) is clamped to
-    [0, x_limit]. The first grid instant lies ``grid_ticks`` after the first stamp ("linear") or
+    ``x_centre`` (carrier lost). The step x = wrap_s32(phase - previous phase) must lie in
+    [x_low, x_limit] (the band edges widened by the planner's over-deviation allowance); a step
+    outside is not this carrier (a noise burst, a spurious edge) and is replaced by x_centre (muted)
+    and counted. The first valid instant after a gap, or after inputs were lost, re-anchors the
+    phase and is also fed x_centre (a resync), so a gap never turns into a click. The first grid instant lies ``grid_ticks`` after the first stamp ("linear") or
     the second stamp ("cubic")."""
 
     timer_bits: int
@@ -42,6 +45,7 @@ class StampFront:
     order: str = "linear"  # "linear" or "cubic"
     delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
     max_delta: int = 0     # a stamp interval is taken as at most this (a long gap is just a gap)
+    x_low: int = 0         # smallest legal phase step per grid period
     kind: str = "stamp"
 
 
@@ -49,8 +53,10 @@ class StampFront:
 class CountFront:
     """Edge counts read at every grid instant -> count step per grid period.
 
-    x = (wrap of the count difference to counter_bits, clamped to diff_limit) << step_shift; a run of
-    more than gap_run zero differences means the carrier is lost, and the step is then x_centre."""
+    x = (wrap of the count difference to counter_bits) << step_shift when the difference lies in
+    [diff_low, diff_limit]; a difference outside is not this carrier and the step is x_centre
+    (muted, counted). A run of more than gap_run zero differences means the carrier is lost, and the
+    step is then x_centre; so it is for a difference that spans lost inputs."""
 
     counter_bits: int
     grid_ticks: int        # timer ticks per grid period (the grid timer runs at timer_hz)
@@ -60,6 +66,7 @@ class CountFront:
     x_limit: int           # diff_limit << step_shift
     x_centre: int
     prescale: int = 1
+    diff_low: int = 0      # smallest legal count difference per grid period
     kind: str = "count"
 
 

@@ -21,8 +21,8 @@ from .fixedpoint import MASK32, cubic_fraction, ratio_floor, rshr, sat, wrap_s32
 @dataclass(frozen=True)
 class ModelRun:
     out: np.ndarray          # output samples, int16 or uint16 (the output format's type)
-    gaps: int                # grid instants that fell in a gap (carrier lost)
-    clamps: int              # phase steps clamped to [0, x_limit]
+    gaps: int                # grid instants with no carrier (gaps, lost inputs, resyncs)
+    clamps: int              # steps outside the legal range, muted (fed the centre step)
     saturations: int         # internal data nodes that saturated
     clips: int               # output samples clipped to the output range
     steps: np.ndarray        # the phase step per grid instant (CIC input), int64
@@ -38,8 +38,27 @@ def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:
     return c[0] + np.concatenate(([0], np.cumsum(delta)))
 
 
-def phase_steps(design: Design, stamps: np.ndarray) -> tuple[np.ndarray, int, int]:
-    """The CIC input x[k] for every grid instant the stamps complete, with the gap and clamp counts."""
+def lost_flags(size: int, lost) -> np.ndarray:
+    """Boolean per input: True where inputs were lost just before it (the first input can have no
+    loss before it: it starts the stream)."""
+    flags = np.zeros(size, dtype=bool)
+    if lost is not None and size:
+        idx = np.asarray(lost, dtype=np.int64)
+        if idx.size and (idx.min() < 0 or idx.max() >= size):
+            raise ValueError("a lost-input index lies outside the inputs")
+        flags[idx] = True
+        flags[0] = False
+    return flags
+
+
+def in_range(step: np.ndarray, low: int, high: int) -> np.ndarray:
+    """True where a step is one this carrier can make."""
+    return (step >= low) & (step <= high)
+
+
+def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
+    """The CIC input x[k] for every grid instant the stamps complete, with the gap and
+    out-of-range counts. ``lost``: indices of stamps that follow lost stamps (see ``run``)."""
     fr = design.front
     t = unwrap(stamps, fr.timer_bits, fr.max_delta)
     cubic = fr.order == "cubic"
@@ -51,7 +70,22 @@ def phase_steps(design: Design, stamps: np.ndarray) -> tuple[np.ndarray, int, in
     g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
     i = np.searchsorted(t, g, side="right")                # the stamp after each instant
     t1, d = t[i - 1], t[i] - t[i - 1]
+    lostf = lost_flags(t.size, lost)
     gap = d > fr.gap_ticks
+    if cubic:
+        # the four stamps of an instant span the intervals ending at stamps i-1, i and i+1
+        gap |= lostf[i - 1] | lostf[i] | lostf[i + 1]
+        proc = i + 1                                       # the stamp whose arrival computes the instant
+    else:
+        gap |= lostf[i]
+        proc = i
+    # a resync: the first valid instant after a gap instant, or after a lost stamp consumed since
+    # the previous instant was computed (stamps proc[k-1] .. proc[k] - 1)
+    cum = np.cumsum(lostf)
+    prev_proc = np.concatenate(([1], proc[:-1]))
+    lost_between = cum[proc - 1] - cum[prev_proc - 1] > 0
+    prev_gap = np.concatenate(([False], gap[:-1]))
+    resync = ~gap & (prev_gap | lost_between)
     safe_d = np.where(gap, 1, d)
     e1 = np.where(gap, 0, g - t1)
     if cubic:
@@ -62,10 +96,11 @@ def phase_steps(design: Design, stamps: np.ndarray) -> tuple[np.ndarray, int, in
     p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
     p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
     step = wrap_s32(np.diff(np.concatenate(([p_start], p))))
-    clamped = sat(step, 0, fr.x_limit)
-    clamps = int(np.count_nonzero((clamped != step) & ~gap))
-    x = np.where(gap, fr.x_centre, clamped)
-    return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
+    ok = in_range(step, fr.x_low, fr.x_limit)
+    muted = gap | resync | ~ok
+    clamps = int(np.count_nonzero(~ok & ~gap & ~resync))
+    x = np.where(muted, fr.x_centre, step)
+    return x.astype(np.int64), int(np.count_nonzero(gap | resync)), clamps
 
 
 def zero_run_gaps(d: np.ndarray, gap_run: int) -> np.ndarray:
@@ -76,17 +111,18 @@ def zero_run_gaps(d: np.ndarray, gap_run: int) -> np.ndarray:
     return (d == 0) & (k - last_nonzero > gap_run)
 
 
-def count_steps(design: Design, counts: np.ndarray) -> tuple[np.ndarray, int, int]:
-    """The CIC input for each count read after the first, with the gap and clamp counts."""
+def count_steps(design: Design, counts: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
+    """The CIC input for each count read after the first, with the gap and out-of-range counts.
+    ``lost``: indices of counts that follow lost counts (their difference spans the loss)."""
     fr = design.front
     c = np.asarray(counts, dtype=np.int64)
     if c.size < 2:
         return np.zeros(0, dtype=np.int64), 0, 0
     d = np.diff(c) & ((1 << fr.counter_bits) - 1)
-    gap = zero_run_gaps(d, fr.gap_run)
-    clamped = sat(d, 0, fr.diff_limit)
-    clamps = int(np.count_nonzero(clamped != d))
-    x = np.where(gap, fr.x_centre, clamped << fr.step_shift)
+    gap = zero_run_gaps(d, fr.gap_run) | lost_flags(c.size, lost)[1:]
+    ok = in_range(d, fr.diff_low, fr.diff_limit)
+    clamps = int(np.count_nonzero(~ok & ~gap))
+    x = np.where(gap | ~ok, fr.x_centre, d << fr.step_shift)
     return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
 
 
@@ -142,16 +178,39 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
     return out.astype(np.int16 if of.ctype == "int16_t" else np.uint16), sats, clips
 
 
-def front_steps(design: Design, inputs: np.ndarray) -> tuple[np.ndarray, int, int]:
+def front_steps(design: Design, inputs: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
     """The front end of the design's kind: stamps or counts -> CIC input."""
     if design.front.kind == "stamp":
-        return phase_steps(design, inputs)
-    return count_steps(design, inputs)
+        return phase_steps(design, inputs, lost)
+    return count_steps(design, inputs, lost)
 
 
-def run(design: Design, inputs: np.ndarray) -> ModelRun:
+def run(design: Design, inputs: np.ndarray, lost=None) -> ModelRun:
     """Everything the emitted C produces for this input sequence (capture stamps, or counts read
-    at each grid instant), computed independently."""
-    x, gaps, clamps = front_steps(design, inputs)
+    at each grid instant), computed independently. ``lost`` lists the indices of inputs before
+    which inputs were lost (the C is told by <name>_inputs_lost(), or finds its queue full)."""
+    x, gaps, clamps = front_steps(design, inputs, lost)
     out, sats, clips = post_chain(design, cic_decimate(design, x))
     return ModelRun(out=out, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x)
+
+
+def queue_kept(n: int, service_every: int, queue_len: int, stall: tuple[int, int] | None = None) -> np.ndarray:
+    """Which of n inputs the C's ISR queue keeps when the service loop empties it after every
+    ``service_every`` inputs (not after inputs a..b-1 when stall = (a, b)): an input that finds
+    queue_len inputs waiting is dropped. Returns a boolean mask over the inputs."""
+    keep = np.zeros(n, dtype=bool)
+    waiting = 0
+    for k in range(n):
+        if waiting < queue_len:
+            keep[k] = True
+            waiting += 1
+        done = k + 1
+        if done % service_every == 0 and not (stall and stall[0] < done <= stall[1]):
+            waiting = 0
+    return keep
+
+
+def lost_after(keep: np.ndarray) -> np.ndarray:
+    """Indices, in the kept stream, of the inputs that follow dropped ones."""
+    starts = np.flatnonzero(keep & np.concatenate(([False], ~keep[:-1])))
+    return (np.cumsum(keep) - 1)[starts]

@@ -116,6 +116,7 @@ def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: i
     if tgt.timer_bits == 16:
         gap = min(gap, 65535)
     f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
+    f_lo = max(0.0, sig.if_hz - OVERDEVIATION * sig.deviation_hz)
     growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
     low = CUBIC_MIN_SHIFT if v.order == "cubic" else MIN_PHASE_SHIFT
     for shift in range(min(MAX_PHASE_SHIFT, REG_BITS - gap.bit_length()), low - 1, -1):
@@ -124,7 +125,8 @@ def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: i
         if in_bits + growth <= REG_BITS - 1:
             front = StampFront(
                 timer_bits=tgt.timer_bits, prescale=k, grid_ticks=grid_ticks, phase_shift=shift, gap_ticks=gap,
-                x_limit=x_limit, x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)), order=v.order,
+                x_limit=x_limit, x_low=math.floor(f_lo / k / grid_hz * (1 << shift)),
+                x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)), order=v.order,
                 delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0, max_delta=2 * gap)
             return (front, in_bits), None
     return None, "no 32-bit phase word fits this ratio"
@@ -133,7 +135,9 @@ def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: i
 def _count_front(spec: Spec, ratio: int, grid_hz: int, grid_ticks: int):
     sig, tgt = spec.signal, spec.target
     f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
+    f_lo = max(0.0, sig.if_hz - OVERDEVIATION * sig.deviation_hz)
     diff_limit = math.ceil(f_hi / grid_hz)
+    diff_low = max(0, math.floor(f_lo / grid_hz) - 1)     # one count of margin: the count's own +-1 error
     growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
     for shift in range(min(MAX_STEP_SHIFT, REG_BITS - tgt.counter_bits), -1, -1):
         x_limit = diff_limit << shift
@@ -142,7 +146,7 @@ def _count_front(spec: Spec, ratio: int, grid_hz: int, grid_ticks: int):
             front = CountFront(
                 counter_bits=tgt.counter_bits, grid_ticks=grid_ticks, step_shift=shift,
                 gap_run=math.ceil(grid_hz / (GAP_FRACTION * (sig.if_hz - sig.deviation_hz))),
-                diff_limit=diff_limit, x_limit=x_limit, x_centre=round(sig.if_hz / grid_hz * (1 << shift)))
+                diff_limit=diff_limit, diff_low=diff_low, x_limit=x_limit, x_centre=round(sig.if_hz / grid_hz * (1 << shift)))
             return (front, in_bits), None
     return None, "no 32-bit count word fits this ratio"
 
@@ -263,7 +267,11 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
     rows = _collapse_missing_hardware(rows)
     notes = list(spec.warnings)
     droop = cic.droop_db(sig.audio_hz, out.rate_hz, CIC_ORDER, chosen.option.ratio)
-    notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB (no compensation yet)")
+    lim = spec.fixed.droop_limit_db
+    notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB ("
+                 + ("flattened by a compensation FIR" if 0 < lim < droop else
+                    "within fixed.droop_limit_db" if lim > 0 else "not compensated: set fixed.droop_limit_db to flatten it")
+                 + ")")
     pr = chosen.pred
     if pr.curvature_sinad_db < pr.quant_sinad_db - 3:
         notes.append("linear interpolation (phase curvature within one stamp interval) limits quality "

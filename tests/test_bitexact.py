@@ -144,3 +144,50 @@ def test_16bit_wrap_alignment(designs, hosts):
         stamps = signals.capture(t, d.rates.timer_hz, 16, off)
         got, _ = hosts["orchard_link:auto"].process(stamps)
         np.testing.assert_array_equal(got, ref)
+
+
+def _drop(inputs: np.ndarray, rng, holes: int, longest: int) -> tuple[np.ndarray, list[int]]:
+    """Remove ``holes`` runs of 1..longest inputs at random places; returns the kept inputs and the
+    indices (in the kept stream) of the inputs that follow each hole."""
+    starts = np.sort(rng.choice(np.arange(50, inputs.size - 50), size=holes, replace=False))
+    keep = np.ones(inputs.size, dtype=bool)
+    for s0 in starts:
+        keep[s0:s0 + int(rng.integers(1, longest + 1))] = False
+    kept_index = np.cumsum(keep) - 1
+    after = sorted({int(kept_index[s0]) + 1 for s0 in starts if kept_index[s0] + 1 < keep.sum()})
+    return inputs[keep], after
+
+
+@pytest.mark.parametrize("key", IDS)
+def test_lost_inputs_bit_exact(hosts, key):
+    """Inputs dropped at random places (as by a DMA overrun) and reported through inputs_lost: the
+    C equals the model on every sample, counts the losses, and mutes across each one (no step out
+    of range is fed, nothing saturates)."""
+    d = ALL_DESIGNS[key]
+    rng = np.random.default_rng(17)
+    inputs, lost = _drop(make_inputs(d, 0.3, seed=5), rng, holes=12, longest=40)
+    want = model.run(d, inputs, lost=lost)
+    got, counters = hosts[key].process(inputs, block=997, lost=lost)
+    np.testing.assert_array_equal(got, want.out)
+    assert counters["gaps"] == want.gaps > 0 and counters["clamps"] == want.clamps
+    assert counters["overruns"] == len(lost)
+    assert want.saturations == counters["saturations"] == 0
+
+
+@pytest.mark.parametrize("key", [k for k in IDS if not ALL_DESIGNS[k].budget.dma])
+def test_queue_overflow_marks_the_loss(hosts, key):
+    """The ISR path with a service loop that runs too seldom: the queue fills, inputs are dropped,
+    and the C marks where. Its output equals the model's on the inputs that were queued, with a
+    loss before the first input queued after each overflow."""
+    d = ALL_DESIGNS[key]
+    inputs = make_inputs(d, 0.2, seed=6)
+    every = d.queue_len + d.queue_len // 2                  # service after 1.5 queues' worth of inputs
+    got, counters = hosts[key].process_isr(inputs, service_every=every)
+    # the service runs after inputs every-1, 2 every-1, ... (0-based): in each such block of
+    # inputs the queue takes the first queue_len and drops the rest
+    keep = np.arange(inputs.size) % every < d.queue_len
+    np.testing.assert_array_equal(keep, model.queue_kept(inputs.size, every, d.queue_len))
+    want = model.run(d, inputs[keep], lost=model.lost_after(keep))
+    np.testing.assert_array_equal(got, want.out)
+    assert counters["overruns"] == int(np.count_nonzero(~keep)) > 0
+    assert counters["gaps"] == want.gaps
