@@ -135,7 +135,6 @@ class TargetBuild:
 
 def _harness(design: Design) -> str:
     p, P = design.name, design.name.upper()
-    inp = input_type(design)
     fr = design.front
     if design.scheme == "timestamp":
         call = f"    {p}_capture_isr(&harness_state, ({p}_input_t)value);\n"

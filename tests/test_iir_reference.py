@@ -338,7 +338,7 @@ def test_model_post_chain_impulse_matches_sosfilt(design):
     # as a float one-pole (scipy.signal.lfilter, as reference.py writes it:
     # dc[n+1] = dc[n] + (u[n] - dc[n]) 2^-dc_shift), then scipy.signal.sosfilt of the quantised rows,
     # then the output format's exact power-of-two scaling.
-    sc, of, flt = design.scale, design.output, design.filters
+    sc, of = design.scale, design.output
     k = ((1 << sc.q) << sc.shift) // sc.mult          # CIC units giving ~one full-scale deviation
     n = 400
     y = np.full(n, sc.centre, dtype=np.int64)
