@@ -9,8 +9,10 @@ but left out of the SINAD figures.
 
 from __future__ import annotations
 
+import tempfile
 import time
 from dataclasses import asdict, dataclass
+from pathlib import Path
 from typing import Callable
 
 import numpy as np
@@ -74,15 +76,26 @@ def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None 
     times = signals.edge_times(sig, duration)
     if cnr_db is not None:
         times = signals.add_jitter(times, sig, cnr_db, rng)
+    return hardware_inputs(design, times, duration, rng)
+
+
+def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.random.Generator,
+                    start: int | None = None) -> np.ndarray:
+    """What the design's hardware delivers for these IF edge times (s) over ``duration`` seconds:
+    capture stamps of every prescale-th edge, software stamps read by an edge interrupt (with its
+    latency), or counts read at each grid instant. The timer's or counter's start value is
+    ``start``, or drawn from ``rng`` (an edge-counting interrupt starts at 0 unless given)."""
     fr, b = design.front, design.budget
     if fr.kind == "count":
-        offset = 0 if design.scheme == "interrupt" else int(rng.integers(0, 1 << fr.counter_bits))
-        return signals.counts_at(times, design.rates.grid_hz, duration, fr.counter_bits, offset)
-    offset = int(rng.integers(0, 1 << fr.timer_bits))
+        if start is None:
+            start = 0 if design.scheme == "interrupt" else int(rng.integers(0, 1 << fr.counter_bits))
+        return signals.counts_at(times, design.rates.grid_hz, duration, fr.counter_bits, start)
+    if start is None:
+        start = int(rng.integers(0, 1 << fr.timer_bits))
     if design.scheme == "interrupt":
         return signals.software_stamps(times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2,
-                                       b.irq_jitter_cycles, rng, offset)
-    return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, offset)
+                                       b.irq_jitter_cycles, rng, start)
+    return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, start)
 
 
 def test_vectors(design: Design, seconds: float = 0.05, seed: int = DEFAULT_SEED):
@@ -124,24 +137,34 @@ def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_
 
 TARGET_CORES = ("cortex-m0plus", "cortex-m4")
 TARGET_SECONDS = 0.1
+BENCH_SECONDS = 0.15       # inputs for the per-output-sample comparison with the float baseline
 
 
 def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARGET_SECONDS) -> dict:
     """The same C cross-compiled for each ARM core (-Os) and run in the Thumb emulator on the
-    first ``seconds`` of the standard test: bit-exact against the model, and the measured cycles
-    per event (estimates from instruction counts, see edgetally.target). Empty when the cross
+    first ``seconds`` of the standard test: bit-exact against the model, the measured cycles per
+    event (estimates from instruction counts, see edgetally.target), and cycles per output sample
+    against the hand-written float baseline (edgetally.float_baseline). Empty when the cross
     compiler or the emulator is not installed."""
     from . import target
 
     if target.toolchain() is None or not target.emulator_available():
         return {}
+    from . import float_baseline
+
     inputs = make_inputs(design, seconds, seed)
     want = model.run(design, inputs)
+    bench = make_inputs(design, BENCH_SECONDS, seed)
+    if bench.size < float_baseline.WARM + float_baseline.N:
+        bench = make_inputs(design, BENCH_SECONDS * 4, seed)
     out = {}
     for core in TARGET_CORES:
         b = target.cross_build(design, core, "-Os")
         r = target.run(b, design, inputs)
         c = target.measure(b, design, inputs)
+        _, int_cycles, _ = float_baseline.per_output(b, bench)
+        with tempfile.TemporaryDirectory(prefix="edgetally-float-") as wd:
+            _, flt_cycles, _ = float_baseline.per_output(float_baseline.float_build(design, core, Path(wd)), bench)
         out[core] = {
             "bit_exact": bool(np.array_equal(r.outputs, want.out)),
             "samples": int(r.outputs.size),
@@ -150,6 +173,10 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
             "cycles_per_output": c.cycles_per_output, "flash_bytes": b.flash_demod + b.flash_runtime,
             "state_bytes": b.ram_state, "stack_bytes": c.stack_bytes, "cycle_method": c.method,
             "isr_cycles_with_entry": dict(c.isr_cycles_with_entry),
+            # a whole process run divided by its outputs, for the emitted C and the hand-written
+            # double-precision baseline alike (edgetally.float_baseline)
+            "cycles_per_output_sample": round(int_cycles, 1), "float_cycles_per_output_sample": round(flt_cycles, 1),
+            "float_ratio": round(flt_cycles / int_cycles, 2),
         }
         out[core]["load_fraction"] = measured_load(design, out[core])
     return out

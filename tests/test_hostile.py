@@ -1,0 +1,110 @@
+"""Hostile conditions (issue: signal loss, noise bursts, timer wrap at every alignment, lost
+inputs, a frequency step): each scenario runs the emitted C and the integer model on the disturbed
+input. What must hold: equal on every sample, no overflow, the status the C must raise, output
+muted or held rather than garbage, and recovery within the time the plan predicts (the bound of
+edgetally.recovery, from the chain's impulse response made with scipy.signal)."""
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from edgetally import hostbuild, hostile, model, recovery
+
+from conftest import ALL_DESIGNS
+
+IDS = sorted(ALL_DESIGNS)
+# A counter read more often than the lowest IF frequency's edge rate makes legal zero counts: a
+# signal loss or a noise burst cannot be told from the carrier for gap_run instants. These forced
+# designs are not any example's choice; their report says so (checked below).
+LIMITED = {k for k in IDS if ALL_DESIGNS[k].front.kind == "count" and ALL_DESIGNS[k].front.diff_low == 0}
+
+
+@pytest.fixture(scope="module")
+def hosts():
+    return {}
+
+
+def _host(hosts, key):
+    if key not in hosts:
+        hosts[key] = hostbuild.build(ALL_DESIGNS[key])
+    return hosts[key]
+
+
+@pytest.mark.parametrize("key", IDS)
+def test_every_scenario_passes(hosts, key):
+    d = ALL_DESIGNS[key]
+    results = hostile.run_all(d, _host(hosts, key))
+    assert [r.name for r in results] == list(hostile.SCENARIOS)
+    for r in results:
+        # bit-exact and no overflow hold on every design and every scenario, limited or not
+        assert r.bit_exact, (key, r.name)
+        assert r.overflow_free, (key, r.name)
+        assert r.flag_raised, (key, r.name, r.flag)
+        if key in LIMITED and r.name in ("signal-loss", "noise-burst") and not r.output_ok:
+            assert "small counts are legal" in r.output_note
+            continue
+        assert r.passed, (key, r.name, r.output_note, r.recovery_ms, r.predicted_recovery_ms)
+
+
+def test_limited_counter_designs_exist_and_are_forced_only():
+    """The limitation above concerns forced schemes only: no example's own choice has it."""
+    assert LIMITED and not any(k.endswith(":auto") for k in LIMITED)
+
+
+def test_loss_mutes_long_enough_disturbances(hosts):
+    """A counter design keeps reading counts through a loss: its output is muted (within 2 % of
+    full scale once the chain has forgotten the tone) and the carrier-lost count rises."""
+    key = "bench_counter:auto"
+    r = hostile.run_scenario(ALL_DESIGNS[key], "signal-loss", _host(hosts, key), hostile.Options(loss_ms=40))
+    assert r.passed and r.output_note.startswith("muted")
+
+
+def test_an_unflagged_burst_fails_the_scenario(hosts):
+    """The check can fail: with the legal step range opened to everything, a noise burst is taken
+    as signal; no out-of-range flag is raised and the scenario fails (the C and the model still
+    agree: they share the rule)."""
+    d = ALL_DESIGNS["campus_fm:auto"]
+    blind = dataclasses.replace(d, front=dataclasses.replace(d.front, x_low=0, x_limit=(1 << 31) - 1))
+    r = hostile.run_scenario(blind, "noise-burst", hostbuild.build(blind))
+    assert r.bit_exact and not r.flag_raised and not r.passed
+
+
+def test_timer_wrap_output_is_independent_of_the_start_value(hosts):
+    """Every alignment of the wrap gives the same output as the model's: checked directly on a
+    16-bit timer at every offset of the wrap within one stamp interval (not only at stamps)."""
+    from edgetally.verify import hardware_inputs
+    from edgetally import signals, schemes
+
+    key = "tiny_irq:auto"
+    d = ALL_DESIGNS[key]
+    rng = np.random.default_rng(3)
+    sig = signals.test_tone(d.if_hz, d.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+    times = signals.edge_times(sig, 0.15)
+    base = hardware_inputs(d, times, 0.15, np.random.default_rng(9), start=0)
+    want = model.run(d, base).out
+    host = _host(hosts, key)
+    j = 1000                                              # wrap between inputs j-1 and j, at each tick
+    span = int(base[j]) - int(base[j - 1])
+    for k in range(0, span + 1, max(1, span // 40)):
+        start = (-(int(base[j - 1]) + k)) % (1 << 16)
+        got, _ = host.process(hardware_inputs(d, times, 0.15, np.random.default_rng(9), start=start))
+        np.testing.assert_array_equal(got, want)
+
+
+def test_recovery_bound_is_a_bound_of_the_chain():
+    """The predicted recovery comes from the chain's impulse response: the tail sum bound is
+    non-increasing, the chain has unit DC gain (its taps are normalised; scipy.signal.sosfilt of
+    the designed sections, whose DC gain is 1 by design), and a larger error takes no less time."""
+    d = ALL_DESIGNS["campus_fm:auto"]
+    h = recovery.chain_impulse(d)
+    # the sections' DC gain: scipy.signal.sosfreqz at 0 (droop FIR and de-emphasis included)
+    from scipy import signal
+
+    sos = np.array([list(s.float_sos) for s in d.filters.sections])
+    _, g0 = signal.sosfreqz(sos, worN=[0.0], fs=d.rates.out_hz)
+    assert abs(h.sum() - abs(g0[0])) < 1e-6
+    a = recovery.predicted_recovery_s(d, 1.0, 0.01)
+    b = recovery.predicted_recovery_s(d, 4.0, 0.01)
+    c = recovery.predicted_recovery_s(d, 4.0, 0.001)
+    assert 0 < a <= b <= c
