@@ -12,7 +12,7 @@ import sys
 import traceback
 from pathlib import Path
 
-from . import __version__
+from . import __version__, cli_quality
 from .spec import Spec, SpecError, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
@@ -20,6 +20,8 @@ from .spec import Spec, SpecError, load_spec
 
 EXIT_OK, EXIT_FAIL, EXIT_SPEC = 0, 1, 2
 SCHEME_NAMES = ("timestamp", "interrupt", "counter")   # edgetally.planner.SCHEMES, without importing scipy
+SWEEP_KINDS = ("cnr", "tone", "deviation", "offset")    # edgetally.sweeps.KINDS
+SCENARIO_NAMES = ("signal-loss", "noise-burst", "timer-wrap", "inputs-lost", "frequency-step")  # edgetally.hostile
 
 
 class UsageError(Exception):
@@ -73,6 +75,25 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--no-target", action="store_true",
                    help="skip the cross-compiled runs in the Thumb emulator (done when arm-none-eabi-gcc and "
                         "unicorn are installed)")
+    p.add_argument("--sweep", action="append", default=[], choices=SWEEP_KINDS,
+                   help="also sweep one quantity, every point checked bit for bit: IF carrier-to-noise ratio "
+                        "(cnr, dB), tone frequency (tone, Hz), peak deviation (deviation, Hz) or carrier offset "
+                        "from the IF (offset, Hz); repeatable")
+    p.add_argument("--points", default=None, metavar="V1,V2,...",
+                   help="the swept values for --sweep (default: a range fitted to the spec)")
+    p.add_argument("--scenario", action="append", default=[], choices=(*SCENARIO_NAMES, "all"),
+                   help="also run a hostile condition through the C and the model; repeatable, or 'all'")
+    p.add_argument("--loss-ms", type=float, default=20.0, help="signal-loss scenario: no edges for this long (default 20)")
+    p.add_argument("--burst-ms", type=float, default=2.0, help="noise-burst scenario: its length (default 2)")
+
+    p = sub.add_parser("report", help="write one HTML page (plots inline) and WAV files: plan, chain, response, "
+                                      "sweeps, hostile conditions, budget")
+    _add_scheme_args(p)
+    p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
+    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--seconds", type=float, default=1.0, help="length of the standard test signal (default 1)")
+    p.add_argument("--seed", type=int, default=None, help="random seed of the test signals (default fixed)")
+    p.add_argument("--no-target", action="store_true", help="leave out the emulated target runs")
     return ap
 
 
@@ -232,19 +253,35 @@ def cmd_emit(args) -> int:
 def cmd_verify(args) -> int:
     from .verify import DEFAULT_SEED, verify  # numpy/cffi work only for this command
 
-    if not (args.seconds > 0 and math.isfinite(args.seconds)) or args.seconds > 600:
-        raise UsageError(f"--seconds {args.seconds}: must be a number of seconds in (0, 600]")
+    _check_seconds(args.seconds)
+    for opt, v in (("--loss-ms", args.loss_ms), ("--burst-ms", args.burst_ms)):
+        if not (math.isfinite(v) and 0 < v <= 1000):
+            raise UsageError(f"{opt} {v:g}: must be a time in (0, 1000] ms")
+    points = cli_quality.parse_points(args.points)
+    if points is not None and not args.sweep:
+        raise UsageError("--points needs --sweep")
     spec = load_spec(args.spec)
     _warn(spec)
     from .build import design as make_design
 
     d = make_design(spec, scheme=args.scheme)
+    for kind in args.sweep:
+        cli_quality.check_points(d, kind, points)
     tty = sys.stderr.isatty() and not args.json
     progress = (lambda m: print(f"edgetally: {m} ...", file=sys.stderr)) if tty else None
-    res = verify(d, seconds=args.seconds, seed=DEFAULT_SEED if args.seed is None else args.seed, progress=progress,
-                 targets=not args.no_target)
+    seed = DEFAULT_SEED if args.seed is None else args.seed
+    res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target)
+    host = None
+    if args.sweep or args.scenario:
+        from .hostbuild import build
+        from .hostile import Options
+
+        host = build(d)
+    sw = cli_quality.run_sweeps(d, args.sweep, points, seed, host, tty)
+    hs = cli_quality.run_scenarios(d, args.scenario, Options(args.loss_ms, args.burst_ms, seed=seed), host, tty) \
+        if args.scenario else []
     if args.json:
-        print(json.dumps(_json_safe(res.to_dict()), indent=2))
+        print(json.dumps(_json_safe({**res.to_dict(), **cli_quality.json_extra(sw, hs)}), indent=2))
     else:
         verdict = "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
         print(f"edgetally verify '{res.name}' ({res.scheme}, {res.variant}), {res.seconds:g} s of signal, "
@@ -266,10 +303,33 @@ def cmd_verify(args) -> int:
                       f"{'bit-exact' if t['bit_exact'] else 'DIFFERS'}; cycles: {t['cycles_per_edge_isr']:g}/edge ISR, "
                       f"{t['cycles_per_input']:g}/input, {t['cycles_per_grid']:g}/grid instant, "
                       f"{t['cycles_per_output']:g}/output; flash {t['flash_bytes']} B, state {t['state_bytes']} B")
+                print(f"    per output sample: {t['cycles_per_output_sample']:g} cycles, hand-written double-precision "
+                      f"baseline {t['float_cycles_per_output_sample']:g}: {t['float_ratio']:.1f}x fewer")
         else:
             print("  target runs: skipped (needs arm-none-eabi-gcc and the unicorn and pyelftools packages)")
-    ok = res.bit_exact and res.target_bit_exact is not False
+        for s in sw:
+            cli_quality.print_sweep(s)
+        if hs:
+            cli_quality.print_scenarios(hs)
+    ok = (res.bit_exact and res.target_bit_exact is not False and all(s.bit_exact for s in sw)
+          and all(h.passed for h in hs))
     return EXIT_OK if ok else EXIT_FAIL
+
+
+def _check_seconds(seconds: float) -> None:
+    if not (seconds > 0 and math.isfinite(seconds)) or seconds > 600:
+        raise UsageError(f"--seconds {seconds}: must be a number of seconds in (0, 600]")
+
+
+def cmd_report(args) -> int:
+    _check_seconds(args.seconds)
+    spec = load_spec(args.spec)
+    _warn(spec)
+    from .build import design as make_design
+    from .planner import plan
+
+    pl = plan(spec, scheme=args.scheme)
+    return cli_quality.cmd_report(args, spec, make_design(spec, pl), pl)
 
 
 def cmd_widths(args) -> int:
@@ -310,7 +370,8 @@ def cmd_widths(args) -> int:
 def main(argv: list[str] | None = None) -> int:
     ap = _parser()
     args = ap.parse_args(argv)
-    handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify, "widths": cmd_widths}[args.command]
+    handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify, "widths": cmd_widths,
+               "report": cmd_report}[args.command]
     try:
         return handler(args)
     except SpecError as e:
@@ -318,7 +379,7 @@ def main(argv: list[str] | None = None) -> int:
             traceback.print_exc()
         print(f"edgetally: spec error in {getattr(args, 'spec', '?')}: {e}", file=sys.stderr)
         return EXIT_SPEC
-    except UsageError as e:
+    except (UsageError, cli_quality.ArgError) as e:
         print(f"edgetally: error: {e}", file=sys.stderr)
         return EXIT_SPEC
     except KeyboardInterrupt:

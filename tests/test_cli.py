@@ -38,7 +38,8 @@ def _tree(folder: Path) -> dict[str, bytes]:
 def runs(tmp_path_factory):
     """Independent CLI runs, started side by side: {run id: CompletedProcess}, plus the emit folders."""
     base = tmp_path_factory.mktemp("cli")
-    folders = {"a": base / "a", "b": base / "b" / "nested", "campus": base / "campus"}
+    folders = {"a": base / "a", "b": base / "b" / "nested", "campus": base / "campus", "report": base / "report"}
+    (base / "plain-file").write_text("not a folder\n")
     jobs = {
         "emit-a": ["emit", ORCHARD, "-o", folders["a"]],
         "emit-b": ["emit", ORCHARD, "-o", folders["b"]],
@@ -50,6 +51,14 @@ def runs(tmp_path_factory):
         "seconds--1": ["verify", ORCHARD, "--seconds", "-1"],
         "unknown-command": ["frobnicate", ORCHARD],
         "version": ["--version"],
+        "verify-more": ["verify", ORCHARD, "--json", "--seconds", "0.3", "--no-target", "--sweep", "tone",
+                        "--points", "300,1000", "--scenario", "signal-loss", "--scenario", "inputs-lost"],
+        "points-bad": ["verify", ORCHARD, "--no-target", "--sweep", "tone", "--points", "300,1e9"],
+        "points-text": ["verify", ORCHARD, "--no-target", "--sweep", "cnr", "--points", "ten"],
+        "points-alone": ["verify", ORCHARD, "--no-target", "--points", "1,2"],
+        "loss-bad": ["verify", ORCHARD, "--no-target", "--scenario", "signal-loss", "--loss-ms", "-5"],
+        "report": ["report", ORCHARD, "-o", folders["report"], "--no-target", "--seconds", "0.3"],
+        "report-to-file": ["report", ORCHARD, "-o", base / "plain-file", "--no-target"],
     }
     with ThreadPoolExecutor(max_workers=max(2, os.cpu_count() or 2)) as pool:
         futures = {rid: pool.submit(_cli, *args) for rid, args in jobs.items()}
@@ -187,6 +196,41 @@ def test_verify_refuses_bad_seconds(runs, run, shown):
     assert "Traceback" not in r.stderr
     lines = r.stderr.splitlines()
     assert len(lines) == 1 and "--seconds" in lines[0] and shown in lines[0], r.stderr
+
+
+def test_verify_json_carries_sweeps_and_scenarios(runs):
+    r = runs["verify-more"]
+    assert r.returncode == 0, r.stderr
+    res = json.loads(r.stdout)
+    assert res["bit_exact"] is True
+    (sw,) = res["sweeps"]
+    assert sw["kind"] == "tone" and [p["x"] for p in sw["points"]] == [300.0, 1000.0]
+    assert all(p["bit_exact"] for p in sw["points"])
+    assert [h["name"] for h in res["scenarios"]] == ["signal-loss", "inputs-lost"]
+    assert all(h["passed"] for h in res["scenarios"])
+
+
+@pytest.mark.parametrize("run, shown", [("points-bad", "1e+09"), ("points-text", "ten"), ("points-alone", "--sweep"),
+                                        ("loss-bad", "--loss-ms"), ("report-to-file", "not a folder")])
+def test_bad_measurement_options_exit_2_with_one_line(runs, run, shown):
+    r = runs[run]
+    assert r.returncode == 2, r.stderr
+    assert "Traceback" not in r.stderr
+    lines = r.stderr.splitlines()
+    assert len(lines) == 1 and shown in lines[0], r.stderr
+
+
+def test_report_writes_the_page_and_the_wavs(runs):
+    r = runs["report"]
+    assert r.returncode == 0, r.stderr
+    folder = runs["folders"]["report"]
+    names = {p.name for p in folder.iterdir()}
+    assert names == {"orchard_report.html", "orchard_tone.wav", "orchard_two_tone.wav", "orchard_sweep.wav"}
+    page = (folder / "orchard_report.html").read_text(encoding="utf-8")
+    for section in ("Plan", "Chain", "Sweeps", "Hostile conditions", "Listening"):
+        assert f">{section}<" in page
+    assert "all passed" in r.stdout and r.stdout.count("written: ") == 4
+    assert r.stderr == ""            # not a terminal: no progress bar
 
 
 # --- arguments ----------------------------------------------------------------------------------
