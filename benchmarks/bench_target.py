@@ -8,7 +8,7 @@ For every example's chosen design and each core: instructions and estimated cycl
 sample (a whole <name>_process run over 3072 inputs after 1024 inputs of warm-up, divided by the
 outputs), flash (code + constants + the libgcc helpers pulled in) and RAM (state), for both
 versions, and the ratio. Cycles come from edgetally.target's per-class table (from memory of the
-cores' published instruction timings; see target.CYCLES), so they are estimates. Needs
+cores' published instruction timings; see target_cycles.CYCLES), so they are estimates. Needs
 arm-none-eabi-gcc, unicorn, pyelftools (capstone for the class table).
 """
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 from importlib import resources
 from pathlib import Path
 
-from . import target
+from . import target, target_cycles
 from .ir import Design
 
 WARM, N = 1024, 3072
@@ -65,5 +65,5 @@ def per_output(build, x) -> tuple[float, float, int]:
         m.write("harness_in", x[:WARM + N])
         m.call("harness_process", 0, WARM)
 
-    insns, cycles, produced = target.total_cycles(build, "harness_process", WARM, N, setup=setup)
+    insns, cycles, produced = target_cycles.total_cycles(build, "harness_process", WARM, N, setup=setup)
     return insns / produced, cycles / produced, produced

@@ -146,7 +146,7 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     event (estimates from instruction counts, see edgetally.target), and cycles per output sample
     against the hand-written float baseline (edgetally.float_baseline). Empty when the cross
     compiler or the emulator is not installed."""
-    from . import target
+    from . import target, target_cycles, target_run
 
     if target.toolchain() is None or not target.emulator_available():
         return {}
@@ -160,8 +160,8 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     out = {}
     for core in TARGET_CORES:
         b = target.cross_build(design, core, "-Os")
-        r = target.run(b, design, inputs)
-        c = target.measure(b, design, inputs)
+        r = target_run.run(b, design, inputs)
+        c = target_cycles.measure(b, design, inputs)
         _, int_cycles, _ = float_baseline.per_output(b, bench)
         with tempfile.TemporaryDirectory(prefix="edgetally-float-") as wd:
             _, flt_cycles, _ = float_baseline.per_output(float_baseline.float_build(design, core, Path(wd)), bench)

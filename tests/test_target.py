@@ -11,7 +11,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 import pytest
 
-from edgetally import model, target
+from edgetally import model, target, target_cycles, target_run
 from edgetally.verify import make_inputs
 
 from conftest import ALL_DESIGNS, EXAMPLES
@@ -63,7 +63,7 @@ def _model(key, seconds, seed):
     return _MODEL[(key, seconds, seed)]
 
 
-def _assert_equal(got: target.TargetRun, want: model.ModelRun):
+def _assert_equal(got: target_run.TargetRun, want: model.ModelRun):
     assert got.outputs.dtype == want.out.dtype
     assert got.outputs.size == want.out.size > 0
     np.testing.assert_array_equal(got.outputs, want.out)
@@ -92,7 +92,7 @@ def test_target_equals_model(builds, key, core):
     """Block path (<name>_process in blocks of 4096): every sample and the counters."""
     d = ALL_DESIGNS[key]
     x, want = _model(key, 0.05, 1)
-    got = target.run(_get(builds, key, core), d, x)
+    got = target_run.run(_get(builds, key, core), d, x)
     _assert_equal(got, want)
     assert got.counters["overruns"] == 0
 
@@ -102,7 +102,7 @@ def test_target_equals_model(builds, key, core):
 def test_o2_build_equals_model(builds, key, core):
     d = ALL_DESIGNS[key]
     x, want = _model(key, 0.05, 1)
-    _assert_equal(target.run(_get(builds, key, core, "-O2"), d, x, block=997), want)
+    _assert_equal(target_run.run(_get(builds, key, core, "-O2"), d, x, block=997), want)
 
 
 @pytest.mark.parametrize("core", CORES)
@@ -111,7 +111,7 @@ def test_isr_path_equals_model(builds, key, core):
     """The scheme's ISR function(s) per input, <name>_service every quarter queue."""
     d = ALL_DESIGNS[key]
     x, want = _model(key, 0.02, 5)
-    got = target.run(_get(builds, key, core), d, x, isr=True)
+    got = target_run.run(_get(builds, key, core), d, x, isr=True)
     _assert_equal(got, want)
     assert got.counters["overruns"] == 0
 
@@ -121,9 +121,9 @@ def test_isr_path_equals_model(builds, key, core):
 def test_measure_plausible(builds, key, core):
     d = ALL_DESIGNS[key]
     x, _ = _model(key, 0.05, 1)
-    c = target.measure(_get(builds, key, core), d, x)
+    c = target_cycles.measure(_get(builds, key, core), d, x)
     assert c.inputs > 1000 and c.grid_instants > 0 and c.outputs > 10
-    assert set(c.isr_instr) == set(target.isr_functions(d))
+    assert set(c.isr_instr) == set(target_cycles.isr_functions(d))
     for name, n in c.isr_instr.items():
         assert 3 <= n < 60, name
         assert c.isr_cycles[name] >= n and c.isr_cycles_with_entry[name] > c.isr_cycles[name]
@@ -141,8 +141,8 @@ def test_cores_differ_where_expected(builds):
     key = "campus_fm:timestamp"
     d = ALL_DESIGNS[key]
     x, _ = _model(key, 0.05, 1)
-    m0 = target.measure(_get(builds, key, "cortex-m0plus"), d, x)
-    m4 = target.measure(_get(builds, key, "cortex-m4"), d, x)
+    m0 = target_cycles.measure(_get(builds, key, "cortex-m0plus"), d, x)
+    m4 = target_cycles.measure(_get(builds, key, "cortex-m4"), d, x)
     assert m0.instr_per_output > m4.instr_per_output
     assert m0.instr_per_input > m4.instr_per_input
 
