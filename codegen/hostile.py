@@ -5,7 +5,14 @@ output muted or held rather than garbage, and recovery within the predicted time
 
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass
+from typing import Callable
+
+import numpy as np
+
+from . import model, recovery, schemes, signals
+from .ir import Design
 
 
 @dataclass(frozen=True)
@@ -35,14 +42,6 @@ class ScenarioResult:
         d["passed"] = self.passed
         return d
 
-
-import math  # noqa: E402  (the result type above is imported by the report without numpy work)
-from typing import Callable  # noqa: E402
-
-import numpy as np  # noqa: E402
-
-from . import model, recovery, schemes, signals  # noqa: E402
-from .ir import Design  # noqa: E402
 
 SCENARIOS = ("signal-loss", "noise-burst", "timer-wrap", "inputs-lost", "frequency-step")
 LEAD_S = 0.1              # filters settle (as verify's standard test)
@@ -158,10 +157,11 @@ def _case_step(design: Design, opt: Options, post: float) -> _Case:
     up at LEAD_S + PRE_S and held. Phase is continuous; the edges are where it crosses an integer."""
     t0 = LEAD_S + PRE_S
     total = t0 + post
-    low = int(round(t0 / STEP_HOLD_S)) % 2 == 0             # so that the level before t0 is the low one
-    knots = np.append(np.arange(0.0, t0, STEP_HOLD_S), t0)
-    freqs = [design.if_hz + (-1 if (k % 2 == 0) == low else 1) * STEP_LEVEL * design.full_scale_hz
-             for k in range(knots.size - 1)] + [design.if_hz + STEP_LEVEL * design.full_scale_hz]
+    knots = np.append(np.arange(0.0, t0 - STEP_HOLD_S / 2, STEP_HOLD_S), t0)
+    n_seg = knots.size - 1
+    # levels alternate so that the last one before t0 is low and the one after it high
+    freqs = [design.if_hz + (-1 if (n_seg - 1 - k) % 2 == 0 else 1) * STEP_LEVEL * design.full_scale_hz
+             for k in range(n_seg)] + [design.if_hz + STEP_LEVEL * design.full_scale_hz]
     bounds = np.append(knots, total)
     ph = 0.37                                                # start phase (cycles), arbitrary
     times = []
@@ -250,10 +250,12 @@ def _output_check(design: Design, name: str, y, n_start: int, n_end: int, counte
     ok = counters["clips"] == 0 and (case.step or worst <= schemes.TEST_LEVEL + 0.1)
     peak = STEP_LEVEL if case.step else schemes.TEST_LEVEL
     n = n_end - n_start
+    # the chain's memory of the tone: after it a muted output must be within MUTE_FS of silence
+    mem = round(recovery.predicted_recovery_s(design, peak, MUTE_FS) * design.rates.out_hz)
     if name == "signal-loss" and n < 4:
         note = (f"held: {n} samples while no edges came (a stamp design makes no grid instants without "
                 f"edges), then resynced; peak {worst:.3f} FS")
-    elif n > (mem := round(recovery.predicted_recovery_s(design, peak, MUTE_FS) * design.rates.out_hz)) and not case.step:
+    elif not case.step and n > mem:
         quiet = float(np.max(np.abs(y[n_start + mem:n_end])))
         ok = ok and quiet <= MUTE_FS
         note = (f"muted: |out| <= {quiet:.4f} FS from {mem / design.rates.out_hz * 1000:.2f} ms into the "
@@ -294,7 +296,8 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
                                        f"{len(places)} inputs spread over the run)",
         bit_exact=exact and same, overflow_free=c0["saturations"] == 0, flag="none",
         flag_raised=c0["gaps"] == 0 and c0["clamps"] == 0, output_ok=same,
-        output_note="identical to the run without a wrap on every sample" if same else "differs from the run without a wrap",
+        output_note=("identical to the run without a wrap on every sample" if same
+                     else "differs from the run without a wrap"),
         recovery_ms=0.0, predicted_recovery_ms=0.0)
 
 

@@ -4,7 +4,14 @@ against the integer model before any figure is taken from it."""
 
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from . import ifsim, metrics, model, reference, response, schemes, signals
+from .ir import Design
 
 KINDS = ("cnr", "tone", "deviation", "offset")
 
@@ -39,14 +46,6 @@ class Sweep:
     def to_dict(self) -> dict:
         return asdict(self)
 
-
-import math  # noqa: E402  (the result types above are imported by the report without numpy work)
-from typing import Callable  # noqa: E402
-
-import numpy as np  # noqa: E402
-
-from . import ifsim, metrics, model, reference, response, schemes, signals  # noqa: E402
-from .ir import Design  # noqa: E402
 
 LEAD_S = 0.1               # filters and the offset tracker settle; compared bit for bit, not measured
 SECONDS = 0.3              # measured stretch per point

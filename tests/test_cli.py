@@ -186,6 +186,15 @@ def test_verify_json_is_bit_exact(runs):
     assert res["mismatches"] == 0
     assert isinstance(res["samples"], int) and not isinstance(res["samples"], bool)
     assert res["samples"] > 0
+    from edgetally import target
+
+    if target.toolchain() is not None and target.emulator_available():
+        # issue 6: the cycle figures and the ratio against the hand-written float chain are in
+        # verify's output, for both cores
+        assert set(res["target"]) == {"cortex-m0plus", "cortex-m4"} and res["target_bit_exact"] is True
+        for t in res["target"].values():
+            assert 0 < t["cycles_per_output_sample"] < t["float_cycles_per_output_sample"]
+            assert t["float_ratio"] == round(t["float_cycles_per_output_sample"] / t["cycles_per_output_sample"], 2)
 
 
 @pytest.mark.parametrize("run, shown", [("seconds-0", "0"), ("seconds--1", "-1")], ids=["zero", "negative"])
