@@ -5,7 +5,7 @@ libgcc), both cross-compiled at -Os and run in the same instruction emulator.
     python benchmarks/bench_target.py
 
 For every example's chosen design and each core: instructions and estimated cycles per output
-sample (a whole <name>_process run over 3072 inputs after 1024 inputs of warm-up, divided by the
+sample (a whole <name>_process run over N = 3072 inputs after WARM = 1024 inputs of warm-up, divided by the
 outputs), flash (code + constants + the libgcc helpers pulled in) and RAM (state), for both
 versions, and the ratio. Cycles come from edgetally.target's per-class table (from memory of the
 cores' published instruction timings; see target_cycles.CYCLES), so they are estimates. Needs
@@ -19,7 +19,7 @@ from pathlib import Path
 
 import edgetally
 from edgetally import target
-from edgetally.float_baseline import float_build, per_output
+from edgetally.float_baseline import N, WARM, float_build, per_output
 from edgetally.target import CORE_FLAGS
 from edgetally.verify import make_inputs
 
@@ -45,7 +45,8 @@ def main() -> None:
     print("-" * len(hdr))
     for path in sorted(EXAMPLES.glob("*.toml")):
         d = edgetally.design(edgetally.load_spec(path))
-        x = make_inputs(d, 0.05, seed=1)
+        x = make_inputs(d, 0.3, seed=1)          # at least WARM + N inputs for every example
+        assert x.size >= WARM + N, (path.stem, x.size)
         for core in sorted(CORE_FLAGS):
             ib = target.cross_build(d, core, workdir=root / f"{path.stem}-{core}-int")
             fb = float_build(d, core, root / f"{path.stem}-{core}-float")

@@ -306,6 +306,13 @@ def _budget_section(ctx: ReportContext) -> str:
                           "-" if lf is None else f"{lf:.1%}",
                           *(_e(t.get(k, "-")) for k in ("flash_bytes", "state_bytes", "stack_bytes", "cycle_method"))])
         parts += ["<h3>Measured on the target instruction set (emulated)</h3>", _table(head, trows)]
+        ratios = [(core, t) for core, t in ctx.target.items() if t.get("float_ratio")]
+        if ratios:
+            parts.append("<p>Against a hand-written double-precision version of the same chain, built for the same "
+                         "core and run in the same emulator (cycles per output sample over a whole block): "
+                         + "; ".join(f"{_e(core)} {t['cycles_per_output_sample']:g} against "
+                                     f"{t['float_cycles_per_output_sample']:g}, {t['float_ratio']:.1f}x fewer"
+                                     for core, t in ratios) + ".</p>")
     else:
         parts.append("<p>Target figures: not measured (needs the cross compiler and the emulator).</p>")
     return "\n".join(parts)

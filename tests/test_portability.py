@@ -23,9 +23,11 @@ IN_CI = os.environ.get("CI") == "true"      # .ci/run installs every tool used h
 
 DRIVER = r"""
 #include <stdio.h>
+#include <stdlib.h>
 #include "{p}.h"
-/* driver IN OUT: IN holds one little-endian uint32 per input; OUT gets one output per line, then
- * a line "counters gaps clamps saturations clips". */
+/* driver IN OUT [LOSE]: IN holds one little-endian uint32 per input; OUT gets one output per line,
+ * then a line "counters gaps clamps saturations clips". Blocks are 333 inputs; before every block
+ * k with k % 7 == 3 that starts below input LOSE (default 0) it reports lost inputs. */
 static {p}_state_t s;
 static {p}_sample_t out[64];
 int main(int argc, char **argv)
@@ -34,7 +36,8 @@ int main(int argc, char **argv)
     unsigned char b[4];
     {p}_input_t blk[333];
     size_t n = 0u, i, produced;
-    if (argc != 3) {{ return 2; }}
+    unsigned long nb = 0u, lose = argc > 3 ? strtoul(argv[3], NULL, 10) : 0u;
+    if (argc != 3 && argc != 4) {{ return 2; }}
     fi = fopen(argv[1], "rb");
     fo = fopen(argv[2], "w");
     if (fi == NULL || fo == NULL) {{ return 2; }}
@@ -47,6 +50,10 @@ int main(int argc, char **argv)
         }}
         if (n == 333u || (!more && n > 0u)) {{
             size_t done = 0u;
+            if (nb % 7u == 3u && nb * 333u < lose) {{
+                {p}_inputs_lost(&s);
+            }}
+            nb++;
             while (done < n) {{
                 done += {p}_process(&s, &blk[done], n - done, out, 64u, &produced);
                 for (i = 0u; i < produced; i++) {{ fprintf(fo, "%ld\n", (long)out[i]); }}
@@ -70,15 +77,20 @@ def _write_c(d, folder):
     (folder / "driver.c").write_text(DRIVER.format(p=d.name))
 
 
-def _build_and_run(d, folder, cc, flags, inputs, env=None):
+def _lost(n: int, lose: int) -> list[int]:
+    """The inputs the driver reports a loss before: block starts 333 k, k % 7 == 3, below lose."""
+    return [333 * k for k in range(3, (n + 332) // 333, 7) if 333 * k < min(n, lose)]
+
+
+def _build_and_run(d, folder, cc, flags, inputs, env=None, lose=0):
     exe = folder / f"drv-{cc}"
     cmd = [cc, *STRICT_FLAGS, "-Wno-error=unused-result", *flags, "-o", str(exe), str(folder / "driver.c"),
            str(folder / f"{d.name}.c")]
     r = subprocess.run(cmd, capture_output=True, text=True)
     assert r.returncode == 0, r.stderr
     np.asarray(inputs, dtype="<u4").tofile(folder / "in.bin")
-    r = subprocess.run([str(exe), str(folder / "in.bin"), str(folder / "out.txt")], capture_output=True, text=True,
-                       env=env, timeout=600)
+    r = subprocess.run([str(exe), str(folder / "in.bin"), str(folder / "out.txt"), str(lose)], capture_output=True,
+                       text=True, env=env, timeout=600)
     lines = (folder / "out.txt").read_text().splitlines()
     counters = [int(v) for v in lines[-1].split()[1:]]
     return r, np.array([int(v) for v in lines[:-1]], dtype=np.int64), counters
@@ -98,9 +110,11 @@ def test_32bit_host_build_is_bit_exact(tmp_path, key):
     d = ALL_DESIGNS[key]
     _write_c(d, tmp_path)
     inputs = make_inputs(d, 0.1, seed=6)
-    r, got, counters = _build_and_run(d, tmp_path, "gcc", ["-m32", "-O2"], inputs)
+    lose = inputs.size // 2                     # losses reported in the first half (inputs_lost)
+    r, got, counters = _build_and_run(d, tmp_path, "gcc", ["-m32", "-O2"], inputs, lose=lose)
     assert r.returncode == 0, r.stderr
-    want = model.run(d, inputs)
+    assert _lost(inputs.size, lose)
+    want = model.run(d, inputs, lost=_lost(inputs.size, lose))
     np.testing.assert_array_equal(got, want.out.astype(np.int64))
     assert counters == [want.gaps, want.clamps, want.saturations, want.clips]
 
@@ -162,7 +176,9 @@ def test_sanitizers_on_a_million_hostile_events(tmp_path, cc, key):
         clean_shifted = (clean.astype(np.int64) - int(clean[0]) + int(storm[-1])) & ((1 << d.front.counter_bits) - 1)
     env = dict(os.environ, UBSAN_OPTIONS="halt_on_error=1:print_stacktrace=1", ASAN_OPTIONS="detect_leaks=0")
     flags = ["-O1", "-g", "-fsanitize=undefined,address", "-fno-sanitize-recover=all", "-fno-omit-frame-pointer"]
-    r, got, counters = _build_and_run(d, tmp_path, cc, flags, np.concatenate([storm, clean_shifted]), env=env)
+    # losses are reported through the storm (inputs_lost under the sanitizers too), not after it
+    r, got, counters = _build_and_run(d, tmp_path, cc, flags, np.concatenate([storm, clean_shifted]), env=env,
+                                      lose=storm.size)
     assert r.returncode == 0 and "runtime error" not in r.stderr and "ERROR" not in r.stderr, r.stderr[-2000:]
     assert counters[2] == 0                                          # saturations: the certificate
     tail = int(0.3 * d.rates.out_hz)
