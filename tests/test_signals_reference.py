@@ -209,3 +209,21 @@ def test_bessel_line_amplitudes(beta):
     line_bins = {(c + k * step) % x.size for k in range(-128, 128)}
     others = np.array([i for i in range(x.size) if i not in line_bins])
     assert np.max(np.abs(x[others])) < AMP_TOL
+
+
+def test_edge_solver_converges_on_a_long_fast_if():
+    """A 1.5 MHz IF for 2.2 s reaches 3.3e6 cycles, where a double's own rounding of the phase is
+    about 5e-10 cycles: the solver must still converge (its tolerance follows that rounding), and
+    every edge must sit where the phase, computed independently in long double arithmetic
+    (numpy.longdouble: 64-bit mantissa on x86; on a platform where it is a plain double the bound
+    below still holds with the double's rounding), crosses its integer: within 1e-7 cycles, which
+    is 7e-14 s at this IF, far below a 48 MHz timer tick."""
+    sig = signals.FmSignal(1.5e6, (signals.Tone(1000.0, 350e3, 0.3),), start_phase=0.25)
+    t = signals.edge_times(sig, 2.2)
+    assert t.size == int(np.floor(sig.phase(2.2))) - int(np.ceil(sig.phase(0.0))) + 1
+    k = np.arange(0, t.size, 104729)                   # a spread of edges
+    tl = t[k].astype(np.longdouble)
+    w = 2 * np.pi * np.longdouble(1000.0)
+    ph = (np.longdouble(0.25) + np.longdouble(1.5e6) * tl
+          + np.longdouble(350e3) / w * (np.cos(np.longdouble(0.3)) - np.cos(w * tl + np.longdouble(0.3))))
+    assert np.max(np.abs(ph - np.round(ph))) < 1e-7
