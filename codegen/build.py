@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from fractions import Fraction
 
 from . import __version__, cic, fixed, iir, schemes
-from .ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale
+from .ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
 from .planner import REG_BITS, Plan, plan
 from .spec import Spec, SpecError
 
@@ -96,7 +96,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     ov = dict(overrides or {})
     names = [ov.pop("arith")] if "arith" in ov else (["narrow", "wide"] if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
-    out_bits = 16 if spec.output.format == "s16" else int(spec.output.format[1:])
+    out_bits = output_bits(spec.output.format)
     opts = []
     for name in names:
         a = fixed.ARITHS[name]

@@ -80,15 +80,10 @@ class _Case:
     step: bool = False            # the undisturbed model is a step, not the tone
 
 
-def _fs(design: Design, y: np.ndarray) -> np.ndarray:
-    """Output codes -> fractions of full-scale deviation."""
-    bits = 16 if design.output.format == "s16" else int(design.output.format[1:])
-    return (y.astype(np.float64) - design.output.mid) / 2.0 ** (bits - 1)
-
-
 def _edges(design: Design, seconds: float, rng: np.random.Generator) -> np.ndarray:
-    sig = signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
-    return signals.edge_times(sig, seconds)
+    from .verify import standard_signal
+
+    return signals.edge_times(standard_signal(design, rng), seconds)
 
 
 def _first_input_at(design: Design, times: np.ndarray, t: float) -> int:
@@ -216,7 +211,7 @@ def run_scenario(design: Design, name: str, host=None, options: Options = Option
                  and counters["gaps"] == want.gaps and counters["clamps"] == want.clamps)
     before = lambda j: model.run(design, case.inputs[:j], lost=[i for i in case.lost if i < j]).out.size  # noqa: E731
     n_start, n_end = before(case.start), before(case.end)
-    y = _fs(design, got)
+    y = design.output.fraction(got)
     fit_from = n_end + int(round((pred + GUARD_S) * design.rates.out_hz))
     basis = recovery.step_basis(y.size, n_end, design.scale.dc_shift)
     if not case.step:

@@ -143,6 +143,21 @@ class OutputFormat:
     hi: int
     ctype: str                         # "int16_t" or "uint16_t"
 
+    @property
+    def bits(self) -> int:
+        return output_bits(self.format)
+
+    def fraction(self, codes):
+        """Output codes -> fractions of full-scale deviation (floats)."""
+        import numpy as np
+
+        return (np.asarray(codes, dtype=np.float64) - self.mid) / 2.0 ** (self.bits - 1)
+
+
+def output_bits(fmt: str) -> int:
+    """Width of an output format's code: 16 for "s16", N for "uN"."""
+    return 16 if fmt == "s16" else int(fmt[1:])
+
 
 @dataclass(frozen=True)
 class Register:

@@ -31,7 +31,7 @@ from scipy.io import wavfile
 
 from . import hostbuild, schemes, signals
 from .ir import Design
-from .verify import DEFAULT_SEED, LEAD_S, make_inputs
+from .verify import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
 
 # Two-tone: 700 Hz and 1900 Hz in a 3 kHz voice band (common practice, no source: two tones not in
 # a simple ratio, well inside the band), scaled down with a narrower audio band.
@@ -124,7 +124,7 @@ def band_top_hz(design: Design) -> float:
 
 def test_tone_signal(design: Design, rng: np.random.Generator) -> signals.FmSignal:
     """The standard test tone, as verify makes it (same draws from ``rng``)."""
-    return signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+    return standard_signal(design, rng)
 
 
 def two_tone_signal(design: Design, rng: np.random.Generator) -> signals.FmSignal:

@@ -59,5 +59,4 @@ def run(design: Design, inputs: np.ndarray) -> np.ndarray:
     alpha = 2.0 ** -design.scale.dc_shift
     dc = signal.lfilter([0.0, alpha], [1.0, alpha - 1.0], u)
     v = signal.sosfilt(np.array([list(s.float_sos) for s in design.filters.sections]), u - dc)
-    bits = 16 if design.output.format == "s16" else int(design.output.format[1:])
-    return v * 2.0 ** (bits - 1) + design.output.mid
+    return v * 2.0 ** (design.output.bits - 1) + design.output.mid

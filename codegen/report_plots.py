@@ -65,8 +65,7 @@ def response_plot(d: Design) -> str:
 def tone_spectrum(design: Design, samples: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(frequencies, level in dBFS) of output samples, Hann-windowed: a full-scale sine reads 0 dB
     at its bin (amplitude scaled by the window's sum)."""
-    bits = 16 if design.output.format == "s16" else int(design.output.format[1:])
-    x = (np.asarray(samples, dtype=float) - design.output.mid) / 2.0 ** (bits - 1)
+    x = design.output.fraction(samples)
     w = np.hanning(x.size)
     amp = 2 * np.abs(np.fft.rfft(x * w)) / np.sum(w)
     return np.fft.rfftfreq(x.size, 1 / design.rates.out_hz), floor_db(amp)

@@ -67,11 +67,6 @@ def default_points(design: Design, kind: str) -> list[float]:
     raise ValueError(f"sweep {kind!r}: expected one of {', '.join(KINDS)}")
 
 
-def _fs(design: Design, y: np.ndarray) -> np.ndarray:
-    bits = 16 if design.output.format == "s16" else int(design.output.format[1:])
-    return (np.asarray(y, dtype=np.float64) - design.output.mid) / 2.0 ** (bits - 1)
-
-
 def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
              predicted: float | None) -> SweepPoint:
     """Run the C and the model on the inputs, check them bit for bit, measure the C and the float
@@ -84,9 +79,9 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
     fs = design.rates.out_hz
     skip = int(round(LEAD_S * fs))
     band = (schemes.BAND_LOW_HZ, design.audio_hz)
-    y = _fs(design, got[skip:])
+    y = design.output.fraction(got[skip:])
     a = metrics.tone_analysis(y, fs, tone_hz, *band, harmonics=HARMONICS)
-    flt = metrics.sinad_db(_fs(design, ref[skip:]), fs, tone_hz, *band)
+    flt = metrics.sinad_db(design.output.fraction(ref[skip:]), fs, tone_hz, *band)
     return SweepPoint(
         x=float(x), bit_exact=exact, sinad_db=round(a.sinad_db, 2), float_sinad_db=round(flt, 2),
         snr_db=round(a.snr_db, 2), thd_db=round(a.thd_db, 2), level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),

@@ -71,12 +71,17 @@ def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None 
     ``sig``): capture stamps, software stamps from an edge interrupt, or counts per grid instant."""
     rng = np.random.default_rng(seed)
     if sig is None:
-        sig = signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+        sig = standard_signal(design, rng)
     duration = LEAD_S + seconds
     times = signals.edge_times(sig, duration)
     if cnr_db is not None:
         times = signals.add_jitter(times, sig, cnr_db, rng)
     return hardware_inputs(design, times, duration, rng)
+
+
+def standard_signal(design: Design, rng: np.random.Generator) -> signals.FmSignal:
+    """The standard test tone for this design (its start and modulation phases drawn from rng)."""
+    return signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
 
 
 def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.random.Generator,
