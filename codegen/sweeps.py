@@ -67,6 +67,24 @@ def default_points(design: Design, kind: str) -> list[float]:
     raise ValueError(f"sweep {kind!r}: expected one of {', '.join(KINDS)}")
 
 
+def check_points(design: Design, kind: str, pts: list[float] | None) -> None:
+    """Refuse swept values the simulator cannot make: ValueError naming the value and the range."""
+    if pts is None:
+        return
+    for v in pts:
+        if not math.isfinite(v):
+            raise ValueError(f"{v}: must be finite")
+        if kind == "tone" and not 0 < v < design.rates.out_hz / 2:
+            raise ValueError(f"{v:g}: a tone frequency must lie in (0, {design.rates.out_hz / 2:g}) Hz")
+        if kind == "deviation" and not 0 < v < 0.95 * design.if_hz:
+            raise ValueError(f"{v:g}: a deviation must lie in (0, {0.95 * design.if_hz:g}) Hz (below the IF)")
+        if kind == "offset" and not abs(v) + design.full_scale_hz < design.if_hz:
+            raise ValueError(f"{v:g}: |offset| + full-scale deviation must stay below the IF "
+                             f"({design.if_hz - design.full_scale_hz:g} Hz at most)")
+        if kind == "cnr" and not -20 <= v <= 100:
+            raise ValueError(f"{v:g}: a CNR must lie in [-20, 100] dB")
+
+
 def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
              predicted: float | None) -> SweepPoint:
     """Run the C and the model on the inputs, check them bit for bit, measure the C and the float
@@ -127,6 +145,7 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
 
     if kind not in KINDS:
         raise ValueError(f"sweep {kind!r}: expected one of {', '.join(KINDS)}")
+    check_points(design, kind, points)
     xs = list(points) if points is not None else default_points(design, kind)
     host = host or hostbuild.build(design)
     tone, level = schemes.TEST_TONE_HZ, schemes.TEST_LEVEL

@@ -97,6 +97,11 @@ def test_every_kind_has_default_points_and_bad_kinds_are_refused():
         assert len(pts) >= 5
     with pytest.raises(ValueError, match="expected one of"):
         sweeps.run_sweep(d, "bogus")
+    # values the simulator cannot make are refused by the API, naming the value and the range
+    with pytest.raises(ValueError, match=r"25000: a deviation must lie in \(0, 19000\) Hz"):
+        sweeps.run_sweep(d, "deviation", [1000.0, 25000.0])
+    with pytest.raises(ValueError, match="tone frequency"):
+        sweeps.run_sweep(d, "tone", [5000.0])
     # the deviation sweep goes past the spec'd maximum, as the issue asks
     assert max(sweeps.default_points(d, "deviation")) > d.full_scale_hz
 
