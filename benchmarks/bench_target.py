@@ -19,9 +19,8 @@ from pathlib import Path
 
 import edgetally
 from edgetally import target
-from edgetally.float_baseline import N, WARM, float_build, per_output
+from edgetally.float_baseline import bench_inputs, float_build, per_output
 from edgetally.target import CORE_FLAGS
-from edgetally.verify import make_inputs
 
 HERE = Path(__file__).resolve().parent
 EXAMPLES = HERE.parent / "examples"
@@ -45,8 +44,7 @@ def main() -> None:
     print("-" * len(hdr))
     for path in sorted(EXAMPLES.glob("*.toml")):
         d = edgetally.design(edgetally.load_spec(path))
-        x = make_inputs(d, 0.3, seed=1)          # at least WARM + N inputs for every example
-        assert x.size >= WARM + N, (path.stem, x.size)
+        x = bench_inputs(d, seed=1)
         for core in sorted(CORE_FLAGS):
             ib = target.cross_build(d, core, workdir=root / f"{path.stem}-{core}-int")
             fb = float_build(d, core, root / f"{path.stem}-{core}-float")

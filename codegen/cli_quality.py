@@ -87,47 +87,29 @@ def print_scenarios(results) -> None:
 
 
 def cmd_report(args, spec, design, plan_obj) -> int:
-    """Everything the report shows, then the files. Returns the exit status."""
-    from . import hostbuild, hostile, report, sweeps
-    from .verify import DEFAULT_SEED, verify
+    """Make the report (edgetally.report_make), write its files, print one summary line."""
+    from . import report_make
+    from .verify import DEFAULT_SEED
 
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise ArgError(f"-o {out}: exists and is not a folder")
     seed = DEFAULT_SEED if args.seed is None else args.seed
-    tty = sys.stderr.isatty()
-    host = hostbuild.build(design)
-    n_sweep = sum(len(sweeps.default_points(design, k)) for k in sweeps.KINDS)
-    total = 1 + n_sweep + len(hostile.SCENARIOS) + 1
-    with Progress(total, f"report '{design.name}'", tty) as bar:
-        bar.note("verify" + ("" if args.no_target else " (with the emulated target cores)"))
-        res = verify(design, seconds=args.seconds, seed=seed, targets=not args.no_target)
-        bar.step()
-        sw = []
-        for kind in sweeps.KINDS:
-            bar.note(f"sweep {kind}")
-            sw.append(sweeps.run_sweep(design, kind, seed=seed, host=host, progress=lambda _d, _t: bar.step()))
-        hs = []
-        for name in hostile.SCENARIOS:
-            bar.note(name)
-            hs.append(hostile.run_scenario(design, name, host, hostile.Options(seed=seed)))
-            bar.step()
-        bar.note("listening files and the page")
-        files = report.report_files(spec, plan_obj, design, res, tuple(sw), tuple(hs), seed=seed, host=host)
-        bar.step()
-    clashes = [n for n, data in files.items() if (out / n).exists() and (out / n).read_bytes() != data]
+    with Progress(report_make.steps(design), f"report '{design.name}'", sys.stderr.isatty()) as bar:
+        made = report_make.make(spec, plan_obj, design, seconds=args.seconds, seed=seed, targets=not args.no_target,
+                                progress=bar)
+    clashes = [n for n, data in made.files.items() if (out / n).exists() and (out / n).read_bytes() != data]
     if clashes and not args.force:
         raise ArgError(f"-o {out}: {', '.join(clashes)} exist with other content; use --force to overwrite")
     out.mkdir(parents=True, exist_ok=True)
-    for n, data in files.items():
+    for n, data in made.files.items():
         (out / n).write_bytes(data)
         print(f"written: {out / n}")
-    ok = res.bit_exact and all(s.bit_exact for s in sw) and all(h.passed for h in hs)
-    failed = [h.name for h in hs if not h.passed]
+    res, failed = made.verify, made.failed_scenarios
     print(f"report '{design.name}': emitted C {'bit-exact' if res.bit_exact else 'NOT bit-exact'}, "
-          f"SINAD {res.sinad_db:.2f} dB, sweeps {'bit-exact' if all(s.bit_exact for s in sw) else 'NOT bit-exact'}, "
+          f"SINAD {res.sinad_db:.2f} dB, sweeps {'bit-exact' if made.sweeps_bit_exact else 'NOT bit-exact'}, "
           f"hostile scenarios {'all passed' if not failed else 'failed: ' + ', '.join(failed)}")
-    return 0 if ok else 1
+    return 0 if made.ok else 1
 
 
 def json_extra(sweeps_done, scenarios_done) -> dict:

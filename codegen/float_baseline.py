@@ -13,10 +13,24 @@ from __future__ import annotations
 from importlib import resources
 from pathlib import Path
 
+import numpy as np
+
 from . import target, target_cycles
 from .ir import Design
 
 WARM, N = 1024, 3072
+
+
+def bench_inputs(design: Design, seed: int) -> np.ndarray:
+    """Standard-test inputs, at least WARM + N of them (the slowest example needs about 0.2 s)."""
+    from .verify import make_inputs
+
+    seconds = 0.15
+    while True:
+        x = make_inputs(design, seconds, seed)
+        if x.size >= WARM + N:
+            return x
+        seconds *= 2
 
 
 def source() -> str:

@@ -22,6 +22,7 @@ import numpy as np
 
 from .ir import Design
 from .emit import api, emit, input_type, isr_names
+from .model import service_due
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 OPT_FLAGS = ["-O2"]
@@ -134,7 +135,7 @@ class HostDemod:
                     return
 
         def due(k: int) -> bool:              # k: inputs so far
-            return k % service_every == 0 and not (stall and stall[0] < k <= stall[1])
+            return service_due(k, service_every, stall)
 
         if d.scheme == "interrupt" and d.front.kind == "count":
             edge, tick = self._fn("edge_isr"), self._fn("tick_isr")

@@ -194,6 +194,12 @@ def run(design: Design, inputs: np.ndarray, lost=None) -> ModelRun:
     return ModelRun(out=out, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x)
 
 
+def service_due(done: int, service_every: int, stall: tuple[int, int] | None = None) -> bool:
+    """Whether the service loop runs after ``done`` inputs: after every ``service_every`` of them,
+    except after inputs a..b-1 (0-based) when stall = (a, b), a late service loop."""
+    return done % service_every == 0 and not (stall and stall[0] < done <= stall[1])
+
+
 def queue_kept(n: int, service_every: int, queue_len: int, stall: tuple[int, int] | None = None) -> np.ndarray:
     """Which of n inputs the C's ISR queue keeps when the service loop empties it after every
     ``service_every`` inputs (not after inputs a..b-1 when stall = (a, b)): an input that finds
@@ -204,8 +210,7 @@ def queue_kept(n: int, service_every: int, queue_len: int, stall: tuple[int, int
         if waiting < queue_len:
             keep[k] = True
             waiting += 1
-        done = k + 1
-        if done % service_every == 0 and not (stall and stall[0] < done <= stall[1]):
+        if service_due(k + 1, service_every, stall):
             waiting = 0
     return keep
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import html
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -38,9 +38,13 @@ class ReportContext:
     tone_out: np.ndarray
     sweeps: tuple = ()                              # edgetally.sweeps.Sweep
     hostile: tuple = ()                             # edgetally.hostile.ScenarioResult
-    target: dict = field(default_factory=dict)      # VerifyResult.target: per core figures
     wav_names: tuple[str, ...] = ()
     wav_captions: tuple[str, ...] = ()
+
+    @property
+    def target(self) -> dict:
+        """The emulated per-core figures of the verify result (empty when not run)."""
+        return dict(self.verify.target or {})
 
 
 # ---------------------------------------------------------------------------------------------
@@ -419,7 +423,7 @@ def report_files(spec: Spec, plan: Plan, design: Design, result: VerifyResult, s
     listening signals through the emitted C (``seconds`` each); writes nothing."""
     made = listen.clips(design, seconds=seconds, seed=seed, host=host)
     ctx = ReportContext(spec=spec, plan=plan, design=design, verify=result, tone_out=made[0].samples,
-                        sweeps=tuple(sweeps), hostile=tuple(hostile), target=dict(result.target or {}),
+                        sweeps=tuple(sweeps), hostile=tuple(hostile),
                         wav_names=tuple(c.name for c in made), wav_captions=tuple(c.caption for c in made))
     files = {report_name(design): render(ctx).encode("utf-8")}
     files.update(listen.wav_files(design, made))

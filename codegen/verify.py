@@ -142,7 +142,6 @@ def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_
 
 TARGET_CORES = ("cortex-m0plus", "cortex-m4")
 TARGET_SECONDS = 0.1
-BENCH_SECONDS = 0.15       # inputs for the per-output-sample comparison with the float baseline
 
 
 def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARGET_SECONDS) -> dict:
@@ -159,9 +158,7 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
 
     inputs = make_inputs(design, seconds, seed)
     want = model.run(design, inputs)
-    bench = make_inputs(design, BENCH_SECONDS, seed)
-    if bench.size < float_baseline.WARM + float_baseline.N:
-        bench = make_inputs(design, BENCH_SECONDS * 4, seed)
+    bench = float_baseline.bench_inputs(design, seed)
     out = {}
     for core in TARGET_CORES:
         b = target.cross_build(design, core, "-Os")

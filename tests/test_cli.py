@@ -257,3 +257,14 @@ def test_version(runs):
     assert r.returncode == 0
     assert r.stdout.strip() == f"edgetally {edgetally.__version__}"
     assert re.fullmatch(r"\d+\.\d+\.\d+\S*", edgetally.__version__)
+
+
+def test_cli_name_lists_match_the_api():
+    """The CLI keeps its own copies of these names so that a bad argument is refused before scipy
+    and numpy load; they must stay equal to the API's."""
+    from edgetally import cli, hostile, sweeps
+    from edgetally.planner import SCHEMES
+
+    assert tuple(cli.SCHEME_NAMES) == tuple(SCHEMES)
+    assert tuple(cli.SWEEP_KINDS) == tuple(sweeps.KINDS)
+    assert tuple(cli.SCENARIO_NAMES) == tuple(hostile.SCENARIOS)

@@ -86,13 +86,15 @@ def test_cross_build_strict(builds, key, core):
     assert b.ram_by_object["harness_state"] == b.ram_state
 
 
+@pytest.mark.parametrize("path, seconds, seed", [("block", 0.05, 1), ("isr", 0.02, 5)])
 @pytest.mark.parametrize("core", CORES)
 @pytest.mark.parametrize("key", IDS)
-def test_target_equals_model(builds, key, core):
-    """Block path (<name>_process in blocks of 4096): every sample and the counters."""
+def test_target_equals_model(builds, key, core, path, seconds, seed):
+    """Block path (<name>_process in blocks of 4096), and the scheme's ISR function(s) per input
+    with <name>_service every quarter queue: every sample and the counters."""
     d = ALL_DESIGNS[key]
-    x, want = _model(key, 0.05, 1)
-    got = target_run.run(_get(builds, key, core), d, x)
+    x, want = _model(key, seconds, seed)
+    got = target_run.run(_get(builds, key, core), d, x, isr=path == "isr")
     _assert_equal(got, want)
     assert got.counters["overruns"] == 0
 
@@ -103,17 +105,6 @@ def test_o2_build_equals_model(builds, key, core):
     d = ALL_DESIGNS[key]
     x, want = _model(key, 0.05, 1)
     _assert_equal(target_run.run(_get(builds, key, core, "-O2"), d, x, block=997), want)
-
-
-@pytest.mark.parametrize("core", CORES)
-@pytest.mark.parametrize("key", IDS)
-def test_isr_path_equals_model(builds, key, core):
-    """The scheme's ISR function(s) per input, <name>_service every quarter queue."""
-    d = ALL_DESIGNS[key]
-    x, want = _model(key, 0.02, 5)
-    got = target_run.run(_get(builds, key, core), d, x, isr=True)
-    _assert_equal(got, want)
-    assert got.counters["overruns"] == 0
 
 
 @pytest.mark.parametrize("core", CORES)
