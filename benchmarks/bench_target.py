@@ -18,9 +18,9 @@ import tempfile
 from pathlib import Path
 
 import edgetally
-from edgetally import target
-from edgetally.float_baseline import bench_inputs, float_build, per_output
-from edgetally.target import CORE_FLAGS
+from edgetally.target import build as target
+from edgetally.target.float_baseline import bench_inputs, float_build, per_output
+from edgetally.target.build import CORE_FLAGS
 
 HERE = Path(__file__).resolve().parent
 EXAMPLES = HERE.parent / "examples"

@@ -14,8 +14,10 @@ import time
 from pathlib import Path
 
 import edgetally
-from edgetally import hostbuild, model
-from edgetally.verify import make_inputs, verify
+from edgetally.check import hostbuild
+from edgetally.check import model
+from edgetally.stimulus.inputs import make_inputs
+from edgetally.check.verify import verify
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 

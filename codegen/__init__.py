@@ -11,12 +11,12 @@ stays fast.
 
 __version__ = "0.1.0"
 
-from .spec import Spec, SpecError, load_spec, parse_spec  # noqa: E402
+from edgetally.spec import Spec, SpecError, load_spec, parse_spec
 
 _LAZY = {
-    "Plan": ("planner", "Plan"),
-    "plan": ("planner", "plan"),
-    "design": ("build", "design"),
+    "Plan": ("planner.choose", "Plan"),
+    "plan": ("planner.choose", "plan"),
+    "design": ("designer.assemble", "design"),
     "Design": ("ir", "Design"),
 }
 

@@ -3,7 +3,7 @@ from pathlib import Path
 import pytest
 
 import edgetally
-from edgetally.planner import SCHEMES
+from edgetally.planner.choose import SCHEMES
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 EXAMPLE_FILES = sorted(EXAMPLES.glob("*.toml"))

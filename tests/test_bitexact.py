@@ -4,8 +4,11 @@ import numpy as np
 import pytest
 
 import edgetally
-from edgetally import hostbuild, model, signals
-from edgetally.verify import make_inputs, verify
+from edgetally.check import hostbuild
+from edgetally.check import model
+from edgetally.stimulus import fm as signals
+from edgetally.stimulus.inputs import make_inputs
+from edgetally.check.verify import verify
 
 from conftest import ALL_DESIGNS, EXAMPLE_FILES, EXAMPLES
 
@@ -40,7 +43,7 @@ def test_verify_acceptance(designs, name):
         # Issue 3: the narrowband timestamp design comes within 3 dB of its own quantisation
         # prediction, or the plan says which limit stopped the estimator that would (the cubic).
         if res.quant_gap_db > 3.0:
-            from edgetally.planner import plan
+            from edgetally.planner.choose import plan
 
             rows = plan(edgetally.load_spec(EXAMPLES / "orchard_link.toml")).options
             cubic = next(o for o in rows if o.variant == "k1-cubic")

@@ -21,7 +21,8 @@ import pytest
 from scipy import signal
 
 import edgetally
-from edgetally import cic, model
+from edgetally.dsp import cic
+from edgetally.check import model
 
 ROOT = Path(__file__).resolve().parents[1]
 EPS = np.finfo(float).eps

@@ -5,7 +5,7 @@ import math
 import pytest
 
 import edgetally
-from edgetally import cic
+from edgetally.dsp import cic
 from edgetally.emit import emit
 from edgetally.ir import Design
 

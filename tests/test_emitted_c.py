@@ -9,7 +9,7 @@ import pytest
 
 import edgetally
 from edgetally.emit import api, emit, isr_names
-from edgetally.hostbuild import STRICT_FLAGS
+from edgetally.check.hostbuild import STRICT_FLAGS
 
 from conftest import EXAMPLE_FILES
 

@@ -28,7 +28,11 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from edgetally import cic, fixed, metrics, model, schemes
+from edgetally.dsp import cic
+from edgetally.designer import wordlength as fixed
+from edgetally.measure import metrics
+from edgetally.check import model
+from edgetally.planner import schemes
 from edgetally.fixedpoint import rshr, sat, wrap_s32
 from edgetally.ir import Filters, Section
 

@@ -23,7 +23,7 @@ import numpy as np
 import pytest
 
 import edgetally
-from edgetally import hostbuild
+from edgetally.check import hostbuild
 from edgetally.fixedpoint import c_definitions, ratio_floor, rshr, sat, wrap_s32
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -9,7 +9,10 @@ import dataclasses
 import numpy as np
 import pytest
 
-from edgetally import hostbuild, hostile, model, recovery
+from edgetally.check import hostbuild
+from edgetally.measure import hostile
+from edgetally.check import model
+from edgetally.measure import recovery
 
 from conftest import ALL_DESIGNS
 
@@ -78,8 +81,9 @@ def test_an_unflagged_burst_fails_the_scenario(hosts):
 def test_timer_wrap_output_is_independent_of_the_start_value(hosts):
     """Every alignment of the wrap gives the same output as the model's: checked directly on a
     16-bit timer at every offset of the wrap within one stamp interval (not only at stamps)."""
-    from edgetally.verify import hardware_inputs
-    from edgetally import signals, schemes
+    from edgetally.stimulus.inputs import hardware_inputs
+    from edgetally.stimulus import fm as signals
+    from edgetally.planner import schemes
 
     key = "tiny_irq:auto"
     d = ALL_DESIGNS[key]

@@ -28,8 +28,12 @@ from scipy import signal as ssig
 from scipy import special
 
 import edgetally
-from edgetally import ifsim, metrics, reference, schemes, signals
-from edgetally.signals import FmSignal, Tone
+from edgetally.stimulus import ifnoise as ifsim
+from edgetally.measure import metrics
+from edgetally.check import reference
+from edgetally.planner import schemes
+from edgetally.stimulus import fm as signals
+from edgetally.stimulus.fm import FmSignal, Tone
 
 LEAD_S = 0.1    # filters settling, as edgetally.verify.LEAD_S
 

@@ -36,7 +36,10 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from edgetally import emit, fixed, iir, model
+from edgetally import emit
+from edgetally.designer import wordlength as fixed
+from edgetally.dsp import iir
+from edgetally.check import model
 from edgetally.fixedpoint import rshr, sat, wrap_s32
 
 EXAMPLES = ["orchard_link", "campus_fm", "bench_counter", "tiny_irq"]

@@ -44,7 +44,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from edgetally import metrics
+from edgetally.measure import metrics
 
 FS = 48000.0
 N = 48000

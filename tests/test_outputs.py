@@ -6,8 +6,13 @@ import numpy as np
 import pytest
 
 import edgetally
-from edgetally import cic, hostbuild, metrics, model, signals
-from edgetally.verify import make_inputs, verify
+from edgetally.dsp import cic
+from edgetally.check import hostbuild
+from edgetally.measure import metrics
+from edgetally.check import model
+from edgetally.stimulus import fm as signals
+from edgetally.stimulus.inputs import make_inputs
+from edgetally.check.verify import verify
 
 from conftest import EXAMPLES
 

@@ -9,10 +9,14 @@ import numpy as np
 import pytest
 
 import edgetally
-from edgetally import metrics, reference, schemes, signals
-from edgetally.planner import TIE_DB, plan
-from edgetally.schemes import Variant
-from edgetally.verify import LEAD_S, make_inputs, predict
+from edgetally.measure import metrics
+from edgetally.check import reference
+from edgetally.planner import schemes
+from edgetally.stimulus import fm as signals
+from edgetally.planner.choose import TIE_DB, plan
+from edgetally.planner.schemes import Variant
+from edgetally.stimulus.inputs import LEAD_S, make_inputs
+from edgetally.planner.schemes import predict_design as predict
 
 from conftest import ALL_DESIGNS, EXAMPLE_FILES, EXAMPLES
 

@@ -11,10 +11,12 @@ import zlib
 import numpy as np
 import pytest
 
-from edgetally import metrics, model, schemes
+from edgetally.measure import metrics
+from edgetally.check import model
+from edgetally.planner import schemes
 from edgetally.emit import emit
-from edgetally.hostbuild import STRICT_FLAGS
-from edgetally.verify import make_inputs
+from edgetally.check.hostbuild import STRICT_FLAGS
+from edgetally.stimulus.inputs import make_inputs
 
 from conftest import ALL_DESIGNS
 

@@ -1,6 +1,6 @@
 """Progress on long runs: a bar on a terminal, nothing at all otherwise."""
 
-from edgetally.progress import Progress
+from edgetally.cli.progress import Progress
 
 
 def test_bar_draws_when_enabled(capsys):

@@ -18,11 +18,13 @@ from scipy import integrate, signal
 from scipy.io import wavfile
 
 import edgetally
-from edgetally import listen, report, schemes
-from edgetally.hostile import ScenarioResult
+from edgetally.report import listen
+from edgetally.report import page as report
+from edgetally.planner import schemes
+from edgetally.measure.hostile import ScenarioResult
 from edgetally.ir import OutputFormat
-from edgetally.sweeps import Sweep, SweepPoint
-from edgetally.verify import verify
+from edgetally.measure.sweeps import Sweep, SweepPoint
+from edgetally.check.verify import verify
 
 from conftest import EXAMPLES
 
@@ -314,7 +316,7 @@ def test_real_report_of_campus_opens_in_headless_chromium(chromium, tmp_path):
     """Issue acceptance: `edgetally report examples/campus_fm.toml -o out/` (here without the
     emulated target runs, which test_target covers) writes the page and the WAVs, with real sweeps
     and hostile scenarios; the page opens in the browser with every plot decoded."""
-    from edgetally.cli import main
+    from edgetally.cli.main import main
 
     out = tmp_path / "out"
     assert main(["report", str(EXAMPLES / "campus_fm.toml"), "-o", str(out), "--no-target"]) == 0

@@ -7,7 +7,9 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from edgetally import cic, hostbuild, sweeps
+from edgetally.dsp import cic
+from edgetally.check import hostbuild
+from edgetally.measure import sweeps
 
 from conftest import ALL_DESIGNS
 

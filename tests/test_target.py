@@ -11,8 +11,11 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 import pytest
 
-from edgetally import model, target, target_cycles, target_run
-from edgetally.verify import make_inputs
+from edgetally.check import model
+from edgetally.target import build as target
+from edgetally.target import cycles as target_cycles
+from edgetally.target import run as target_run
+from edgetally.stimulus.inputs import make_inputs
 
 from conftest import ALL_DESIGNS, EXAMPLES
 

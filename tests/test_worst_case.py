@@ -5,8 +5,9 @@ in the integer model and the emitted C alike, and the two stay equal sample for 
 import numpy as np
 import pytest
 
-from edgetally import hostbuild, model
-from edgetally.verify import make_inputs
+from edgetally.check import hostbuild
+from edgetally.check import model
+from edgetally.stimulus.inputs import make_inputs
 
 from conftest import ALL_DESIGNS
 

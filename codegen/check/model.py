@@ -1,0 +1,221 @@
+"""Bit-exact integer model of a Design: the same arithmetic as the emitted C, stage by stage.
+
+Every wrap, rounding and saturation goes through ``edgetally.fixedpoint``. The stamp front end and
+the CIC are vectorised with numpy int64 (values stay far from 2**63: phase steps are below 2**31
+and each integrator is reduced modulo 2**32 before the next); the recursive filters run sample by
+sample on Python integers.
+
+Contract shared with the C: inputs are processed in order; counts are read once per grid instant. Output samples do not depend on how the inputs are split into blocks.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from edgetally.ir import Design
+from edgetally.fixedpoint import MASK32, cubic_fraction, ratio_floor, rshr, sat, wrap_s32
+
+
+@dataclass(frozen=True)
+class ModelRun:
+    out: np.ndarray          # output samples, int16 or uint16 (the output format's type)
+    gaps: int                # grid instants with no carrier (gaps, lost inputs, resyncs)
+    clamps: int              # steps outside the legal range, muted (fed the centre step)
+    saturations: int         # internal data nodes that saturated
+    clips: int               # output samples clipped to the output range
+    steps: np.ndarray        # the phase step per grid instant (CIC input), int64
+
+
+def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:
+    """Stamps -> tick times, the first stamp's value as origin (the C keeps these mod 2**32); each
+    interval is the timer difference modulo 2**timer_bits, taken as at most max_delta."""
+    c = np.asarray(stamps, dtype=np.int64)
+    if c.size == 0:
+        return c
+    delta = np.minimum(np.diff(c) & ((1 << timer_bits) - 1), max_delta)
+    return c[0] + np.concatenate(([0], np.cumsum(delta)))
+
+
+def lost_flags(size: int, lost) -> np.ndarray:
+    """Boolean per input: True where inputs were lost just before it (the first input can have no
+    loss before it: it starts the stream)."""
+    flags = np.zeros(size, dtype=bool)
+    if lost is not None and size:
+        idx = np.asarray(lost, dtype=np.int64)
+        if idx.size and (idx.min() < 0 or idx.max() >= size):
+            raise ValueError("a lost-input index lies outside the inputs")
+        flags[idx] = True
+        flags[0] = False
+    return flags
+
+
+def in_range(step: np.ndarray, low: int, high: int) -> np.ndarray:
+    """True where a step is one this carrier can make."""
+    return (step >= low) & (step <= high)
+
+
+def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
+    """The CIC input x[k] for every grid instant the stamps complete, with the gap and
+    out-of-range counts. ``lost``: indices of stamps that follow lost stamps (see ``run``)."""
+    fr = design.front
+    t = unwrap(stamps, fr.timer_bits, fr.max_delta)
+    cubic = fr.order == "cubic"
+    first = 1 if cubic else 0                              # the grid starts at this stamp
+    last = t.size - 2 if cubic else t.size - 1             # instants before this stamp are complete
+    if last <= first:
+        return np.zeros(0, dtype=np.int64), 0, 0
+    count = (t[last] - t[first] - 1) // fr.grid_ticks      # instants strictly before t[last]
+    g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
+    i = np.searchsorted(t, g, side="right")                # the stamp after each instant
+    t1, d = t[i - 1], t[i] - t[i - 1]
+    lostf = lost_flags(t.size, lost)
+    gap = d > fr.gap_ticks
+    if cubic:
+        # the four stamps of an instant span the intervals ending at stamps i-1, i and i+1
+        gap |= lostf[i - 1] | lostf[i] | lostf[i + 1]
+        proc = i + 1                                       # the stamp whose arrival computes the instant
+    else:
+        gap |= lostf[i]
+        proc = i
+    # a resync: the first valid instant after a gap instant, or after a lost stamp consumed since
+    # the previous instant was computed (stamps proc[k-1] .. proc[k] - 1)
+    cum = np.cumsum(lostf)
+    prev_proc = np.concatenate(([1], proc[:-1]))
+    lost_between = cum[proc - 1] - cum[prev_proc - 1] > 0
+    prev_gap = np.concatenate(([False], gap[:-1]))
+    resync = ~gap & (prev_gap | lost_between)
+    safe_d = np.where(gap, 1, d)
+    e1 = np.where(gap, 0, g - t1)
+    if cubic:
+        frac = cubic_fraction(e1, safe_d, np.where(gap, 1, t1 - t[i - 2]), np.where(gap, 1, t[i + 1] - t[i]),
+                              fr.phase_shift, fr.delta_limit)
+    else:
+        frac = ratio_floor(e1, fr.phase_shift, safe_d)
+    p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
+    p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
+    step = wrap_s32(np.diff(np.concatenate(([p_start], p))))
+    ok = in_range(step, fr.x_low, fr.x_limit)
+    muted = gap | resync | ~ok
+    clamps = int(np.count_nonzero(~ok & ~gap & ~resync))
+    x = np.where(muted, fr.x_centre, step)
+    return x.astype(np.int64), int(np.count_nonzero(gap | resync)), clamps
+
+
+def zero_run_gaps(d: np.ndarray, gap_run: int) -> np.ndarray:
+    """True where a count difference is zero and ends a run of more than gap_run zeros (carrier
+    lost): the C's saturating zero-run counter."""
+    k = np.arange(d.size)
+    last_nonzero = np.maximum.accumulate(np.where(d != 0, k, -1))
+    return (d == 0) & (k - last_nonzero > gap_run)
+
+
+def count_steps(design: Design, counts: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
+    """The CIC input for each count read after the first, with the gap and out-of-range counts.
+    ``lost``: indices of counts that follow lost counts (their difference spans the loss)."""
+    fr = design.front
+    c = np.asarray(counts, dtype=np.int64)
+    if c.size < 2:
+        return np.zeros(0, dtype=np.int64), 0, 0
+    d = np.diff(c) & ((1 << fr.counter_bits) - 1)
+    gap = zero_run_gaps(d, fr.gap_run) | lost_flags(c.size, lost)[1:]
+    ok = in_range(d, fr.diff_low, fr.diff_limit)
+    clamps = int(np.count_nonzero(~ok & ~gap))
+    x = np.where(gap | ~ok, fr.x_centre, d << fr.step_shift)
+    return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
+
+
+def cic_decimate(design: Design, x: np.ndarray) -> np.ndarray:
+    """Hogenauer CIC with 32-bit wrapping registers; drops the first ``order`` outputs (warm-up)."""
+    c = design.cic
+    v = x.astype(np.int64)
+    for _ in range(c.order):
+        v = np.cumsum(v) & MASK32
+    v = v[c.ratio - 1::c.ratio]
+    for _ in range(c.order):
+        v = (v - np.concatenate(([0], v[:-1]))) & MASK32
+    return v[c.order:]
+
+
+def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """Centre removal, scaling, the offset tracker, the IIR sections and the output format, one
+    sample at a time. Returns (output samples, saturations at internal nodes, clipped outputs)."""
+    sc, f, of = design.scale, design.filters, design.output
+    lim, cb = f.limit, f.coef_bits
+    raw = rshr(wrap_s32(y.astype(np.int64) - sc.centre) * sc.mult, sc.shift)
+    u_all = sat(raw, -lim, lim)
+    sats = int(np.count_nonzero(u_all != raw))
+    coefs = [(s.b0, s.b1, s.b2, s.a1, s.a2) for s in f.sections]
+    state = [[0, 0, 0, 0] for _ in coefs]
+    narrow_acc = f.acc_bits == 32
+    dc_acc = 0
+    out = np.empty(u_all.size, dtype=np.int64)
+    clips = 0
+    for n, u in enumerate(u_all.tolist()):
+        dc = rshr(dc_acc, sc.dc_shift)
+        dc_acc += u - dc
+        v = u - dc
+        if v > lim or v < -lim:
+            sats += 1
+            v = sat(v, -lim, lim)
+        for (b0, b1, b2, a1, a2), z in zip(coefs, state):
+            acc = b0 * v + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3]
+            if narrow_acc:
+                acc = wrap_s32(acc)
+            yr = rshr(acc, cb)
+            yn = sat(yr, -lim, lim)
+            sats += yn != yr
+            z[1], z[0], z[3], z[2] = z[0], v, z[2], yn
+            v = yn
+        o = v * of.lmul
+        if of.rshift:
+            o = rshr(o, of.rshift)
+        o += of.mid
+        if o < of.lo or o > of.hi:
+            clips += 1
+        out[n] = sat(o, of.lo, of.hi)
+    return out.astype(np.int16 if of.ctype == "int16_t" else np.uint16), sats, clips
+
+
+def front_steps(design: Design, inputs: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
+    """The front end of the design's kind: stamps or counts -> CIC input."""
+    if design.front.kind == "stamp":
+        return phase_steps(design, inputs, lost)
+    return count_steps(design, inputs, lost)
+
+
+def run(design: Design, inputs: np.ndarray, lost=None) -> ModelRun:
+    """Everything the emitted C produces for this input sequence (capture stamps, or counts read
+    at each grid instant), computed independently. ``lost`` lists the indices of inputs before
+    which inputs were lost (the C is told by <name>_inputs_lost(), or finds its queue full)."""
+    x, gaps, clamps = front_steps(design, inputs, lost)
+    out, sats, clips = post_chain(design, cic_decimate(design, x))
+    return ModelRun(out=out, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x)
+
+
+def service_due(done: int, service_every: int, stall: tuple[int, int] | None = None) -> bool:
+    """Whether the service loop runs after ``done`` inputs: after every ``service_every`` of them,
+    except after inputs a..b-1 (0-based) when stall = (a, b), a late service loop."""
+    return done % service_every == 0 and not (stall and stall[0] < done <= stall[1])
+
+
+def queue_kept(n: int, service_every: int, queue_len: int, stall: tuple[int, int] | None = None) -> np.ndarray:
+    """Which of n inputs the C's ISR queue keeps when the service loop empties it after every
+    ``service_every`` inputs (not after inputs a..b-1 when stall = (a, b)): an input that finds
+    queue_len inputs waiting is dropped. Returns a boolean mask over the inputs."""
+    keep = np.zeros(n, dtype=bool)
+    waiting = 0
+    for k in range(n):
+        if waiting < queue_len:
+            keep[k] = True
+            waiting += 1
+        if service_due(k + 1, service_every, stall):
+            waiting = 0
+    return keep
+
+
+def lost_after(keep: np.ndarray) -> np.ndarray:
+    """Indices, in the kept stream, of the inputs that follow dropped ones."""
+    starts = np.flatnonzero(keep & np.concatenate(([False], ~keep[:-1])))
+    return (np.cumsum(keep) - 1)[starts]

@@ -1,0 +1,177 @@
+"""design(spec) -> Design: turns the plan into the integer parameters of every stage, chooses the
+output chain's word lengths (cheapest arithmetic that keeps the implementation loss under the
+spec's limit) and writes the overflow certificate."""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+
+from edgetally import __version__
+from edgetally.dsp import cic
+from edgetally.designer import wordlength as fixed
+from edgetally.dsp import iir
+from edgetally.planner import schemes
+from edgetally.ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
+from edgetally.planner.choose import REG_BITS, Plan, plan
+from edgetally.spec import Spec, SpecError
+
+DC_CORNER_HZ = 2.0      # offset tracker corner: far below any audio band (common practice, no source)
+SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)
+OVERRIDABLE = {"arith": str, "data_bits": int, "coef_bits": int, "coef_width": int, "acc_bits": int, "scaling": str}
+
+
+def spec_hash(spec: Spec) -> str:
+    canon = json.dumps(spec.to_dict(), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(canon.encode()).hexdigest()[:16]
+
+
+@dataclass(frozen=True)
+class WidthOption:
+    """One candidate word-length set for the output chain, with what it would cost and lose."""
+
+    arith: str
+    filters: Filters
+    q_in: int
+    loss_db: float                # predicted implementation loss (Jackson roundoff vs the planned noise)
+    response_error_db: float
+    coef_bits_needed: int         # fewest coefficient bits meeting the response tolerance
+    cycles_per_output: int        # of the filter sections alone
+    ok: bool
+    reason: str
+
+
+def _units(p: Plan) -> tuple[Fraction, int]:
+    """Hz per CIC output LSB, and the largest CIC output any input can give."""
+    fr = p.front
+    shift = fr.phase_shift if fr.kind == "stamp" else fr.step_shift
+    unit = Fraction(p.grid_hz * fr.prescale) / (Fraction(1 << shift) * p.ratio ** p.order)
+    return unit, fr.x_limit * p.ratio ** p.order
+
+
+def _bound_rel(spec: Spec, p: Plan) -> float:
+    """Worst |deviation| at the scale stage, in full-scale units: from zero frequency (x = 0) to the
+    step limit, about the centre."""
+    unit, y_max = _units(p)
+    centre = round(Fraction(spec.signal.if_hz) / unit)
+    return float(max(centre, y_max - centre) * unit / Fraction(spec.output.full_scale_hz))
+
+
+def _filters(spec: Spec, p: Plan, a: fixed.Arith, scaling: str, coef_bits: int | None) -> tuple[Filters, int]:
+    sig, out = spec.signal, spec.output
+    pairs = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz, droop=_droop(spec, p))
+    rows = [list(map(float, r)) for _, sos in pairs for r in sos]
+    roles = [role for role, sos in pairs for _ in sos]
+    lim = fixed.limit_of(a.data_bits)
+    in_rel = 2 * _bound_rel(spec, p)                        # audio minus offset
+    q_in = math.floor(math.log2(lim / in_rel))
+    qs = fixed.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
+    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, fixed.coef_bits_for(rows, q_in, qs, a.coef_width))
+    sections = fixed.quantise_rows(rows, roles, q_in, qs, cb)
+    return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
+
+
+def _droop(spec: Spec, p: Plan) -> tuple[int, int] | None:
+    """(order, ratio) of the CIC when its droop at the band edge exceeds the spec's limit."""
+    lim = spec.fixed.droop_limit_db
+    if lim and cic.droop_db(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio) > lim:
+        return p.order, p.ratio
+    return None
+
+
+def _out_format(spec: Spec, q_last: int) -> OutputFormat:
+    fmt = spec.output.format
+    bits = 16 if fmt == "s16" else int(fmt[1:])
+    shift = q_last - (bits - 1)
+    rshift, lmul = max(shift, 0), 1 << max(-shift, 0)
+    if fmt == "s16":
+        return OutputFormat(fmt, rshift, lmul, 0, -(1 << 15), (1 << 15) - 1, "int16_t")
+    return OutputFormat(fmt, rshift, lmul, 1 << (bits - 1), 0, (1 << bits) - 1, "uint16_t")
+
+
+def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[WidthOption]:
+    """Each arithmetic the output chain could use (or the one ``overrides`` describe), cheapest
+    first, with its predicted loss, response error and cost, and whether it meets the spec."""
+    fx, tgt = spec.fixed, spec.target
+    ov = dict(overrides or {})
+    names = [ov.pop("arith")] if "arith" in ov else (["narrow", "wide"] if fx.arith == "auto" else [fx.arith])
+    signal_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
+    out_bits = output_bits(spec.output.format)
+    opts = []
+    for name in names:
+        a = fixed.ARITHS[name]
+        a = dataclasses.replace(a, **{k: ov[k] for k in ("data_bits", "coef_width", "acc_bits") if k in ov})
+        scaling = ov.get("scaling", fx.scaling if a.acc_bits == 64 else "l1")
+        try:
+            f, q_in = _filters(spec, p, a, scaling, ov.get("coef_bits"))
+        except ValueError as e:
+            opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
+            continue
+        err = fixed.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
+        noise = fixed.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
+                                     spec.signal.audio_hz)
+        loss = 10 * math.log10(1 + noise / signal_fs2)
+        needed = f.coef_bits
+        for cb in range(f.coef_bits - 1, 7, -1):
+            try:
+                g, _ = _filters(spec, p, a, scaling, cb)
+            except ValueError:
+                break
+            if fixed.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
+                break
+            needed = cb
+        cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections))
+        why = []
+        if loss > fx.loss_limit_db:
+            why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
+        if err > fx.response_tol_db:
+            why.append(f"response error {err:.3f} dB exceeds {fx.response_tol_db:g} dB")
+        opts.append(WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets"))
+    return sorted(opts, key=lambda o: o.cycles_per_output)
+
+
+def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:
+    """The complete integer design for ``spec`` (planned here, with ``scheme`` forced if given,
+    unless a plan is given). ``overrides`` fixes output-chain word lengths (keys of OVERRIDABLE)."""
+    p = chosen or plan(spec, scheme)
+    sig, out, tgt = spec.signal, spec.output, spec.target
+    for k, v in (overrides or {}).items():
+        if k not in OVERRIDABLE or not isinstance(v, OVERRIDABLE[k]):
+            raise SpecError(f"--set filters.{k}", v, "allowed: " + ", ".join(f"filters.{n}" for n in OVERRIDABLE))
+    opts = width_options(spec, p, overrides)
+    good = [o for o in opts if o.ok]
+    pick = good[0] if good else next((o for o in reversed(opts) if o.filters is not None), None)
+    if pick is None:
+        raise SpecError("fixed", spec.fixed.arith, "no word lengths give a stable quantised filter: " + opts[0].reason)
+    f, q_in = pick.filters, pick.q_in
+    unit, y_max = _units(p)
+    centre = round(Fraction(sig.if_hz) / unit)
+    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB
+    shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
+    mult = round(gain * (1 << shift))
+    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
+    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, limit=f.limit, dc_shift=dc_shift)
+    cert = fixed.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
+                             cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
+                             dc_shift=dc_shift, f=f)
+    per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
+    fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
+    return Design(
+        name=spec.name, tool_version=__version__, spec_hash=spec_hash(spec), scheme=p.scheme,
+        rates=Rates(timer_hz=tgt.timer_hz, grid_hz=p.grid_hz, out_hz=out.rate_hz),
+        front=p.front,
+        cic=Cic(order=p.order, ratio=p.ratio, in_bits=p.cic_in_bits, width=REG_BITS),
+        scale=scale, filters=f, output=_out_format(spec, f.sections[-1].q_out),
+        if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, audio_hz=sig.audio_hz,
+        queue_len=p.queue_len,
+        budget=Budget(core=tgt.core, cpu_hz=tgt.cpu_hz, dma=tgt.capture_dma if p.front.kind == "stamp" else tgt.counter_dma,
+                      edge_hz_max=sig.if_hz + sig.deviation_hz, cycles_per_edge=p.load.per_edge,
+                      cycles_per_input=p.load.per_input, cycles_per_grid=p.load.per_grid,
+                      cycles_per_output=per_output, load_fraction=fraction, ram_bytes=p.load.ram_bytes,
+                      variant=p.variant, isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
+        certificate=cert,
+    )

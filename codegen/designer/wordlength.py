@@ -1,0 +1,224 @@
+"""Word lengths of the output-rate chain: scaling, coefficient bits, accumulators, the cost-aware
+choice between a narrow and a wide arithmetic, roundoff-noise prediction, limit cycles, and the
+overflow certificate of every register.
+
+Sources: per-section scaling by the L1 norm of the impulse response from the chain input to each
+section output guarantees no overflow for any bounded input; L2 and Linf trade headroom for noise
+(Jackson, BSTJ 49(2), 1970). Roundoff noise: each rounding is a white source of q^2/12 shaped by
+the transfer function from its node to the output (Jackson, IEEE AU-18(2), 1970). Zero-input
+limit cycles of a direct-form section with rounding stay within a dead band of about
+0.5 / (1 - |a2|) LSB (Jackson 1969). Wrap-around can sustain overflow oscillations, so every data
+node saturates (Ebert, Mazo & Taylor, BSTJ 48(9), 1969).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import signal
+
+from edgetally.dsp import iir
+from edgetally.fixedpoint import rshr, sat
+from edgetally.ir import Filters, Register, Section
+
+POLE_MARGIN = iir.POLE_MARGIN
+IMPULSE_LEN = 4096          # samples of impulse response for the norms (the filters decay far faster)
+
+
+@dataclass(frozen=True)
+class Arith:
+    """One arithmetic the output chain can run with."""
+
+    name: str
+    data_bits: int
+    coef_width: int
+    acc_bits: int
+
+
+NARROW = Arith("narrow", 16, 16, 32)    # 16 x 16 -> 32 products, 32-bit sums: cheap on small cores
+WIDE = Arith("wide", 32, 32, 64)        # 32 x 32 -> 64 multiply-accumulate: DSP-capable cores
+ARITHS = {"narrow": NARROW, "wide": WIDE}
+
+
+def limit_of(bits: int) -> int:
+    return (1 << (bits - 1)) - 1
+
+
+def _impulse(sos_rows: list, n: int = IMPULSE_LEN) -> np.ndarray:
+    x = np.zeros(n)
+    x[0] = 1.0
+    return signal.sosfilt(np.array(sos_rows), x) if sos_rows else x
+
+
+def norm(h: np.ndarray, kind: str) -> float:
+    if kind == "l1":
+        return float(np.sum(np.abs(h)))
+    if kind == "l2":
+        return float(np.sqrt(np.sum(h * h)))
+    if kind == "linf":
+        return float(np.max(np.abs(np.fft.rfft(h, 8 * h.size))))
+    raise ValueError(kind)
+
+
+def section_formats(rows: list, q_in: int, in_bound_rel: float, data_bits: int, kind: str) -> list[int]:
+    """Output format q of each section: the largest q with norm(cascade to here) * bound * 2**q
+    inside the data limit (in_bound_rel: worst |input| in full-scale units)."""
+    lim = limit_of(data_bits)
+    qs = []
+    for k in range(len(rows)):
+        nk = norm(_impulse(rows[: k + 1]), kind)
+        qs.append(math.floor(math.log2(lim / (nk * in_bound_rel))))
+    return qs
+
+
+def coef_bits_for(rows: list, q_in: int, qs: list[int], width: int) -> int:
+    """The largest Q format in which every scaled coefficient, once rounded, fits ``width`` bits
+    (two's complement: -2**(width-1) .. 2**(width-1) - 1)."""
+    coefs, prev = [], q_in
+    for row, q in zip(rows, qs):
+        b0, b1, b2, _, a1, a2 = row
+        coefs += [c * 2.0 ** (q - prev) for c in (b0, b1, b2)] + [a1, a2]
+        prev = q
+    lo, hi = -(1 << (width - 1)), (1 << (width - 1)) - 1
+    cb = (width - 1) - math.floor(math.log2(max(abs(c) for c in coefs)))
+    while any(not lo <= round(c * 2.0 ** cb) <= hi for c in coefs):
+        cb -= 1
+    return cb
+
+
+def quantise_rows(rows: list, roles: list[str], q_in: int, qs: list[int], cb: int) -> tuple[Section, ...]:
+    """Scaled, rounded sections; ValueError if a pole leaves the unit circle margin."""
+    out, prev, scale = [], q_in, float(1 << cb)
+    for row, role, q in zip(rows, roles, qs):
+        b0, b1, b2, _, a1, a2 = row
+        g = 2.0 ** (q - prev)
+        c = [int(round(v * scale)) for v in (b0 * g, b1 * g, b2 * g, a1, a2)]
+        poles = np.roots([1.0, c[3] / scale, c[4] / scale])
+        if np.max(np.abs(poles)) >= 1.0 - POLE_MARGIN:
+            raise ValueError(f"{role}: quantised poles {poles} leave the unit circle margin")
+        out.append(Section(role, *c, q_out=q, float_sos=tuple(float(v) for v in row)))
+        prev = q
+    return tuple(out)
+
+
+def quantised_rows(f: Filters, q_in: int) -> list:
+    """The float sos rows the integer sections implement, scale changes undone."""
+    rows, prev, scale = [], q_in, float(1 << f.coef_bits)
+    for s in f.sections:
+        g = 2.0 ** (prev - s.q_out)
+        rows.append([s.b0 / scale * g, s.b1 / scale * g, s.b2 / scale * g, 1.0, s.a1 / scale, s.a2 / scale])
+        prev = s.q_out
+    return rows
+
+
+def response_error_db(f: Filters, q_in: int, out_hz: float, band_hz: float) -> float:
+    """Largest |gain difference| in dB between the quantised and the float cascade over [0, band]."""
+    w = np.linspace(0.0, band_hz, 512)
+    _, hq = signal.sosfreqz(np.array(quantised_rows(f, q_in)), worN=w, fs=out_hz)
+    _, hf = signal.sosfreqz(np.array([list(s.float_sos) for s in f.sections]), worN=w, fs=out_hz)
+    return float(np.max(np.abs(20 * np.log10(np.abs(hq) / np.abs(hf)))))
+
+
+def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo: float, band_hz: float) -> float:
+    """In-band roundoff noise at the output in full-scale^2 units (Jackson 1970): the scale
+    stage's and the offset tracker's roundings through every section, each section's rounding
+    through its own recursion and the sections after it, and the output word's rounding when it
+    drops bits; each white, q^2 / 12."""
+    rows = quantised_rows(f, q_in)
+    fgrid = np.linspace(band_lo, band_hz, 512)
+
+    def band(var, sos_rows):
+        if sos_rows:
+            _, h = signal.sosfreqz(np.array(sos_rows), worN=fgrid, fs=out_hz)
+            g2 = np.abs(h) ** 2
+        else:
+            g2 = np.ones_like(fgrid)
+        return var * 2.0 / out_hz * float(np.trapezoid(g2, fgrid))
+
+    # the scale stage's rounding and the offset tracker's (its rounded DC is subtracted from the
+    # filter input): two sources of the input's LSB through every section
+    total = 2 * band(2.0 ** (-2 * q_in) / 12, rows)
+    for k, s in enumerate(f.sections):
+        recursion = [[1.0, 0.0, 0.0] + rows[k][3:]]          # 1 / A_k(z): the rounding is inside the loop
+        total += band(2.0 ** (-2 * s.q_out) / 12, recursion + rows[k + 1:])
+    if f.sections[-1].q_out > out_bits - 1:                 # the output word rounds only when it is coarser
+        total += band(2.0 ** (-2 * (out_bits - 1)) / 12, [])
+    return total
+
+
+def limit_cycle_lsb(f: Filters, steps: int = 3000, seed: int = 1) -> list[float]:
+    """Per section, the largest |output| (in its LSB) left after ``steps`` zero-input steps from
+    worst and random starting states: the measured dead band of zero-input limit cycles."""
+    rng = np.random.default_rng(seed)
+    out = []
+    for s in f.sections:
+        worst = 0
+        starts = [(f.limit, f.limit), (f.limit, -f.limit), (-f.limit, f.limit), (7, -7), (3, 3)]
+        starts += [tuple(int(v) for v in rng.integers(-f.limit, f.limit + 1, size=2)) for _ in range(20)]
+        starts += [tuple(int(v) for v in rng.integers(-64, 65, size=2)) for _ in range(40)]
+        for y1, y2 in starts:
+            tail = 0
+            for n in range(steps):
+                y = sat(rshr(-s.a1 * y1 - s.a2 * y2, f.coef_bits), -f.limit, f.limit)
+                y2, y1 = y1, y
+                if n >= steps - 200:
+                    tail = max(tail, abs(y))
+            worst = max(worst, tail)
+        out.append(float(worst))
+    return out
+
+
+def jackson_dead_band(s: Section, coef_bits: int) -> float:
+    """Jackson (1969): the zero-input dead band of a second-order section with rounding, about
+    0.5 / (1 - |a2|) LSB (a first-order section: 0.5 / (1 - |a1|))."""
+    scale = float(1 << coef_bits)
+    if s.a2 == 0:
+        return 0.5 / (1 - abs(s.a1) / scale)
+    return 0.5 / (1 - abs(s.a2) / scale)
+
+
+def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width: int, centre: int, mult: int,
+                shift: int, q_in: int, u_limit: int, dc_shift: int, f: Filters) -> tuple[Register, ...]:
+    """Every register, its width, the worst |value| any allowed input gives, and the margin."""
+
+    def reg(name, bits, bound, note):
+        bound = max(int(bound), 1)
+        return Register(name, bits, bound, round(math.log2(limit_of(bits) / bound), 2), note)
+
+    y_max = x_limit * ratio ** order
+    d_max = max(centre, y_max - centre)
+    u_b = min(u_limit, rshr(d_max * mult, shift) + 1)
+    regs = [
+        reg("front.step", in_bits, x_limit, "in [x_low, x_limit], or the centre step, whatever the edges do"),
+        reg("cic.output", cic_width, y_max, "integrators wrap by design (Hogenauer 1981); the output cannot"),
+        reg("scale.product", 64, d_max * mult, "|y - centre| * mult"),
+        reg("scale.out", f.data_bits, u_b, "saturated at the data limit"),
+        reg("offset.acc", 64, u_b << dc_shift, "one-pole DC tracker"),
+    ]
+    in_b = min(f.limit, 2 * u_b)
+    regs.append(reg("filter.in", f.data_bits, in_b, "audio minus offset, saturated"))
+    rows = quantised_rows(f, q_in)
+    half = 1 << (f.coef_bits - 1)
+    for k, s in enumerate(f.sections):
+        # exact response to the worst input, plus every earlier rounding (<= 1/2 LSB of its own
+        # section) through the rest of the cascade, in this section's LSB (Jackson 1970)
+        y_b = in_b * norm(_impulse(rows[: k + 1]), "l1") * 2.0 ** (s.q_out - q_in)
+        for j in range(k + 1):
+            tail = [[1.0, 0.0, 0.0] + rows[j][3:]] + rows[j + 1: k + 1]
+            y_b += 0.5 * norm(_impulse(tail), "l1") * 2.0 ** (s.q_out - f.sections[j].q_out)
+        y_b = math.ceil(y_b)
+        biggest = max(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2))
+        regs.append(reg(f"iir.{k}.product", f.acc_bits, biggest * f.limit, "largest coefficient x data limit"))
+        if f.acc_bits == 32:
+            acc_b = y_b * (1 << f.coef_bits) + half
+            note = "final sum; exact 32-bit products summed modulo 2^32 (partial sums may wrap)"
+        else:
+            acc_b = sum(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2)) * f.limit + half
+            note = "sum of products of saturated words"
+        regs.append(reg(f"iir.{k}.acc", f.acc_bits, acc_b, note))
+        regs.append(reg(f"iir.{k}.out", f.data_bits, y_b,
+                        "L1 bound: cannot saturate" if f.scaling == "l1"
+                        else f"{f.scaling} scaling: may saturate (saturation, never wrap)"))
+    return tuple(regs)

@@ -1,0 +1,150 @@
+"""Design -> C source text through the jinja2 templates in edgetally.c_templates.
+
+The templates only print what the Design holds (StrictUndefined: a missing value is an error, never
+an empty string). The fixed-point helpers come from ``edgetally.fixedpoint``. No timestamps: the
+same Design always gives byte-identical files. ``api(design)`` lists the public functions once,
+for the header and for the host build's cffi declarations alike.
+"""
+
+from __future__ import annotations
+
+import importlib.resources
+from dataclasses import dataclass
+
+import jinja2
+
+from edgetally.fixedpoint import c_definitions
+from edgetally.ir import Design
+
+
+@dataclass(frozen=True)
+class Function:
+    proto: str       # C prototype without the trailing semicolon
+    doc: str         # one comment line for the header
+
+
+def input_type(design: Design) -> str:
+    fr = design.front
+    bits = fr.timer_bits if fr.kind == "stamp" else fr.counter_bits
+    return "uint16_t" if bits == 16 else "uint32_t"
+
+
+def api(design: Design) -> list[Function]:
+    """The public functions of the emitted C for this design, in header order."""
+    p = design.name
+    st, inp = f"{p}_state_t *s", f"{p}_input_t"
+    fns = [
+        Function(f"void {p}_init({st})", "Reset the state; the grid starts with the first inputs after this."),
+        Function(f"size_t {p}_process({st}, const {inp} *in, size_t n, {p}_sample_t *out, size_t cap, size_t *produced)",
+                 "Process n inputs (oldest first); at most cap samples to out, their number to *produced; "
+                 "returns the inputs consumed (fewer than n when out filled up: call again with the rest)."),
+        Function(f"size_t {p}_service({st}, {p}_sample_t *out, size_t cap)",
+                 "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
+    ]
+    if design.scheme == "timestamp":
+        fns.append(Function(f"void {p}_capture_isr({st}, {inp} stamp)",
+                            "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full)."))
+    elif design.scheme == "interrupt" and design.front.kind == "stamp":
+        fns.append(Function(f"void {p}_edge_isr({st}, {inp} timer_now)",
+                            "Edge interrupt: queue the free-running timer's value read at entry."))
+    elif design.scheme == "interrupt":
+        fns.append(Function(f"void {p}_edge_isr({st})", "Edge interrupt: count one IF edge."))
+        fns.append(Function(f"void {p}_tick_isr({st})", "Grid timer interrupt: queue the edge count."))
+    else:
+        fns.append(Function(f"void {p}_tick_isr({st}, {inp} count)",
+                            "Grid timer interrupt: queue the IF-clocked counter's value."))
+    fns += [
+        Function(f"bool {p}_carrier_present(const {st})", "True while edges arrive at a plausible rate."),
+        Function(f"int32_t {p}_offset(const {st})",
+                 "The tuning offset: DC of the frequency estimate, in the units the header gives."),
+        Function(f"uint32_t {p}_saturation_count(const {st})", "Internal data nodes that saturated so far."),
+        Function(f"uint32_t {p}_clip_count(const {st})", "Output samples clipped to the output range so far."),
+        Function(f"uint32_t {p}_gap_count(const {st})",
+                 "Grid instants with no carrier so far (gaps, lost inputs and the resync after each: muted)."),
+        Function(f"uint32_t {p}_clamp_count(const {st})",
+                 "Grid steps outside the range this carrier can make so far (noise, spurious edges: muted)."),
+        Function(f"uint32_t {p}_overrun_count(const {st})",
+                 "Losses so far: inputs dropped because the queue was full, and calls of inputs_lost."),
+        Function(f"void {p}_inputs_lost({st})",
+                 "Inputs were lost before the next one (e.g. a DMA overrun): the interval across the loss is "
+                 "taken as a gap. Call from the context that calls process()."),
+    ]
+    return fns
+
+
+def isr_names(design: Design) -> list[str]:
+    """The functions of api() that interrupts call, in header order (edge before tick)."""
+    return [f.proto.split("(")[0].split()[-1] for f in api(design) if "_isr(" in f.proto]
+
+
+def _operations(design: Design) -> list[str]:
+    """The fixed-point operations this design's C calls."""
+    ops = ["wrap_s32", "rshr", "sat"]
+    if design.front.kind == "stamp":
+        ops.append("ratio_floor")
+        if design.front.order == "cubic":
+            ops.append("cubic_fraction")
+    return ops
+
+
+def _env() -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.FunctionLoader(
+            lambda name: importlib.resources.files("edgetally.c_templates").joinpath(name).read_text("utf-8")),
+        undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
+        autoescape=False)
+    env.filters["hz"] = lambda v: f"{v:,.6g} Hz".replace(",", " ")
+    env.filters["mhz"] = lambda v: f"{v / 1e6:g} MHz"
+    env.filters["pct"] = lambda v: f"{100 * v:.1f} %"
+    return env
+
+
+def banner(design: Design) -> str:
+    return (f"/* Generated by edgetally {design.tool_version} from a spec with hash {design.spec_hash}.\n"
+            f" * Design '{design.name}', scheme '{design.scheme}'. Do not edit: change the spec and emit again. */")
+
+
+@dataclass(frozen=True)
+class Vectors:
+    """Recorded inputs and the integer model's outputs for the emitted unit test."""
+
+    inputs: tuple[int, ...]
+    outputs: tuple[int, ...]
+    seconds: float
+    seed: int
+    block: int = 256
+
+
+def unit_test(design: Design, vectors: Vectors) -> dict[str, str]:
+    """The desktop unit test around the emitted C: <name>_test.c, <name>_vectors.h, a Makefile
+    (``make test``) and a CMakeLists.txt (``ctest``)."""
+    env = _env()
+    p = design.name
+    ctx = dict(d=design, p=p, P=p.upper(), banner=banner(design), vectors=vectors)
+    return {
+        f"{p}_test.c": env.get_template("unit_test.c.j2").render(ctx),
+        f"{p}_vectors.h": env.get_template("vectors.h.j2").render(ctx),
+        "Makefile": env.get_template("Makefile.j2").render(ctx),
+        "CMakeLists.txt": env.get_template("CMakeLists.txt.j2").render(ctx),
+    }
+
+
+def emit(design: Design) -> dict[str, str]:
+    """The C files of ``design``: {"<name>.h": text, "<name>.c": text}."""
+    env = _env()
+    p = design.name
+    inp = input_type(design)
+    ctx = dict(
+        d=design, fr=design.front, p=p, P=p.upper(), banner=banner(design), api=api(design),
+        nsec=len(design.filters.sections),
+        data_type="int16_t" if design.filters.data_bits == 16 else "int32_t",
+        coef_type="int16_t" if design.filters.coef_width == 16 else "int32_t",
+        coef_macro="INT16_C" if design.filters.coef_width == 16 else "INT32_C",
+        offset_hz_per_lsb=f"{design.full_scale_hz / 2 ** design.scale.q:.6g}",
+        input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
+        fixedpoint=c_definitions(p, _operations(design)),
+    )
+    return {
+        f"{p}.h": env.get_template("demod.h.j2").render(ctx),
+        f"{p}.c": env.get_template("demod.c.j2").render(ctx),
+    }

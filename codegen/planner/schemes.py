@@ -1,0 +1,288 @@
+"""Counting schemes: how the MCU sees the edges, what that costs in CPU and RAM, and the noise it
+leaves in the audio band.
+
+Schemes and the front end each uses (DESIGN.md section 4):
+- ``timestamp``: timer input capture of every k-th edge (k = capture prescaler), stamps by DMA or
+  a short capture ISR -> phase interpolated on the grid ("stamp" front).
+- ``interrupt``: a comparator or pin interrupt per edge. Variant "count": the ISR counts and a
+  grid-timer ISR samples the count ("count" front). Variant "stamp": the ISR also reads a
+  free-running timer, whose latency jitter adds to the timer's resolution ("stamp" front).
+- ``counter``: a timer clocked by the IF counts edges in hardware, read at every grid tick by DMA
+  or a tick ISR ("count" front). The free-running count is in effect the CIC's first integrator;
+  the front end differences it anyway (one subtraction per grid instant) to check for a lost
+  carrier and for glitches before the CIC integrates again.
+
+Noise model (white-quantiser, see DESIGN.md section 4): the phase at each grid instant carries a
+white error of variance sigma^2 (cycles^2). Differencing turns it into a frequency error with the
+two-sided PSD 2 sigma^2 fs (1 - cos(2 pi f / fs)) Hz^2/Hz at the grid rate fs; the CIC shapes it and
+folds it to the output rate; what lands in the audio band after the output filters (which shape
+signal and noise alike) is the noise. The sources:
+
+- count quantisation: sigma^2 = 1/12 (uniform error of a whole cycle): the first-order delta-sigma
+  result N_B ~ (2 pi^2 / 9) B^3 / fs (Beards & Copeland, IEEE TCAS-II 41(1), 1994; Schreier & Temes
+  2005, ch. 2), here with the CIC's aliasing and the filters' response included.
+- timer quantisation: each stamp is off by a uniform error of one tick, so the interpolated phase
+  error has variance  w * E[f^2] / (12 f_timer^2)  with w = E[sum of squared interpolation
+  weights] = 2/3 for linear interpolation and CUBIC_WEIGHT for the four-stamp cubic. Measured on
+  the examples this is 1.5 to 2.5 dB pessimistic (the stamp errors of a slowly swept period are
+  not independent). A grid faster than the stamp rate gains nothing more (measured on campus_fm:
+  the noise stops falling near the edge rate), so the level is held at the stamp rate.
+- interrupt latency jitter: a uniform spread of J cycles at the CPU clock adds w E[f^2] J^2 /
+  (12 f_cpu^2).
+- interpolation residual: linear interpolation of a phase whose slope changes within one stamp
+  interval D errs by (f'/2) tau (D - tau) at offset tau; for tau uniform on [0, D) its standard
+  deviation is D^2 / sqrt(180) * f' / 2. The cubic through four stamps errs by the fourth-order
+  term of the same expansion (our derivation, see ``predict``). The offsets of successive grid
+  instants are not independent, and measured noise stops falling with the grid rate beyond about
+  2/3 of the stamp rate, so the level is held there. Where the residual is large (a few stamps per
+  cycle of the tone) this small-error model is rough.
+- The count error is white only when the deviation spreads it: where the test deviation is under
+  half the grid rate, the IF and the grid can be nearly commensurate and the error turns into
+  tones. ``doubt`` says so; ``plan --simulate`` measures.
+
+These are planning figures; verify measures the truth by simulation.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import signal
+
+from edgetally.dsp import cic
+from edgetally.cores import CORES
+from edgetally.ir import Design
+from edgetally.spec import Target
+
+TEST_TONE_HZ = 1000.0
+TEST_LEVEL = 0.7           # fraction of full-scale deviation for the standard test tone
+BAND_LOW_HZ = 20.0         # SINAD band starts here: below is DC, which carries the tuning offset
+
+
+def _cubic_weight() -> float:
+    """E over u in [0, 1) of the summed squared Lagrange weights of nodes -1, 0, 1, 2."""
+    u = np.linspace(0.0, 1.0, 20001)
+    w = [-u * (u - 1) * (u - 2) / 6, (u + 1) * (u - 1) * (u - 2) / 2,
+         -(u + 1) * u * (u - 2) / 2, (u + 1) * u * (u - 1) / 6]
+    return float(np.trapezoid(sum(x * x for x in w), u))
+
+
+def _shape_var(shape) -> float:
+    u = np.linspace(0.0, 1.0, 20001)
+    p = shape(u)
+    return float(np.trapezoid(p * p, u) - np.trapezoid(p, u) ** 2)
+
+
+LINEAR_WEIGHT = 2.0 / 3.0
+CUBIC_WEIGHT = _cubic_weight()
+LINEAR_SHAPE_VAR = _shape_var(lambda u: u * (1 - u))                      # 1/180
+CUBIC_SHAPE_VAR = _shape_var(lambda u: u * (u + 1) * (u - 1) * (u - 2))
+
+
+@dataclass(frozen=True)
+class Variant:
+    """One way of seeing the edges."""
+
+    scheme: str                # "timestamp", "interrupt", "counter"
+    front: str                 # "stamp" or "count"
+    prescale: int = 1
+    order: str = "linear"      # stamp fronts: "linear" or "cubic"
+
+    @property
+    def label(self) -> str:
+        """Short name, one word: k<prescale>-<order> (capture), stamp-<order> (edge interrupt that
+        reads a timer), count (edge counts)."""
+        if self.front == "count":
+            return "count"
+        pre = f"k{self.prescale}" if self.scheme == "timestamp" else "stamp"
+        return f"{pre}-{self.order}"
+
+
+def variants(tgt: Target) -> list[tuple[Variant, str | None]]:
+    """Every variant with the reason it is impossible on this target (None if possible)."""
+    out = []
+    for k in tgt.capture_prescalers:
+        why = None if tgt.has_capture else "the part has no input capture on the IF (target.has_capture)"
+        for order in ("linear", "cubic"):
+            out.append((Variant("timestamp", "stamp", k, order), why))
+    no_irq = None if tgt.has_edge_irq else "the part has no edge interrupt on the IF (target.has_edge_irq)"
+    out.append((Variant("interrupt", "count"), no_irq))
+    for order in ("linear", "cubic"):
+        out.append((Variant("interrupt", "stamp", 1, order), no_irq))
+    out.append((Variant("counter", "count"),
+                None if tgt.has_counter else "the part has no IF-clocked counter (target.has_counter)"))
+    return out
+
+
+@dataclass(frozen=True)
+class Prediction:
+    sinad_db: float            # all modelled sources together
+    quant_sinad_db: float      # timer or count quantisation alone
+    curvature_sinad_db: float  # interpolation curvature alone
+    jitter_sinad_db: float     # interrupt latency jitter alone
+    output_sinad_db: float     # the 16-bit output word alone
+
+
+def _post_gain2(sos_list, f: np.ndarray, out_hz: float) -> np.ndarray:
+    """|H(f)|^2 of the output-rate filters (float designs) in cascade."""
+    g = np.ones_like(f, dtype=float)
+    for sos in sos_list:
+        _, h = signal.sosfreqz(np.asarray(sos), worN=f, fs=out_hz)
+        g = g * np.abs(h) ** 2
+    return g
+
+
+def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
+                post_sos=()) -> float:
+    """In-band noise power (Hz^2) at the output from white phase noise sigma2 per grid sample.
+
+    After decimation by R the output PSD at fo is the sum of the CIC-shaped input PSD over the R
+    images fo + m * out_hz, m = 0..R-1 (one period of the grid-rate spectrum); the band power is
+    twice the integral over [BAND_LOW_HZ, band_hz] (two-sided PSD)."""
+    f = np.linspace(BAND_LOW_HZ, band_hz, 2001)
+    total = np.zeros_like(f)
+    for m in range(r):
+        fa = f + m * out_hz
+        h2 = 10 ** (cic.response_db(fa / out_hz, n, r) / 10)
+        total += h2 * 2 * sigma2 * grid_hz * (1 - np.cos(2 * np.pi * fa / grid_hz))
+    return 2.0 * float(np.trapezoid(total * _post_gain2(post_sos, f, out_hz), f))
+
+
+def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
+            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
+            post_sos=()) -> Prediction:
+    """Predicted SINAD of the standard test (1 kHz tone at 70 % of full-scale deviation)."""
+    dev = TEST_LEVEL * full_scale_hz
+    ef2 = if_hz ** 2 + 0.5 * dev ** 2                        # E[f^2] for a sinusoidal deviation
+    sig_quant = sig_curv = sig_jit = 0.0
+    if v.front == "count":
+        sig_quant = 1.0 / 12.0
+    else:
+        w = CUBIC_WEIGHT if v.order == "cubic" else LINEAR_WEIGHT
+        stamp_hz = if_hz / v.prescale
+        held = max(1.0, grid_hz / stamp_hz)          # no gain from grids faster than the stamps
+        sig_quant = w * ef2 / (12.0 * timer_hz ** 2) * held
+        if v.scheme == "interrupt":
+            sig_jit = w * ef2 * irq_jitter_cycles ** 2 / (12.0 * cpu_hz ** 2) * held
+        # Interpolation residual for a tone: phase amplitude dev / (2 pi fm) times theta^2 / 2 (linear)
+        # or theta^4 / 24 (cubic), theta = 2 pi fm k / f0 the tone's phase advance per stamp
+        # interval, times the shape u(1 - u) or u(u + 1)(u - 1)(u - 2) over the interval; its
+        # variance over u uniform in [0, 1) and over the tone's cycle (mean square 1/2).
+        theta = 2 * math.pi * TEST_TONE_HZ * v.prescale / if_hz
+        amp = dev / (2 * math.pi * TEST_TONE_HZ)
+        if v.order == "linear":
+            sig_curv = (amp * theta ** 2 / 2) ** 2 * LINEAR_SHAPE_VAR / 2
+        else:
+            sig_curv = (amp * theta ** 4 / 24) ** 2 * CUBIC_SHAPE_VAR / 2
+        sig_curv *= max(1.0, grid_hz / ((2.0 / 3.0) * if_hz / v.prescale))
+    tone = np.array([TEST_TONE_HZ])
+    s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(TEST_TONE_HZ / out_hz, n, r) / 10) \
+        * float(_post_gain2(post_sos, tone, out_hz)[0])
+    lsb = full_scale_hz / 32768.0
+    n_out = lsb ** 2 / 12.0 * (band_hz - BAND_LOW_HZ) / (out_hz / 2)
+    parts = [_band_noise(s2, grid_hz, out_hz, r, n, band_hz, post_sos) if s2 else 0.0
+             for s2 in (sig_quant, sig_curv, sig_jit)]
+
+    def db(noise):
+        return 10 * math.log10(s_pow / noise) if noise > 0 else float("inf")
+
+    return Prediction(db(sum(parts) + n_out), db(parts[0]), db(parts[1]), db(parts[2]), db(n_out))
+
+
+SMALL_RATIO_DEN = 4      # IF / grid = p / q with q up to this counts as commensurate
+RATIO_NEAR = 0.02        # how close to p / q (in units of 1 / q) counts as near
+
+
+def doubt(v: Variant, *, if_hz: float, full_scale_hz: float, grid_hz: float, pred: Prediction) -> str | None:
+    """Why the white-noise prediction may be far off for this option, or None."""
+    if v.front == "stamp" and grid_hz > if_hz / v.prescale:
+        return ("the grid is faster than the stamps, so grid errors are correlated and the tone's "
+                "harmonics in the interpolation error are not modelled")
+    if v.front == "count" and TEST_LEVEL * full_scale_hz < grid_hz / 2:
+        return ("the test deviation is under half the grid rate, so the count error can form tones "
+                "(IF and grid nearly commensurate) instead of white noise")
+    if v.front == "count":
+        ratio = if_hz / grid_hz
+        for q in range(1, SMALL_RATIO_DEN + 1):
+            if abs(ratio * q - round(ratio * q)) < RATIO_NEAR:
+                return (f"the IF is {round(ratio * q)}/{q} of the grid rate: near a small-integer ratio the "
+                        "count error forms tones (DESIGN.md: +-4 dB) instead of white noise")
+    if min(pred.curvature_sinad_db, pred.quant_sinad_db) < 40 and pred.curvature_sinad_db < pred.quant_sinad_db:
+        return "the interpolation residual is large (few stamps per cycle of the tone): the small-error model is rough"
+    return None
+
+
+@dataclass(frozen=True)
+class Load:
+    per_edge: int        # cycles per IF edge (the edge or capture ISR; 0 when hardware does it)
+    per_input: int       # cycles per stamp or count processed in the main loop
+    per_grid: int        # cycles per grid instant
+    per_output: int      # cycles per output sample
+    fraction: float      # of the CPU at the spec's clock, at the highest edge rate
+    ram_bytes: int       # state size estimate (the queue included)
+
+
+# Operation counts of the emitted C per event, in "ops" of the core profile's op_cycles, beside the
+# divisions and 64-bit multiply-accumulates counted apart. Calibrated against the emitted C itself:
+# -Os builds run in the Thumb emulator (edgetally.target, whose cycle figures are estimates from
+# instruction classes), on the four examples, both ARM cores, rounded; within about 25 % of those
+# figures. `plan --measured` replaces them by the measured figures for one design.
+STAMP_INPUT_OPS = {"linear": 72, "cubic": 80}      # unwrap, bracket test, loop and queue bookkeeping
+STAMP_GRID_OPS = {"linear": 60, "cubic": 250}      # interpolation (besides its divisions), clamp
+COUNT_INPUT_OPS = 40                               # difference, zero run, clamp
+GRID_OPS_PER_STAGE = 8                             # each CIC integrator and comb, per grid instant
+OUTPUT_OPS = 60                                    # combs' share, scale, offset tracker, output word
+SECTION_OPS = {64: 100, 32: 45}                    # a section's rounding, saturation and state moves
+
+
+def filter_cycles(tgt: Target, acc_bits: int, sections: int) -> int:
+    """Cycles of the IIR sections per output sample: five products and their sums per section,
+    as 32x32->64 multiply-accumulates (64-bit accumulators) or exact 32-bit products."""
+    mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
+    return sections * (5 * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
+
+
+def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
+         sections: int, queue_len: int) -> Load:
+    """Estimated cycles (core profile figures and the calibrated op counts above) and RAM."""
+    op, isr = tgt.op_cycles, tgt.isr_cycles
+    stamp_rate = edge_hz_max / v.prescale
+    # the scale product, the sections (planned wide; the designer may then pick a cheaper
+    # arithmetic and updates the figure), and the rest of the output path
+    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + filter_cycles(tgt, 64, sections)
+    cic = GRID_OPS_PER_STAGE * n * op
+    if v.front == "stamp":
+        per_input = STAMP_INPUT_OPS[v.order] * op
+        divs, macs = (2, 2) if v.order == "cubic" else (1, 0)
+        per_grid = divs * tgt.div32_cycles + macs * tgt.mac64_cycles + STAMP_GRID_OPS[v.order] * op + cic
+        if v.scheme == "interrupt":
+            per_edge = isr + 12 * op                                     # read timer, queue the stamp
+        else:
+            per_edge = 0 if tgt.capture_dma else isr + 8 * op            # queue the stamp
+        cycles = stamp_rate * (per_edge + per_input) + grid_hz * per_grid
+        in_bytes = 2 if tgt.timer_bits == 16 else 4
+    else:
+        per_input = COUNT_INPUT_OPS * op + cic
+        per_grid = 0 if (v.scheme == "counter" and tgt.counter_dma) else isr + 6 * op   # tick ISR queues
+        per_edge = isr + 3 * op if v.scheme == "interrupt" else 0        # the edge ISR counts
+        cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
+        in_bytes = 2 if tgt.counter_bits == 16 else 4
+    cycles += out_hz * per_output
+    ram = 4 * (10 + 2 * n) + 16 * sections + queue_len * in_bytes + (8 if v.order == "cubic" else 0)
+    return Load(per_edge, per_input, per_grid, per_output, cycles / tgt.cpu_hz, ram)
+
+
+def variant_of(design: Design) -> Variant:
+    fr = design.front
+    return Variant(design.scheme, fr.kind, fr.prescale, getattr(fr, "order", "linear"))
+
+
+def predict_design(design: Design) -> Prediction:
+    """The planner's prediction for this design's rates and filters."""
+    return predict(
+        variant_of(design), if_hz=design.if_hz, full_scale_hz=design.full_scale_hz, timer_hz=design.rates.timer_hz,
+        cpu_hz=design.budget.cpu_hz, irq_jitter_cycles=design.budget.irq_jitter_cycles,
+        grid_hz=design.rates.grid_hz, out_hz=design.rates.out_hz, r=design.cic.ratio, n=design.cic.order,
+        band_hz=design.audio_hz, post_sos=[np.array([list(s.float_sos) for s in design.filters.sections])])

@@ -1,0 +1,74 @@
+"""Everything a report shows, computed: verify (with the emulated target runs if asked), every
+sweep and every hostile scenario, then the page and the WAV files (edgetally.report). Pure:
+returns bytes; the CLI writes them and draws the progress."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from edgetally.check import hostbuild
+from edgetally.measure import hostile
+from edgetally.report import page as report
+from edgetally.measure import sweeps
+from edgetally.ir import Design
+from edgetally.planner.choose import Plan
+from edgetally.spec import Spec
+from edgetally.stimulus.inputs import DEFAULT_SEED
+from edgetally.check.verify import VerifyResult, verify
+
+
+class _Quiet:
+    def note(self, label: str) -> None:
+        pass
+
+    def step(self, n: int = 1) -> None:
+        pass
+
+
+@dataclass(frozen=True)
+class Made:
+    files: dict               # {file name: bytes}: the page and its WAVs
+    verify: VerifyResult
+    sweeps: tuple             # edgetally.sweeps.Sweep, one per kind
+    hostile: tuple            # edgetally.hostile.ScenarioResult, one per scenario
+
+    @property
+    def failed_scenarios(self) -> list[str]:
+        return [h.name for h in self.hostile if not h.passed]
+
+    @property
+    def sweeps_bit_exact(self) -> bool:
+        return all(s.bit_exact for s in self.sweeps)
+
+    @property
+    def ok(self) -> bool:
+        return self.verify.bit_exact and self.sweeps_bit_exact and not self.failed_scenarios
+
+
+def steps(design: Design) -> int:
+    """How many progress steps ``make`` takes: verify, each sweep point, each scenario, the files."""
+    return 1 + sum(len(sweeps.default_points(design, k)) for k in sweeps.KINDS) + len(hostile.SCENARIOS) + 1
+
+
+def make(spec: Spec, plan: Plan, design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED,
+         targets: bool = True, progress=None) -> Made:
+    """Run everything and render. ``progress`` (optional) has note(label), told what starts, and
+    step(), told when one of ``steps(design)`` steps is done."""
+    bar = progress or _Quiet()
+    host = hostbuild.build(design)
+    bar.note("verify" + (" (with the emulated target cores)" if targets else ""))
+    res = verify(design, seconds=seconds, seed=seed, targets=targets)
+    bar.step()
+    sw = []
+    for kind in sweeps.KINDS:
+        bar.note(f"sweep {kind}")
+        sw.append(sweeps.run_sweep(design, kind, seed=seed, host=host, progress=lambda _d, _t: bar.step()))
+    hs = []
+    for name in hostile.SCENARIOS:
+        bar.note(name)
+        hs.append(hostile.run_scenario(design, name, host, hostile.Options(seed=seed)))
+        bar.step()
+    bar.note("listening files and the page")
+    files = report.report_files(spec, plan, design, res, tuple(sw), tuple(hs), seed=seed, host=host)
+    bar.step()
+    return Made(files=files, verify=res, sweeps=tuple(sw), hostile=tuple(hs))
