@@ -68,4 +68,46 @@ CORES = {
         mul32_cycles=40,        # estimate: 16x16->32 from four 8x8 hardware multiplies and adds
         op_cycles=8,            # estimate: a 32-bit op is four 8-bit ops plus loads
     ),
+    # RISC-V classes: the ISA names are the open standard's (RISC-V unprivileged spec: I base, E base
+    # with 16 registers, M multiply/divide, C compressed). No vendor's timing is assumed: the cycle
+    # figures are estimates for a small in-order 2- or 3-stage core (as in edgetally.target.cycles).
+    "rv32imc": Core(
+        name="rv32imc", note="RV32IMC class: 32 registers, multiply and divide instructions, no FPU",
+        has_capture=True, has_edge_irq=True, has_counter=True, capture_prescalers=(1, 2, 4, 8),
+        hw_divide=True,         # DIVU exists (M); a small core's divider is slow (about 34 cycles, estimate)
+        mul64=True,             # MUL + MULHU give the 64-bit product in two instructions
+        isr_cycles=40,          # estimate: no hardware stacking; a C handler saves and restores the 16
+                                # caller-saved registers (ra, t0-t6, a0-a7) and returns with MRET
+        irq_jitter_cycles=4,    # estimate: a load or a taken branch in progress
+        soft_div32_cycles=90, soft_mac64_cycles=30,   # not used while hw_divide and mul64 hold
+        mul32_cycles=1,         # estimate: the fast single-cycle multiplier option
+        op_cycles=1,            # estimate
+    ),
+    "rv32ec": Core(
+        name="rv32ec", note="RV32EC class: 16 registers, no multiply or divide instruction, no FPU",
+        has_capture=True, has_edge_irq=True, has_counter=True, capture_prescalers=(1, 2, 4, 8),
+        hw_divide=False, mul64=False,
+        isr_cycles=26,          # estimate: a C handler saves and restores the 10 caller-saved registers
+                                # of the E base (ra, t0-t2, a0-a5) and returns with MRET
+        irq_jitter_cycles=4,    # estimate
+        soft_div32_cycles=150,  # estimate: libgcc's shift-and-subtract __udivsi3, 32 steps
+        soft_mac64_cycles=400,  # estimate: a 64-bit product from libgcc's shift-and-add __mulsi3 calls
+        mul32_cycles=100,       # estimate: one __mulsi3 call (shift-and-add loop)
+        op_cycles=1,            # estimate
+    ),
+    # The 8-bit AVR class as emulated (simavr, an ATmega1284P-class part). Source for the interrupt
+    # response: the AVR datasheets' "interrupt response time" (4 cycles to the vector, a JMP of 3 and a
+    # RETI of 4), from memory, plus the register saving of a C handler (estimate).
+    "avr": Core(
+        name="avr", note="8-bit AVR class (ATmega, hardware 8x8 multiply): 16-bit int, wide arithmetic in software",
+        has_capture=True, has_edge_irq=True, has_counter=True,
+        capture_prescalers=(1, 8, 64, 256, 1024),   # Timer1 clock select, datasheet (from memory)
+        hw_divide=False, mul64=False,
+        isr_cycles=40,          # 11 (datasheet, from memory) + about 30 for the saving of a C handler (estimate)
+        irq_jitter_cycles=4,    # datasheet, from memory: instructions take 1 to 4 cycles (5 with a 3-byte PC)
+        soft_div32_cycles=600,  # estimate: 32-bit division on an 8-bit ALU
+        soft_mac64_cycles=250,  # estimate: 32x32->64 from 8x8 partial products
+        mul32_cycles=40,        # estimate: 16x16->32 from four 8x8 hardware multiplies and adds
+        op_cycles=8,            # estimate: a 32-bit op is four 8-bit ops plus loads
+    ),
 }

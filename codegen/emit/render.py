@@ -77,6 +77,19 @@ def isr_names(design: Design) -> list[str]:
     return [f.proto.split("(")[0].split()[-1] for f in api(design) if "_isr(" in f.proto]
 
 
+def internal_functions(design: Design) -> dict[str, list[str]]:
+    """The emitted C's internal (static) functions by the part of the chain they do, for tools that
+    attribute executed code to a role (edgetally.target.cycles): "output" (the post-CIC chain and
+    its clipping, once per output sample), "grid" (the CIC, once per grid instant) and "input" (the
+    per-input front end and the queue). One definition, checked against the emitted C by a test."""
+    p = design.name
+    return {
+        "output": [f"{p}_post", f"{p}_clip_data"],
+        "grid": [f"{p}_grid"],
+        "input": [f"{p}_{n}" for n in ("process", "service", "input", "phase", "gap", "full", "queue")],
+    }
+
+
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
     ops = ["wrap_s32", "rshr", "sat"]

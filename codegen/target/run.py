@@ -1,60 +1,123 @@
-"""Run a cross-compiled build (``edgetally.target.cross_build``) in the unicorn Thumb emulator.
+"""Run a cross-compiled build (``edgetally.target.build.cross_build``) in its core's emulator.
 
 ``run(build, design, inputs)`` feeds the inputs through <name>_process (or, with ``isr=True``,
 through the scheme's ISR functions and <name>_service) and returns the outputs and counters.
+``machine(build)`` is the emulated core itself (unicorn for the Arm and RISC-V classes, simavr for
+the AVR class): ``call``, ``write``, ``read``, ``stack_used``, and a tally of the executed code by
+role that ``edgetally.target.cycles`` turns into instructions and cycles.
 """
 
 from __future__ import annotations
 
+import ctypes
 from dataclasses import dataclass
 
 import numpy as np
 
 from edgetally.ir import Design
-from edgetally.target.build import (COUNTERS, FLASH_BASE, FLASH_SIZE, IN_LEN, MAX_INSNS_PER_CALL, OUT_LEN, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE, TargetBuild, TargetRunError)
+from edgetally.target.build import (COUNTERS, FLASH_BASE, FLASH_SIZE, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE,
+                                    TargetBuild, TargetRunError)
+
+# A runaway guard for one emulated call, in microseconds of emulation. unicorn's instruction-count
+# limit would add a counting hook to every instruction (measured: about 1.5x to 2x slower here).
+CALL_TIMEOUT_US = 120_000_000
+SCS_BASE = 0xE000E000
 
 
-class _Machine:
-    """One unicorn instance with the ELF loaded; call(name, *args) runs a function to its return."""
+class _TallyStruct(ctypes.Structure):
+    _fields_ = [("base", ctypes.c_uint64), ("nslots", ctypes.c_uint64), ("nctx", ctypes.c_uint32),
+                ("ctx", ctypes.c_uint32), ("role", ctypes.c_void_p), ("count", ctypes.c_void_p),
+                ("fall", ctypes.c_void_p), ("size", ctypes.c_void_p), ("prev", ctypes.c_int64),
+                ("prev_end", ctypes.c_uint64), ("active", ctypes.c_uint32)]
+
+
+@dataclass
+class BlockTally:
+    """Executions of each translated block by entry context, counted in C (csrc/tally.c) with no
+    Python call per executed block. ``role`` maps each 2-byte slot of the code to a role index."""
+
+    base: int
+    role: np.ndarray            # uint8 [nslots]
+    nctx: int
+    count: np.ndarray           # uint64 [nslots * nctx]
+    fall: np.ndarray
+    size: np.ndarray            # uint32 [nslots]
+    struct: _TallyStruct
+
+    def start(self) -> None:
+        self.struct.prev = -1
+        self.struct.active = 1
+
+    def blocks(self):
+        """(address, size, entry context, executions, fall-throughs) of every block that ran."""
+        for k in np.flatnonzero(self.count):
+            s, ctx = divmod(int(k), self.nctx)
+            yield self.base + 2 * s, int(self.size[s]), ctx, int(self.count[k]), int(self.fall[k])
+
+
+_TALLY_LIB = None
+
+
+def _tally_lib():
+    global _TALLY_LIB
+    if _TALLY_LIB is None:
+        from edgetally.target.cache import host_library
+        _TALLY_LIB = ctypes.CDLL(str(host_library("tally")))
+    return _TALLY_LIB
+
+
+class UnicornMachine:
+    """One unicorn instance (Thumb M-profile or RISC-V 32) with the ELF loaded; ``call(name, *args)``
+    runs a function to its return."""
 
     def __init__(self, build: TargetBuild):
+        import io
+
         import unicorn as uc
-        from unicorn import arm_const as A
         from elftools.elf.elffile import ELFFile
 
-        self.uc_mod, self.A, self.build = uc, A, build
-        mode = uc.UC_MODE_THUMB | uc.UC_MODE_MCLASS
-        self.mu = mu = uc.Uc(uc.UC_ARCH_ARM, mode)
-        model = A.UC_CPU_ARM_CORTEX_M0 if build.core == "cortex-m0plus" else A.UC_CPU_ARM_CORTEX_M4
-        mu.ctl_set_cpu_model(model)
+        self.uc_mod, self.build = uc, build
+        arch = build.target.arch
+        if arch == "arm":
+            from unicorn import arm_const as A
+            self.mu = mu = uc.Uc(uc.UC_ARCH_ARM, uc.UC_MODE_THUMB | uc.UC_MODE_MCLASS)
+            mu.ctl_set_cpu_model(A.UC_CPU_ARM_CORTEX_M0 if build.core == "cortex-m0plus" else A.UC_CPU_ARM_CORTEX_M4)
+            self.regs = (A.UC_ARM_REG_R0, A.UC_ARM_REG_R1, A.UC_ARM_REG_R2, A.UC_ARM_REG_R3)
+            self.sp, self.ra, self.pc, self.thumb = A.UC_ARM_REG_SP, A.UC_ARM_REG_LR, A.UC_ARM_REG_PC, 1
+        elif arch == "riscv":
+            from unicorn import riscv_const as R
+            self.mu = mu = uc.Uc(uc.UC_ARCH_RISCV, uc.UC_MODE_RISCV32)
+            self.regs = (R.UC_RISCV_REG_A0, R.UC_RISCV_REG_A1, R.UC_RISCV_REG_A2, R.UC_RISCV_REG_A3)
+            self.sp, self.ra, self.pc, self.thumb = R.UC_RISCV_REG_SP, R.UC_RISCV_REG_RA, R.UC_RISCV_REG_PC, 0
+        else:
+            raise ValueError(f"{build.core}: not a unicorn core")
         mu.mem_map(FLASH_BASE, FLASH_SIZE, uc.UC_PROT_READ | uc.UC_PROT_EXEC)
         mu.mem_map(RAM_BASE, RAM_SIZE, uc.UC_PROT_READ | uc.UC_PROT_WRITE)
         mu.mem_map(STOP_BASE, 0x1000, uc.UC_PROT_READ | uc.UC_PROT_EXEC)
-        mu.mem_write(STOP_BASE, b"\x00\xbf" * 8)           # NOPs; never executed (emulation stops here)
-        with open(build.elf, "rb") as f:
-            for seg in ELFFile(f).iter_segments():
-                if seg["p_type"] == "PT_LOAD" and seg["p_filesz"]:
-                    mu.mem_write(seg["p_paddr"], seg.data())
-        self.steps = 0
+        if arch == "arm":      # the System Control Space as plain memory: a startup write to CPACR lands here
+            mu.mem_map(SCS_BASE, 0x1000, uc.UC_PROT_READ | uc.UC_PROT_WRITE)
+        for seg in ELFFile(io.BytesIO(build.elf_bytes)).iter_segments():
+            if seg["p_type"] == "PT_LOAD" and seg["p_filesz"]:
+                mu.mem_write(seg["p_paddr"], seg.data())
+        self._hooks = []
 
     def call(self, name: str, *args: int) -> int:
-        A, mu = self.A, self.mu
-        for reg, v in zip((A.UC_ARM_REG_R0, A.UC_ARM_REG_R1, A.UC_ARM_REG_R2, A.UC_ARM_REG_R3), args):
+        mu = self.mu
+        for reg, v in zip(self.regs, args):
             mu.reg_write(reg, v & 0xFFFFFFFF)
-        mu.reg_write(A.UC_ARM_REG_SP, STACK_TOP)
-        mu.reg_write(A.UC_ARM_REG_LR, STOP_BASE | 1)
+        mu.reg_write(self.sp, STACK_TOP)
+        mu.reg_write(self.ra, STOP_BASE | self.thumb)
         try:
-            mu.emu_start(self.build.address(name) | 1, STOP_BASE, count=MAX_INSNS_PER_CALL)
+            mu.emu_start(self.build.address(name) | self.thumb, STOP_BASE, timeout=CALL_TIMEOUT_US)
         except self.uc_mod.UcError as e:
-            pc = mu.reg_read(A.UC_ARM_REG_PC)
-            raise TargetRunError(f"{name}: {e} at pc=0x{pc:08x}") from e
-        pc = mu.reg_read(A.UC_ARM_REG_PC)
+            raise TargetRunError(f"{name}: {e} at pc=0x{mu.reg_read(self.pc):08x}") from e
+        pc = mu.reg_read(self.pc)
         if pc & ~1 != STOP_BASE:
-            raise TargetRunError(f"{name} did not return (pc=0x{pc:08x}; instruction limit?)")
-        return mu.reg_read(A.UC_ARM_REG_R0)
+            raise TargetRunError(f"{name} did not return (pc=0x{pc:08x}; time limit?)")
+        return mu.reg_read(self.regs[0])
 
     def write(self, name: str, arr: np.ndarray) -> None:
-        self.mu.mem_write(self.build.address(name), arr.tobytes())
+        self.mu.mem_write(self.build.address(name), np.ascontiguousarray(arr).tobytes())
 
     def read(self, name: str, count: int, dtype) -> np.ndarray:
         nbytes = count * np.dtype(dtype).itemsize
@@ -67,6 +130,37 @@ class _Machine:
         nz = next((i for i in range(0, size, 4) if data[i:i + 4] != b"\0\0\0\0"), size)
         return size - nz
 
+    def block_tally(self, role: np.ndarray, nctx: int) -> BlockTally:
+        """Install the C block hook over the code (before anything runs: unicorn applies a block hook
+        only to code translated after it was added); counting starts with ``start()``."""
+        lib = _tally_lib()
+        n = role.size
+        t = BlockTally(FLASH_BASE, np.ascontiguousarray(role, dtype=np.uint8), nctx,
+                       np.zeros(n * nctx, np.uint64), np.zeros(n * nctx, np.uint64), np.zeros(n, np.uint32),
+                       _TallyStruct())
+        s = t.struct
+        s.base, s.nslots, s.nctx, s.ctx, s.prev, s.active = FLASH_BASE, n, nctx, 0, -1, 0
+        s.role, s.count, s.fall, s.size = (a.ctypes.data for a in (t.role, t.count, t.fall, t.size))
+        from unicorn.unicorn_py3.unicorn import uc_hook_h, uclib
+
+        handle = uc_hook_h()
+        status = uclib.uc_hook_add(self.mu._uch, ctypes.byref(handle), self.uc_mod.UC_HOOK_BLOCK,
+                                   ctypes.cast(lib.et_tally_block, ctypes.c_void_p),
+                                   ctypes.cast(ctypes.pointer(s), ctypes.c_void_p),
+                                   ctypes.c_uint64(FLASH_BASE), ctypes.c_uint64(FLASH_BASE + 2 * n - 1))
+        if status != 0:
+            raise TargetRunError(f"unicorn refused the block hook (error {status})")
+        self._hooks.append(t)          # keeps the arrays alive as long as the machine
+        return t
+
+
+def machine(build: TargetBuild):
+    """The emulated core for ``build``, with the ELF loaded and RAM zeroed."""
+    if build.target.emulator == "simavr":
+        from edgetally.target.simavr import AvrMachine
+        return AvrMachine(build)
+    return UnicornMachine(build)
+
 
 @dataclass
 class TargetRun:
@@ -76,14 +170,15 @@ class TargetRun:
     stack_bytes: int
 
 
-def _counters(m: _Machine) -> dict:
+def read_counters(m) -> dict:
     vals = {k: int(m.call("harness_counter", i)) for i, k in enumerate(COUNTERS)}
     vals["carrier"] = bool(vals["carrier"])
     vals["offset"] = vals["offset"] - (1 << 32) if vals["offset"] >= 1 << 31 else vals["offset"]
     return vals
 
 
-def _feed_process(m: _Machine, build: TargetBuild, inputs: np.ndarray, block: int) -> list[np.ndarray]:
+def feed_process(m, build: TargetBuild, inputs: np.ndarray, block: int) -> list[np.ndarray]:
+    """Feed ``inputs`` through harness_process in blocks of ``block``; the output chunks."""
     chunks = []
     for start in range(0, inputs.size, block):
         blk = inputs[start:start + block]
@@ -96,14 +191,16 @@ def _feed_process(m: _Machine, build: TargetBuild, inputs: np.ndarray, block: in
     return chunks
 
 
-def _feed_isr(m: _Machine, build: TargetBuild, inputs: np.ndarray, service_every: int) -> list[np.ndarray]:
+def feed_isr(m, build: TargetBuild, inputs: np.ndarray, service_every: int) -> list[np.ndarray]:
+    """Feed ``inputs`` one at a time through the ISR function(s), <name>_service every
+    ``service_every`` inputs and at the end; the output chunks."""
     chunks = []
 
     def drain():
         while True:
             k = m.call("harness_service")
             chunks.append(m.read("harness_out", k, build.sample_dtype))
-            if k < OUT_LEN:
+            if k < build.out_len:
                 return
 
     for start in range(0, inputs.size, service_every):
@@ -116,22 +213,23 @@ def _feed_isr(m: _Machine, build: TargetBuild, inputs: np.ndarray, service_every
     return chunks
 
 
-def run(build: TargetBuild, design: Design, inputs: np.ndarray, block: int = IN_LEN, isr: bool = False,
+def run(build: TargetBuild, design: Design, inputs: np.ndarray, block: int | None = None, isr: bool = False,
         service_every: int | None = None) -> TargetRun:
     """Run the cross-built C in the emulator on ``inputs``. Default: blocks of ``block`` inputs
-    through <name>_process. ``isr=True``: one input at a time through the scheme's ISR function(s)
-    (for an edge-counting interrupt design, the edge ISR once per new edge, then the tick ISR),
-    <name>_service every ``service_every`` inputs (default: a quarter of the queue)."""
+    (at most the harness buffer) through <name>_process. ``isr=True``: one input at a time through
+    the scheme's ISR function(s) (for an edge-counting interrupt design, the edge ISR once per new
+    edge, then the tick ISR), <name>_service every ``service_every`` inputs (default: a quarter of
+    the queue)."""
     if design.name != build.design_name:
         raise ValueError("build and design differ")
     inputs = np.ascontiguousarray(inputs, dtype=build.input_dtype)
-    block = max(1, min(block, IN_LEN))
-    m = _Machine(build)
+    block = max(1, min(block or build.in_len, build.in_len))
+    m = machine(build)
     m.call("harness_init")
     if isr:
-        every = max(1, min(service_every or design.queue_len // 4, IN_LEN))
-        chunks = _feed_isr(m, build, inputs, every)
+        every = max(1, min(service_every or design.queue_len // 4, build.in_len))
+        chunks = feed_isr(m, build, inputs, every)
     else:
-        chunks = _feed_process(m, build, inputs, block)
+        chunks = feed_process(m, build, inputs, block)
     out = np.concatenate(chunks) if chunks else np.zeros(0, dtype=build.sample_dtype)
-    return TargetRun(outputs=out, counters=_counters(m), inputs=int(inputs.size), stack_bytes=m.stack_used())
+    return TargetRun(outputs=out, counters=read_counters(m), inputs=int(inputs.size), stack_bytes=m.stack_used())
