@@ -1,15 +1,18 @@
-"""Benchmark (not a test): cost of the emitted integer C on Cortex-M0+ and Cortex-M4, against a
-plain double-precision C version of the same chain (benchmarks/hand_float/float_chain.c, soft float from
-libgcc), both cross-compiled at -Os and run in the same instruction emulator.
+"""Benchmark (not a test): cost of the emitted integer C on every emulated core, against the
+hand-written float version of the same chain (benchmarks/hand_float/float_chain.c) in single
+precision (soft float on the Cortex-M0+, RV32 and AVR classes; the single-precision FPU on the
+Cortex-M4F class) and, as an extra column, double precision (soft float), all cross-compiled at -Os
+and run in the same emulator (unicorn; simavr for the AVR).
 
     python benchmarks/bench_target.py
 
-For every example's chosen design and each core: instructions and estimated cycles per output
-sample (a whole <name>_process run over N = 3072 inputs after WARM = 1024 inputs of warm-up, divided by the
-outputs), flash (code + constants + the libgcc helpers pulled in) and RAM (state), for both
-versions, and the ratio. Cycles come from edgetally.target's per-class table (from memory of the
-cores' published instruction timings; see target_cycles.CYCLES), so they are estimates. Needs
-arm-none-eabi-gcc, unicorn, pyelftools (capstone for the class table).
+For every example's chosen design and each core: instructions and cycles per output sample (a
+whole <name>_process run over N = 3072 inputs after WARM = 1024 inputs of warm-up, divided by the
+outputs), flash (code + constants + the run-time helpers pulled in) and RAM (state) of the integer
+C, the float cycles and the ratio float/integer (below 1: float is faster on that core, said in the
+last column). Cycles: estimates from edgetally.target.cycles.TIMING on the unicorn cores, simavr's
+exact count on the AVR. The float figures are cached by design hash (edgetally.target.cache): a
+second run measures only the integer C.
 """
 
 from __future__ import annotations
@@ -19,8 +22,8 @@ from pathlib import Path
 
 import edgetally
 from edgetally.target import build as target
-from edgetally.target.float_baseline import bench_inputs, float_build, per_output
-from edgetally.target.build import CORE_FLAGS
+from edgetally.target.check import available_cores
+from edgetally.target.float_baseline import baseline, bench_inputs, per_output
 
 HERE = Path(__file__).resolve().parent
 EXAMPLES = HERE.parent / "examples"
@@ -37,23 +40,34 @@ def state_bytes(build) -> int:
 
 
 def main() -> None:
-    root = Path(tempfile.mkdtemp(prefix="edgetally-bench-target-"))
-    hdr = (f"{'example':14} {'scheme':10} {'core':14} {'int insn/out':>12} {'int cyc/out':>11} {'flt cyc/out':>11} "
-           f"{'ratio':>6} {'int flash':>9} {'flt flash':>9} {'int RAM':>7} {'flt RAM':>7}")
+    cores = available_cores()
+    hdr = (f"{'example':14} {'scheme':10} {'core':14} {'int insn/out':>12} {'int cyc/out':>11} {'f32 cyc/out':>11} "
+           f"{'f32/int':>7} {'f64 cyc/out':>11} {'f64/int':>7} {'int flash':>9} {'int RAM':>7}  note")
     print(hdr)
     print("-" * len(hdr))
-    for path in sorted(EXAMPLES.glob("*.toml")):
-        d = edgetally.design(edgetally.load_spec(path))
-        x = bench_inputs(d, seed=1)
-        for core in sorted(CORE_FLAGS):
-            ib = target.cross_build(d, core, workdir=root / f"{path.stem}-{core}-int")
-            fb = float_build(d, core, root / f"{path.stem}-{core}-float")
-            ii, ic, _ = per_output(ib, x)
-            _, fc, _ = per_output(fb, x)
-            print(f"{path.stem:14} {d.scheme:10} {core:14} {ii:12.0f} {ic:11.0f} {fc:11.0f} {fc / ic:6.1f} "
-                  f"{code_bytes(ib):9d} {code_bytes(fb):9d} {state_bytes(ib):7d} {state_bytes(fb):7d}")
-    print("\ncycles: estimates from the per-class table in edgetally.target (zero wait states); flash: code +")
-    print("constants + libgcc helpers (no harness entry points); RAM: .data + .bss without the harness buffers.")
+    losses = []
+    with tempfile.TemporaryDirectory(prefix="edgetally-bench-target-") as root:
+        for path in sorted(EXAMPLES.glob("*.toml")):
+            d = edgetally.design(edgetally.load_spec(path))
+            x = bench_inputs(d, seed=1)
+            for core in cores:
+                ib = target.cross_build(d, core, workdir=Path(root) / f"{path.stem}-{core}-int")
+                i = per_output(ib, x)
+                f = baseline(d, core, x)
+                r32, r64 = f.single.cycles / i.cycles, f.double.cycles / i.cycles
+                note = "FPU" if f.fpu else "soft float"
+                if r32 < 1:
+                    note += f": FLOAT {1 / r32:.1f}x FASTER"
+                    losses.append(f"{path.stem} on {core}")
+                print(f"{path.stem:14} {d.scheme:10} {core:14} {i.instructions:12.0f} {i.cycles:11.0f} "
+                      f"{f.single.cycles:11.0f} {r32:7.2f} {f.double.cycles:11.0f} {r64:7.2f} "
+                      f"{code_bytes(ib):9d} {state_bytes(ib):7d}  {note}")
+    print("\ncycles: estimates from per-class tables (zero wait states) on the Arm and RISC-V classes, simavr's")
+    print("count on the AVR; f32: single precision (the comparison a user makes), f64: double, both hand-written;")
+    print("flash: code + constants + libgcc/libm helpers (no harness entry points); RAM: .data + .bss without")
+    print("the harness buffers. On the AVR, double is float (32 bits) in avr-gcc, so f64 = f32.")
+    if losses:
+        print("\nInteger loses to hardware float on: " + ", ".join(losses) + ".")
 
 
 if __name__ == "__main__":
