@@ -83,10 +83,11 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
     its clipping, once per output sample), "grid" (the CIC, once per grid instant) and "input" (the
     per-input front end and the queue). One definition, checked against the emitted C by a test."""
     p = design.name
+    stamp_only = ("phase", "gap") if design.front.kind == "stamp" else ()
     return {
         "output": [f"{p}_post", f"{p}_clip_data"],
         "grid": [f"{p}_grid"],
-        "input": [f"{p}_{n}" for n in ("process", "service", "input", "phase", "gap", "full", "queue")],
+        "input": [f"{p}_{n}" for n in ("process", "service", "input", *stamp_only, "full", "queue")],
     }
 
 

@@ -18,10 +18,15 @@ from edgetally.ir import Design
 from edgetally.target.build import (COUNTERS, FLASH_BASE, FLASH_SIZE, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE,
                                     TargetBuild, TargetRunError)
 
-# A runaway guard for one emulated call, in microseconds of emulation. unicorn's instruction-count
-# limit would add a counting hook to every instruction (measured: about 1.5x to 2x slower here).
-CALL_TIMEOUT_US = 120_000_000
+# A runaway guard for one emulated call, in executed blocks (csrc/tally.c counts them in C). unicorn's
+# own instruction-count limit adds a hook to every instruction and its timeout a thread to every
+# call (measured here: 1.5x to 2.7x slower on the ISR path's many short calls).
+MAX_BLOCKS_PER_CALL = 50_000_000
 SCS_BASE = 0xE000E000
+
+
+class _GuardStruct(ctypes.Structure):
+    _fields_ = [("blocks", ctypes.c_uint64), ("limit", ctypes.c_uint64), ("stop", ctypes.c_void_p)]
 
 
 class _TallyStruct(ctypes.Structure):
@@ -100,20 +105,36 @@ class UnicornMachine:
             if seg["p_type"] == "PT_LOAD" and seg["p_filesz"]:
                 mu.mem_write(seg["p_paddr"], seg.data())
         self._hooks = []
+        self.guard = _GuardStruct(0, MAX_BLOCKS_PER_CALL, None)
+        from unicorn.unicorn_py3.unicorn import uclib
+        self.guard.stop = ctypes.cast(uclib.uc_emu_stop, ctypes.c_void_p)
+        self._hook_c(_tally_lib().et_guard_block, self.guard, FLASH_BASE, FLASH_BASE + FLASH_SIZE - 1)
+
+    def _hook_c(self, fn, struct, begin: int, end: int) -> None:
+        """Add a block hook written in C (``fn``) with ``struct`` as its user data."""
+        from unicorn.unicorn_py3.unicorn import uc_hook_h, uclib
+
+        handle = uc_hook_h()
+        status = uclib.uc_hook_add(self.mu._uch, ctypes.byref(handle), self.uc_mod.UC_HOOK_BLOCK,
+                                   ctypes.cast(fn, ctypes.c_void_p), ctypes.cast(ctypes.pointer(struct), ctypes.c_void_p),
+                                   ctypes.c_uint64(begin), ctypes.c_uint64(end))
+        if status != 0:
+            raise TargetRunError(f"unicorn refused a block hook (error {status})")
 
     def call(self, name: str, *args: int) -> int:
         mu = self.mu
+        self.guard.blocks = 0
         for reg, v in zip(self.regs, args):
             mu.reg_write(reg, v & 0xFFFFFFFF)
         mu.reg_write(self.sp, STACK_TOP)
         mu.reg_write(self.ra, STOP_BASE | self.thumb)
         try:
-            mu.emu_start(self.build.address(name) | self.thumb, STOP_BASE, timeout=CALL_TIMEOUT_US)
+            mu.emu_start(self.build.address(name) | self.thumb, STOP_BASE)
         except self.uc_mod.UcError as e:
             raise TargetRunError(f"{name}: {e} at pc=0x{mu.reg_read(self.pc):08x}") from e
         pc = mu.reg_read(self.pc)
         if pc & ~1 != STOP_BASE:
-            raise TargetRunError(f"{name} did not return (pc=0x{pc:08x}; time limit?)")
+            raise TargetRunError(f"{name} did not return (pc=0x{pc:08x}; more than {MAX_BLOCKS_PER_CALL} blocks?)")
         return mu.reg_read(self.regs[0])
 
     def write(self, name: str, arr: np.ndarray) -> None:
@@ -141,15 +162,7 @@ class UnicornMachine:
         s = t.struct
         s.base, s.nslots, s.nctx, s.ctx, s.prev, s.active = FLASH_BASE, n, nctx, 0, -1, 0
         s.role, s.count, s.fall, s.size = (a.ctypes.data for a in (t.role, t.count, t.fall, t.size))
-        from unicorn.unicorn_py3.unicorn import uc_hook_h, uclib
-
-        handle = uc_hook_h()
-        status = uclib.uc_hook_add(self.mu._uch, ctypes.byref(handle), self.uc_mod.UC_HOOK_BLOCK,
-                                   ctypes.cast(lib.et_tally_block, ctypes.c_void_p),
-                                   ctypes.cast(ctypes.pointer(s), ctypes.c_void_p),
-                                   ctypes.c_uint64(FLASH_BASE), ctypes.c_uint64(FLASH_BASE + 2 * n - 1))
-        if status != 0:
-            raise TargetRunError(f"unicorn refused the block hook (error {status})")
+        self._hook_c(lib.et_tally_block, s, FLASH_BASE, FLASH_BASE + 2 * n - 1)
         self._hooks.append(t)          # keeps the arrays alive as long as the machine
         return t
 

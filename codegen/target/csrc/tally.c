@@ -47,3 +47,22 @@ void et_tally_block(void *uc, uint64_t addr, uint32_t size, void *user)
     t->prev = (int64_t)k;
     t->prev_end = addr + size;
 }
+
+/* A runaway guard: counts the executed blocks of a call and stops the emulation past a limit (the
+ * caller then sees the stop address was not reached). Cheaper than unicorn's instruction-count
+ * limit (a hook on every instruction) or its timeout (a thread per call). */
+typedef struct {
+    uint64_t blocks;
+    uint64_t limit;
+    int (*stop)(void *uc);      /* uc_emu_stop */
+} et_guard;
+
+void et_guard_block(void *uc, uint64_t addr, uint32_t size, void *user)
+{
+    et_guard *g = (et_guard *)user;
+    (void)addr;
+    (void)size;
+    if (++g->blocks > g->limit) {
+        g->stop(uc);
+    }
+}
