@@ -28,7 +28,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from edgetally.dsp import cic
+from edgetally.dsp import cic, iir
 from edgetally.designer import wordlength as fixed
 from edgetally.measure import metrics
 from edgetally.check import model
@@ -132,7 +132,7 @@ def test_coef_bits_for_holds_the_rounded_coefficients(c):
     # Exact integer comparisons: no tolerance.
     rows = [[c, 0.0, 0.0, 1.0, 0.0, 0.0]]
     cb = fixed.coef_bits_for(rows, 11, [11], 16)
-    sec = fixed.quantise_rows(rows, ["lowpass"], 11, [11], cb)[0]
+    sec = iir.quantise_rows(rows, ["lowpass"], 11, [11], cb)[0]
     for v in (sec.b0, sec.b1, sec.b2, sec.a1, sec.a2):
         assert -(2 ** 15) <= v <= 2 ** 15 - 1, (cb, v)
     assert not -(2 ** 15) <= round(c * 2.0 ** (cb + 1)) <= 2 ** 15 - 1     # one more bit would not fit

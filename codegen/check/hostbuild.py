@@ -20,7 +20,8 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.ir import Design
+from edgetally.fixedpoint import wrap_bits
+from edgetally.ir import Design, Topology
 from edgetally.emit import api, emit, input_type, isr_names
 from edgetally.check.model import service_due
 
@@ -137,14 +138,13 @@ class HostDemod:
         def due(k: int) -> bool:              # k: inputs so far
             return service_due(k, service_every, stall)
 
-        if d.scheme == "interrupt" and d.front.kind == "count":
+        if d.topology is Topology.EDGE_COUNT:
             edge, tick = self._fn("edge_isr"), self._fn("tick_isr")
-            mask = (1 << d.front.counter_bits) - 1
             values = inputs.astype(np.int64)
             for _ in range(int(values[0])):
                 edge(st)
             tick(st)
-            for k, step in enumerate((np.diff(values) & mask).tolist(), 2):
+            for k, step in enumerate(wrap_bits(np.diff(values), d.input_bits).tolist(), 2):
                 for _ in range(step):
                     edge(st)
                 tick(st)

@@ -71,7 +71,7 @@ def _filters(spec: Spec, p: Plan, a: fixed.Arith, scaling: str, coef_bits: int |
     q_in = math.floor(math.log2(lim / in_rel))
     qs = fixed.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
     cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, fixed.coef_bits_for(rows, q_in, qs, a.coef_width))
-    sections = fixed.quantise_rows(rows, roles, q_in, qs, cb)
+    sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
 

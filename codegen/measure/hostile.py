@@ -275,7 +275,7 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
     rng = np.random.default_rng(options.seed)
     total = LEAD_S + PRE_S + 0.1
     times = _edges(design, total, rng)
-    bits = design.front.timer_bits if design.front.kind == "stamp" else design.front.counter_bits
+    bits = design.input_bits
     base = _hardware(design, times, total, options.seed, start=0)
     want = model.run(design, base)
     ref, c0 = host.process(base)
@@ -288,7 +288,7 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
             got, c = host.process(_hardware(design, times, total, options.seed, start=start))
             same &= bool(np.array_equal(got, ref)) and c["gaps"] == c0["gaps"] and c["clamps"] == c0["clamps"]
             runs += 1
-    what = "timer" if design.front.kind == "stamp" else "counter"
+    what = "timer" if design.stamps else "counter"
     return ScenarioResult(
         name="timer-wrap", description=f"the {bits}-bit {what} wraps at {runs} places (at and just after "
                                        f"{len(places)} inputs spread over the run)",

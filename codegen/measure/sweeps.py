@@ -110,7 +110,7 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
         x=float(x), bit_exact=exact, sinad_db=round(a.sinad_db, 2), float_sinad_db=round(flt, 2),
         snr_db=round(a.snr_db, 2), thd_db=round(a.thd_db, 2), level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),
         predicted_db=None if predicted is None else round(float(predicted), 2),
-        offset_hz=round(counters["offset"] * design.full_scale_hz / 2 ** design.scale.q, 2),
+        offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 2),
         flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")})
 
 

@@ -92,7 +92,7 @@ def _checked_filters(spec: Spec) -> list:
     filters = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz)
     for role, sos in filters:
         try:
-            iir.quantise(sos, iir.COEF_BITS)
+            iir.quantise_rows(list(sos), [role] * len(sos), 0, [0] * len(sos), iir.COEF_BITS)
         except ValueError:
             fld = FILTER_FIELDS[role]
             val = sig.audio_hz if role == "lowpass" else sig.deemphasis_us

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from edgetally.check import model
-from edgetally.ir import Design
+from edgetally.ir import Design, Topology
 from edgetally.stimulus.inputs import DEFAULT_SEED, make_inputs
 
 
@@ -65,16 +65,17 @@ def measured_load(design: Design, t: dict) -> float:
     fr, b, rates = design.front, design.budget, design.rates
     edge_hz = b.edge_hz_max
     isr = t["isr_cycles_with_entry"]
-    if fr.kind == "stamp":
-        input_hz = edge_hz / fr.prescale
-        isr_load = 0.0 if (design.scheme == "timestamp" and b.dma) else sum(isr.values()) * input_hz
+    topo = design.topology
+    if design.stamps:
+        input_hz = design.input_hz_max
+        isr_load = 0.0 if (topo is Topology.CAPTURE and b.dma) else sum(isr.values()) * input_hz
     else:
         input_hz = rates.grid_hz
         isr_load = 0.0
         for name, cyc in isr.items():
             if name.endswith("_edge_isr"):
                 isr_load += cyc * edge_hz
-            elif not (design.scheme == "counter" and b.dma):
+            elif not (topo is Topology.COUNTER and b.dma):
                 isr_load += cyc * rates.grid_hz
     work = input_hz * t["cycles_per_input"] + rates.grid_hz * t["cycles_per_grid"] + rates.out_hz * t["cycles_per_output"]
     return round((isr_load + work) / b.cpu_hz, 4)
