@@ -37,8 +37,7 @@ def _host(hosts, key):
 @pytest.mark.parametrize("key", IDS)
 def test_every_scenario_passes(hosts, key):
     d = ALL_DESIGNS[key]
-    results = hostile.run_all(d, _host(hosts, key))
-    assert [r.name for r in results] == list(hostile.SCENARIOS)
+    results = [hostile.run_scenario(d, name, _host(hosts, key)) for name in hostile.SCENARIOS]
     for r in results:
         # bit-exact and no overflow hold on every design and every scenario, limited or not
         assert r.bit_exact, (key, r.name)

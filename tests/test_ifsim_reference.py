@@ -44,14 +44,21 @@ F0, FM, FS, SPAN = 100_000.0, 1000.0, 1_024_000.0, 0.01   # 10 modulation period
 N_SAMPLES = 10240
 
 
+def _if_waveform(sig: FmSignal, fs: float, duration_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """The noiseless IF sin(2 pi phase(t)) (unit amplitude) at t = k / fs in [0, duration_s)."""
+    t = np.arange(int(math.ceil(duration_s * fs))) / fs
+    t = t[t < duration_s]
+    return t, np.sin(2 * np.pi * sig.phase(t))
+
+
 def _lines(beta: float, theta: float, start: float):
-    """One-sided amplitude spectrum of if_waveform (sine amplitude per bin), the carrier's bin and
+    """One-sided amplitude spectrum of _if_waveform (sine amplitude per bin), the carrier's bin and
     the bins per fm. The span holds whole modulation periods and whole IF cycles, so every line
     f0 + n fm falls on a bin (no leakage). Images: the negative-frequency lines reach the carrier's
     bin only for n = -2 f0 / fm = -200, and the alias at fs for n = (fs - 2 f0) / fm = 824:
     |J_200(beta)| < 1e-200 for beta < 9, so both are nothing."""
     sig = FmSignal(if_hz=F0, tones=(Tone(FM, beta * FM, theta),), start_phase=start)
-    t, x = ifsim.if_waveform(sig, FS, SPAN)
+    t, x = _if_waveform(sig, FS, SPAN)
     assert x.size == N_SAMPLES and t[-1] < SPAN
     a = 2 * np.abs(np.fft.rfft(x)) / x.size
     return a, int(round(F0 / (FS / x.size))), int(round(FM / (FS / x.size)))

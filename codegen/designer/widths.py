@@ -122,6 +122,10 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
         "droop_db_at_band_edge": round(cic.droop_db(band, out_hz, c.order, c.ratio), 3),
         "compensated": any(s.role == "droop" for s in d.filters.sections),
         "worst_alias_db": round(float(cic.response_db((out_hz - band) / out_hz, c.order, c.ratio)), 2),
+        # Hogenauer's pruned register widths (eq. 21) if the output were kept to the data word: shown
+        # so that the user sees what pruning would give; every register is a 32-bit word anyway
+        "pruned_widths": cic.pruned_widths(c.in_bits, min(cic.full_width(c.in_bits, c.order, c.ratio),
+                                                          d.filters.data_bits), c.order, c.ratio),
         "pruning": "not applied: every CIC register is a 32-bit word on these targets, so Hogenauer's "
                    "pruning would save no storage or cycles",
     }

@@ -297,17 +297,3 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
         output_note=("identical to the run without a wrap on every sample" if same
                      else "differs from the run without a wrap"),
         recovery_ms=0.0, predicted_recovery_ms=0.0)
-
-
-def run_all(design: Design, host=None, options: Options = Options(),
-            progress: Callable[[str], None] | None = None) -> tuple[ScenarioResult, ...]:
-    """Every scenario, in SCENARIOS order; ``progress`` is told each name as it starts."""
-    from edgetally.check import hostbuild
-
-    host = host or hostbuild.build(design)
-    out = []
-    for name in SCENARIOS:
-        if progress:
-            progress(name)
-        out.append(run_scenario(design, name, host, options))
-    return tuple(out)

@@ -42,7 +42,9 @@ class Made:
 
     @property
     def ok(self) -> bool:
-        return self.verify.bit_exact and self.sweeps_bit_exact and not self.failed_scenarios
+        """The one verdict (edgetally.check.verify.VerifyResult.ok, the emulated targets included),
+        every sweep point bit-exact and every scenario passed."""
+        return self.verify.ok and self.sweeps_bit_exact and not self.failed_scenarios
 
 
 def steps(design: Design) -> int:

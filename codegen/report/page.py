@@ -126,6 +126,8 @@ def _verdict(ctx: ReportContext) -> str:
         cores = ", ".join(f"{_e(k)} {_yes(bool(t.get('bit_exact')), 'bit-exact', 'DIFFERS')}"
                           for k, t in ctx.target.items())
         lines.append(f"Cross-compiled and emulated: {cores}.")
+    elif v.target_bit_exact is False:
+        lines.append(f"Cross-compiled and emulated: {_yes(False, no='DIFFERS from the model')}.")
     return "\n".join(f"<p>{ln}</p>" for ln in lines)
 
 

@@ -74,13 +74,6 @@ def above_threshold_snr_db(cnr_db: float, deviation_hz: float, audio_hz: float) 
     return float(cnr_db + 10.0 * math.log10(3.0 * beta ** 2 * (beta + 1.0)))
 
 
-def if_waveform(sig: FmSignal, fs: float, duration_s: float) -> tuple[np.ndarray, np.ndarray]:
-    """The noiseless IF sin(2 pi phase(t)) (unit amplitude) at t = k / fs in [0, duration_s)."""
-    t = np.arange(int(math.ceil(duration_s * fs))) / fs
-    t = t[t < duration_s]
-    return t, np.sin(2 * np.pi * sig.phase(t))
-
-
 @dataclass(frozen=True)
 class NoisyIf:
     """Samples of the noisy IF r = carrier + noise at t = (k - pad) / fs (a few samples lie before
