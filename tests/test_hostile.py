@@ -81,7 +81,7 @@ def test_timer_wrap_output_is_independent_of_the_start_value(hosts):
     """Every alignment of the wrap gives the same output as the model's: checked directly on a
     16-bit timer at every offset of the wrap within one stamp interval (not only at stamps)."""
     from edgetally.stimulus.inputs import hardware_inputs
-    from edgetally.stimulus import fm as signals
+    from edgetally.stimulus import signals
     from edgetally.planner import schemes
 
     key = "tiny_irq:auto"

@@ -12,7 +12,7 @@ import edgetally
 from edgetally.measure import metrics
 from edgetally.check import reference
 from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 from edgetally.planner.choose import TIE_DB, plan
 from edgetally.planner.schemes import Variant
 from edgetally.stimulus.inputs import LEAD_S, make_inputs

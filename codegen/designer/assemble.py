@@ -13,7 +13,7 @@ from fractions import Fraction
 
 from edgetally import __version__
 from edgetally.dsp import cic
-from edgetally.designer import wordlength as fixed
+from edgetally.designer import wordlength
 from edgetally.dsp import iir
 from edgetally.planner import schemes
 from edgetally.ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
@@ -61,16 +61,16 @@ def _bound_rel(spec: Spec, p: Plan) -> float:
     return float(max(centre, y_max - centre) * unit / Fraction(spec.output.full_scale_hz))
 
 
-def _filters(spec: Spec, p: Plan, a: fixed.Arith, scaling: str, coef_bits: int | None) -> tuple[Filters, int]:
+def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: int | None) -> tuple[Filters, int]:
     sig, out = spec.signal, spec.output
     pairs = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz, droop=_droop(spec, p))
     rows = [list(map(float, r)) for _, sos in pairs for r in sos]
     roles = [role for role, sos in pairs for _ in sos]
-    lim = fixed.limit_of(a.data_bits)
+    lim = wordlength.limit_of(a.data_bits)
     in_rel = 2 * _bound_rel(spec, p)                        # audio minus offset
     q_in = math.floor(math.log2(lim / in_rel))
-    qs = fixed.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
-    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, fixed.coef_bits_for(rows, q_in, qs, a.coef_width))
+    qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
+    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
@@ -103,7 +103,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     out_bits = output_bits(spec.output.format)
     opts = []
     for name in names:
-        a = fixed.ARITHS[name]
+        a = wordlength.ARITHS[name]
         a = dataclasses.replace(a, **{k: ov[k] for k in ("data_bits", "coef_width", "acc_bits") if k in ov})
         scaling = ov.get("scaling", fx.scaling if a.acc_bits == 64 else "l1")
         try:
@@ -111,8 +111,8 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
         except ValueError as e:
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
-        err = fixed.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
-        noise = fixed.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
+        err = wordlength.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
+        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
                                      spec.signal.audio_hz)
         loss = 10 * math.log10(1 + noise / signal_fs2)
         needed = f.coef_bits
@@ -121,7 +121,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
                 g, _ = _filters(spec, p, a, scaling, cb)
             except ValueError:
                 break
-            if fixed.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
+            if wordlength.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
                 break
             needed = cb
         cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections))
@@ -155,7 +155,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, limit=f.limit, dc_shift=dc_shift)
-    cert = fixed.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
+    cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
                              dc_shift=dc_shift, f=f)
     per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output

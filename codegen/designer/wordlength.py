@@ -19,8 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import iir
-from edgetally.fixedpoint import rshr, sat, section_step
+from edgetally.fixedpoint import rshr, section_step
 from edgetally.ir import Filters, Register, Section
 
 IMPULSE_LEN = 4096          # samples of impulse response for the norms (the filters decay far faster)

@@ -7,14 +7,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass
-from typing import Callable
 
 import numpy as np
 
 from edgetally.check import model
 from edgetally.measure import recovery
 from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 from edgetally.ir import Design
 
 

@@ -10,13 +10,13 @@ from typing import Callable
 
 import numpy as np
 
-from edgetally.stimulus import ifnoise as ifsim
+from edgetally.stimulus import ifnoise
 from edgetally.measure import metrics
 from edgetally.check import model
 from edgetally.check import reference
 from edgetally.measure import response
 from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 from edgetally.ir import Design
 
 KINDS = ("cnr", "tone", "deviation", "offset")
@@ -173,9 +173,9 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
         if kind == "cnr":
             sig = _tone(design, tone, dev, seed)
             duration = LEAD_S + SECONDS
-            times = ifsim.noisy_edge_times(sig, duration, x, rng=np.random.default_rng(seed + 11 + n))
+            times = ifnoise.noisy_edge_times(sig, duration, x, rng=np.random.default_rng(seed + 11 + n))
             inputs = _inputs(design, sig, seed, times)
-            predicted = ifsim.above_threshold_snr_db(x, dev, design.audio_hz)
+            predicted = ifnoise.above_threshold_snr_db(x, dev, design.audio_hz)
             pt = _measure(design, host, inputs, tone, x, predicted)
         elif kind == "tone":
             inputs = _inputs(design, _tone(design, x, dev, seed), seed)

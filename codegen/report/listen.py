@@ -31,7 +31,7 @@ from scipy.io import wavfile
 
 from edgetally.check import hostbuild
 from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 from edgetally.ir import Design
 from edgetally.stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
 

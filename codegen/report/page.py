@@ -286,7 +286,7 @@ def _hostile_section(ctx: ReportContext) -> str:
 
 def _budget_section(ctx: ReportContext) -> str:
     d, spec = ctx.design, ctx.spec
-    b, fr, r = d.budget, d.front, d.rates
+    b, r = d.budget, d.rates
     input_hz = d.input_hz_max
     edge = str(b.cycles_per_edge) if b.cycles_per_edge else "none (hardware or DMA)"
     kind = "stamp" if d.stamps else "count"

@@ -14,7 +14,7 @@ import numpy as np
 
 from edgetally.ir import Design, Topology
 from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 
 LEAD_S = 0.1
 DEFAULT_SEED = 20261202

@@ -62,7 +62,7 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
 def measured_load(design: Design, t: dict) -> float:
     """CPU fraction at the highest edge rate from cycles measured in the emulator: ISR calls (with
     exception entry and exit) at their event rates, inputs, grid instants and output samples."""
-    fr, b, rates = design.front, design.budget, design.rates
+    b, rates = design.budget, design.rates
     edge_hz = b.edge_hz_max
     isr = t["isr_cycles_with_entry"]
     topo = design.topology
