@@ -21,10 +21,10 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.fixedpoint import wrap_bits
-from edgetally.ir import Design, Topology
-from edgetally.emit import api, emit, input_type, isr_names
-from edgetally.check.model import service_due
+from ..fixedpoint import wrap_bits
+from ..ir import Design, Topology
+from ..emit import api, emit, input_type, isr_names
+from ..check.model import service_due
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 OPT_FLAGS = ["-O2"]

@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from edgetally.ir import Design
-from edgetally.fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, wrap_bits, wrap_s32
+from ..ir import Design
+from ..fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, wrap_bits, wrap_s32
 
 
 @dataclass(frozen=True)

@@ -9,10 +9,10 @@ from __future__ import annotations
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.fixedpoint import wrap_bits
-from edgetally.ir import Design
-from edgetally.check.model import unwrap, zero_run_gaps
+from ..dsp import cic
+from ..fixedpoint import wrap_bits
+from ..ir import Design
+from ..check.model import unwrap, zero_run_gaps
 
 
 def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:

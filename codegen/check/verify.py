@@ -12,12 +12,12 @@ import time
 from dataclasses import asdict, dataclass
 from typing import Callable
 
-from edgetally.check import hostbuild, model, reference
-from edgetally.check.compare import compare
-from edgetally.ir import Design
-from edgetally.measure import metrics
-from edgetally.planner import schemes
-from edgetally.stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
+from ..check import hostbuild, model, reference
+from ..check.compare import compare
+from ..ir import Design
+from ..measure import metrics
+from ..planner import schemes
+from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
 
 
 @dataclass(frozen=True)
@@ -83,7 +83,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     tgt = {}
     if targets:
         say("cross-compiling for the target cores and running them in the emulator")
-        from edgetally.target.check import target_check
+        from ..target.check import target_check
 
         tgt = target_check(design, seed)
     say("running the floating-point reference")

@@ -11,14 +11,14 @@ import math
 from dataclasses import dataclass
 from fractions import Fraction
 
-from edgetally import __version__
-from edgetally.dsp import cic
-from edgetally.designer import wordlength
-from edgetally.dsp import iir
-from edgetally.planner import schemes
-from edgetally.ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
-from edgetally.planner.choose import REG_BITS, Plan, plan
-from edgetally.spec import Spec, SpecError
+from .. import __version__
+from ..dsp import cic
+from ..designer import wordlength
+from ..dsp import iir
+from ..planner import schemes
+from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
+from ..planner.choose import REG_BITS, Plan, plan
+from ..spec import Spec, SpecError
 
 DC_CORNER_HZ = 2.0      # offset tracker corner: far below any audio band (common practice, no source)
 SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)

@@ -7,13 +7,13 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, field
 
-from edgetally.designer import assemble
-from edgetally.dsp import cic
-from edgetally.designer import wordlength
-from edgetally.planner import schemes
-from edgetally.ir import Design
-from edgetally.planner.choose import plan
-from edgetally.spec import Spec, SpecError
+from ..designer import assemble
+from ..dsp import cic
+from ..designer import wordlength
+from ..planner import schemes
+from ..ir import Design
+from ..planner.choose import plan
+from ..spec import Spec, SpecError
 
 
 @dataclass(frozen=True)
@@ -107,7 +107,7 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
     sim_loss = bit_exact = None
     overflow = any(r.margin_bits < 0 and not r.name.endswith(".out") for r in d.certificate)
     if simulate and not overflow:
-        from edgetally.check.verify import verify
+        from ..check.verify import verify
 
         res = verify(d, seconds=seconds)
         sim_loss, bit_exact = res.implementation_loss_db, res.bit_exact

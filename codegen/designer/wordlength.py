@@ -19,8 +19,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import signal
 
-from edgetally.fixedpoint import rshr, section_step
-from edgetally.ir import Filters, Register, Section
+from ..fixedpoint import rshr, section_step
+from ..ir import Filters, Register, Section
 
 IMPULSE_LEN = 4096          # samples of impulse response for the norms (the filters decay far faster)
 

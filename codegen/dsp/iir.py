@@ -12,8 +12,8 @@ import math
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.ir import Section
+from ..dsp import cic
+from ..ir import Section
 
 # Audio low-pass: elliptic, 0.1 dB ripple, 60 dB stopband. Common practice, no source: an
 # elliptic low-pass is the cheapest IIR per dB of stopband for a given order.

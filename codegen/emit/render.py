@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import jinja2
 
-from edgetally.fixedpoint import c_definitions
-from edgetally.ir import Design, Topology
+from ..fixedpoint import c_definitions
+from ..ir import Design, Topology
 
 
 @dataclass(frozen=True)

@@ -10,11 +10,11 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from edgetally.check import model
-from edgetally.measure import recovery
-from edgetally.planner import schemes
-from edgetally.stimulus import signals
-from edgetally.ir import Design
+from ..check import model
+from ..measure import recovery
+from ..planner import schemes
+from ..stimulus import signals
+from ..ir import Design
 
 
 @dataclass(frozen=True)
@@ -83,7 +83,7 @@ class _Case:
 
 
 def _edges(design: Design, seconds: float, rng: np.random.Generator) -> np.ndarray:
-    from edgetally.stimulus.inputs import standard_signal
+    from ..stimulus.inputs import standard_signal
 
     return signals.edge_times(standard_signal(design, rng), seconds)
 
@@ -96,7 +96,7 @@ def _first_input_at(design: Design, times: np.ndarray, t: float) -> int:
 
 
 def _hardware(design: Design, times, duration, seed, start=None):
-    from edgetally.stimulus.inputs import hardware_inputs
+    from ..stimulus.inputs import hardware_inputs
 
     return hardware_inputs(design, times, duration, np.random.default_rng(seed + 1), start)
 
@@ -192,7 +192,7 @@ def _flag(name: str, counters: dict, lost: bool) -> bool:
 
 def run_scenario(design: Design, name: str, host=None, options: Options = Options()) -> ScenarioResult:
     """Run one named scenario through the emitted C (``host``, built if None) and the model."""
-    from edgetally.check import hostbuild
+    from ..check import hostbuild
 
     if name not in SCENARIOS:
         raise ValueError(f"scenario {name!r}: expected one of {', '.join(SCENARIOS)}")

@@ -7,9 +7,9 @@ import math
 
 import numpy as np
 
-from edgetally.dsp import cic
-from edgetally.designer import wordlength
-from edgetally.ir import Design
+from ..dsp import cic
+from ..designer import wordlength
+from ..ir import Design
 
 FLOOR_DB = -160.0          # dB values are clipped here (zeros of the response)
 

@@ -10,14 +10,14 @@ from typing import Callable
 
 import numpy as np
 
-from edgetally.stimulus import ifnoise
-from edgetally.measure import metrics
-from edgetally.check import model
-from edgetally.check import reference
-from edgetally.measure import response
-from edgetally.planner import schemes
-from edgetally.stimulus import signals
-from edgetally.ir import Design
+from ..stimulus import ifnoise
+from ..measure import metrics
+from ..check import model
+from ..check import reference
+from ..measure import response
+from ..planner import schemes
+from ..stimulus import signals
+from ..ir import Design
 
 KINDS = ("cnr", "tone", "deviation", "offset")
 
@@ -115,7 +115,7 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
 
 
 def _inputs(design: Design, sig: signals.FmSignal, seed: int, times: np.ndarray | None = None) -> np.ndarray:
-    from edgetally.stimulus.inputs import hardware_inputs
+    from ..stimulus.inputs import hardware_inputs
 
     duration = LEAD_S + SECONDS
     if times is None:
@@ -147,7 +147,7 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
               host=None, progress: Callable[[int, int], None] | None = None) -> Sweep:
     """One sweep: every point runs the emitted C (``host``, built if None) and the integer model on
     the same inputs and compares them in full. ``progress(done, total)`` after each point."""
-    from edgetally.check import hostbuild
+    from ..check import hostbuild
 
     if kind not in KINDS:
         raise ValueError(f"sweep {kind!r}: expected one of {', '.join(KINDS)}")

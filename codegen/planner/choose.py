@@ -14,12 +14,12 @@ import dataclasses
 import math
 from dataclasses import dataclass, field
 
-from edgetally.dsp import cic
-from edgetally.dsp import iir
-from edgetally.planner import schemes
-from edgetally.ir import CountFront, StampFront
-from edgetally.planner.schemes import Variant
-from edgetally.spec import Spec, SpecError
+from ..dsp import cic
+from ..dsp import iir
+from ..planner import schemes
+from ..ir import CountFront, StampFront
+from ..planner.schemes import Variant
+from ..spec import Spec, SpecError
 
 CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 after a counter (DESIGN.md section 4)
 MAX_RATIO = 64

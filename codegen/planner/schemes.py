@@ -52,10 +52,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.cores import CORES
-from edgetally.ir import Design
-from edgetally.spec import Target
+from ..dsp import cic
+from ..cores import CORES
+from ..ir import Design
+from ..spec import Target
 
 TEST_TONE_HZ = 1000.0
 TEST_LEVEL = 0.7           # fraction of full-scale deviation for the standard test tone

@@ -29,11 +29,11 @@ import numpy as np
 from scipy import special
 from scipy.io import wavfile
 
-from edgetally.check import hostbuild
-from edgetally.planner import schemes
-from edgetally.stimulus import signals
-from edgetally.ir import Design
-from edgetally.stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
+from ..check import hostbuild
+from ..planner import schemes
+from ..stimulus import signals
+from ..ir import Design
+from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
 
 # Two-tone: 700 Hz and 1900 Hz in a 3 kHz voice band (common practice, no source: two tones not in
 # a simple ratio, well inside the band), scaled down with a narrower audio band.

@@ -15,16 +15,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from edgetally.dsp import cic
-from edgetally.report import listen
-from edgetally.report import plots as report_plots
-from edgetally.planner import schemes
-from edgetally.measure.response import chain_response
-from edgetally.ir import Design, Topology
-from edgetally.planner.choose import Plan
-from edgetally.spec import Spec
-from edgetally.stimulus.inputs import DEFAULT_SEED
-from edgetally.check.verify import VerifyResult
+from ..dsp import cic
+from ..report import listen
+from ..report import plots as report_plots
+from ..planner import schemes
+from ..measure.response import chain_response
+from ..ir import Design, Topology
+from ..planner.choose import Plan
+from ..spec import Spec
+from ..stimulus.inputs import DEFAULT_SEED
+from ..check.verify import VerifyResult
 
 PAGE_OK = "edgetally-page-ok"
 

@@ -12,9 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from edgetally.ir import Design, Topology
-from edgetally.planner import schemes
-from edgetally.stimulus import signals
+from ..ir import Design, Topology
+from ..planner import schemes
+from ..stimulus import signals
 
 LEAD_S = 0.1
 DEFAULT_SEED = 20261202

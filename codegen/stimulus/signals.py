@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from edgetally.fixedpoint import wrap_bits
+from ..fixedpoint import wrap_bits
 
 
 @dataclass(frozen=True)

@@ -24,9 +24,9 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.emit import emit, input_type
-from edgetally.check.hostbuild import STRICT_FLAGS
-from edgetally.ir import Design, Topology
+from ..emit import emit, input_type
+from ..check.hostbuild import STRICT_FLAGS
+from ..ir import Design, Topology
 
 CORE_FLAGS = {
     "cortex-m0plus": ["-mcpu=cortex-m0plus", "-mthumb", "-mfloat-abi=soft"],

@@ -8,9 +8,9 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.check import model
-from edgetally.ir import Design, Topology
-from edgetally.stimulus.inputs import DEFAULT_SEED, make_inputs
+from ..check import model
+from ..ir import Design, Topology
+from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
 
 TARGET_CORES = ("cortex-m0plus", "cortex-m4")
@@ -23,13 +23,13 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     event (estimates from instruction counts, see edgetally.target), and cycles per output sample
     against the hand-written float baseline (edgetally.float_baseline). Empty when the cross
     compiler or the emulator is not installed."""
-    from edgetally.target import build as target
-    from edgetally.target import cycles as target_cycles
-    from edgetally.target import run as target_run
+    from ..target import build as target
+    from ..target import cycles as target_cycles
+    from ..target import run as target_run
 
     if target.toolchain() is None or not target.emulator_available():
         return {}
-    from edgetally.target import float_baseline
+    from ..target import float_baseline
 
     inputs = make_inputs(design, seconds, seed)
     want = model.run(design, inputs)
