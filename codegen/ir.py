@@ -29,6 +29,15 @@ class Topology(enum.Enum):
         return self in (Topology.CAPTURE, Topology.EDGE_STAMP)
 
 
+def variant_label(scheme: str, stamps: bool, prescale: int = 1, order: str = "linear") -> str:
+    """The short name of a way of seeing the edges, one word: k<prescale>-<order> (capture),
+    stamp-<order> (an edge interrupt that reads a timer), count (edge counts)."""
+    if not stamps:
+        return "count"
+    pre = f"k{prescale}" if scheme == "timestamp" else "stamp"
+    return f"{pre}-{order}"
+
+
 @dataclass(frozen=True)
 class StampFront:
     """Timer stamps -> unwrapped time -> phase on a uniform grid -> phase step per grid period.
@@ -103,13 +112,12 @@ class Scale:
     Q(q): full-scale deviation = 2**q. The offset tracker then follows the DC of u (the tuning
     offset): dc_acc += u - rshr(dc_acc, dc_shift), dc = rshr(dc_acc, dc_shift), a one-pole
     low-pass with a time constant of 2**dc_shift output samples; the filters get
-    sat(u - dc, +-limit)."""
+    sat(u - dc, +-limit). ``limit`` is the data limit of the output chain (``Filters.limit``)."""
 
     centre: int
     mult: int
     shift: int
     q: int
-    limit: int
     dc_shift: int
 
 
@@ -202,7 +210,6 @@ class Budget:
     cpu_hz: float
     dma: bool                 # capture DMA (stamp fronts) or counter DMA (count fronts)
     edge_hz_max: float
-    variant: str
     cycles_per_edge: int      # the edge or capture ISR; 0 when hardware or DMA does it
     cycles_per_input: int     # per stamp or count taken from the queue or a DMA block
     cycles_per_grid: int
@@ -246,6 +253,11 @@ class Design:
     def stamps(self) -> bool:
         """The inputs are timer values (capture or edge-interrupt stamps), not counts."""
         return self.front.kind == "stamp"
+
+    @property
+    def variant(self) -> str:
+        """The planner's name of this way of seeing the edges (``variant_label``)."""
+        return variant_label(self.scheme, self.stamps, self.front.prescale, getattr(self.front, "order", "linear"))
 
     @property
     def cubic(self) -> bool:

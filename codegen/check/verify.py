@@ -98,7 +98,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     flt = metrics.sinad_db(ref[skip:ref.size], fs, schemes.TEST_TONE_HZ, *band)
     pred = schemes.predict_design(design)
     return VerifyResult(
-        name=design.name, scheme=design.scheme, variant=design.budget.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
+        name=design.name, scheme=design.scheme, variant=design.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
         bit_exact=cmp.bit_exact, samples=cmp.samples, mismatches=cmp.mismatches,
         first_mismatch=cmp.first_mismatch, counters_match=cmp.counters_match,
         sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),

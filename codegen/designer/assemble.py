@@ -154,7 +154,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
-    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, limit=f.limit, dc_shift=dc_shift)
+    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
     cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
                              dc_shift=dc_shift, f=f)
@@ -172,6 +172,6 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
                       edge_hz_max=sig.if_hz + sig.deviation_hz, cycles_per_edge=p.load.per_edge,
                       cycles_per_input=p.load.per_input, cycles_per_grid=p.load.per_grid,
                       cycles_per_output=per_output, load_fraction=fraction, ram_bytes=p.load.ram_bytes,
-                      variant=p.variant, isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
+                      isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
         certificate=cert,
     )

@@ -54,7 +54,7 @@ from scipy import signal
 
 from ..dsp import cic
 from ..cores import CORES
-from ..ir import Design
+from ..ir import Design, variant_label
 from ..spec import Target
 
 TEST_TONE_HZ = 1000.0
@@ -95,10 +95,7 @@ class Variant:
     def label(self) -> str:
         """Short name, one word: k<prescale>-<order> (capture), stamp-<order> (edge interrupt that
         reads a timer), count (edge counts)."""
-        if self.front == "count":
-            return "count"
-        pre = f"k{self.prescale}" if self.scheme == "timestamp" else "stamp"
-        return f"{pre}-{self.order}"
+        return variant_label(self.scheme, self.front == "stamp", self.prescale, self.order)
 
 
 def variants(tgt: Target) -> list[tuple[Variant, str | None]]:

@@ -298,7 +298,7 @@ def _budget_section(ctx: ReportContext) -> str:
     width = min(100.0, 100.0 * b.load_fraction)
     mark = min(100.0, 100.0 * budget)
     over = b.load_fraction > budget
-    parts = [f"<p>Estimated on {_e(b.core)} at {_e(_hz(b.cpu_hz))} ({_e(b.variant)}), at the highest edge rate:</p>",
+    parts = [f"<p>Estimated on {_e(b.core)} at {_e(_hz(b.cpu_hz))} ({_e(d.variant)}), at the highest edge rate:</p>",
              _table(["event", "rate up to", "cycles each (estimate)"], rows),
              f'<div class="bar"><div class="fill{" over" if over else ""}" style="width:{width:.1f}%"></div>'
              f'<div class="mark" style="left:{mark:.1f}%"></div></div>',
