@@ -30,32 +30,47 @@ for _mod in ("unicorn", "elftools", "capstone"):
 CORES = [c for c in target.TARGETS if target.available(c)]
 if not CORES:
     pytest.skip("no cross compiler and emulator installed (see .ci/run)", allow_module_level=True)
-# simavr runs about ten million AVR instructions a second: the AVR runs use the first inputs only
+# simavr runs about ten million AVR instructions a second: the AVR runs use the first inputs only.
+# The ISR path makes one emulator call per few inputs: at most ISR_INPUTS of them (several hundred
+# queue turns for every example).
 AVR_INPUTS = 2500
+ISR_INPUTS = 12000
 IDS = sorted(ALL_DESIGNS)
 AUTO_IDS = [k for k in IDS if k.endswith(":auto")]
+# Every example's chosen design on every core; every scheme of every example on the cores with the
+# least to lean on (no divide or long multiply; no multiply at all; 16-bit int).
+SCHEME_CORES = ("cortex-m0plus", "rv32ec", "avr")
+PAIRS = [(k, c) for k in IDS for c in CORES if k in AUTO_IDS or c in SCHEME_CORES]
 COUNTER_KEYS = ("gaps", "clamps", "saturations", "clips")
+
+
+O2_CORES = [c for c in ("cortex-m4", "avr") if c in CORES]   # -O2 on a 32-bit and the 16-bit-int core
+
+
+def _one(root, job):
+    k, c, opt = job
+    wd = root / f"{k.replace(':', '_')}_{c}{opt}"
+    try:
+        return job, target.cross_build(ALL_DESIGNS[k], c, opt=opt, workdir=wd)
+    except target.TargetBuildError as e:      # reported by the test of that build, not here
+        return job, e
 
 
 @pytest.fixture(scope="module")
 def builds(tmp_path_factory):
-    """Every design x core at -Os, and the chosen scheme of each example at -O2 as well."""
+    """Every design x core at -Os (built two at a time up front), and the chosen scheme of each
+    example at -O2 on O2_CORES (built when a test asks)."""
     root = tmp_path_factory.mktemp("target")
-    jobs = [(k, c, "-Os") for k in IDS for c in CORES] + [(k, c, "-O2") for k in AUTO_IDS for c in CORES]
-
-    def one(job):
-        k, c, opt = job
-        wd = root / f"{k.replace(':', '_')}_{c}{opt}"
-        try:
-            return job, target.cross_build(ALL_DESIGNS[k], c, opt=opt, workdir=wd)
-        except target.TargetBuildError as e:      # reported by the test of that build, not here
-            return job, e
-
+    jobs = [(k, c, "-Os") for k, c in PAIRS]
     with ThreadPoolExecutor(max_workers=2) as pool:
-        return dict(pool.map(one, jobs))
+        got = dict(pool.map(lambda j: _one(root, j), jobs))
+    got["root"] = root
+    return got
 
 
 def _get(builds, key, core, opt="-Os"):
+    if (key, core, opt) not in builds:
+        builds.update([_one(builds["root"], (key, core, opt))])
     b = builds[(key, core, opt)]
     if isinstance(b, Exception):
         pytest.fail(f"cross build failed:\n{b}")
@@ -65,11 +80,12 @@ def _get(builds, key, core, opt="-Os"):
 _MODEL = {}
 
 
-def _model(key, seconds, seed):
-    if (key, seconds, seed) not in _MODEL:
-        x = make_inputs(ALL_DESIGNS[key], seconds, seed=seed)
-        _MODEL[(key, seconds, seed)] = (x, model.run(ALL_DESIGNS[key], x))
-    return _MODEL[(key, seconds, seed)]
+def _model(key, seconds, seed, n=None):
+    """The standard inputs (the first n of them if given) and the model's run on them."""
+    if (key, seconds, seed, n) not in _MODEL:
+        x = make_inputs(ALL_DESIGNS[key], seconds, seed=seed)[:n]
+        _MODEL[(key, seconds, seed, n)] = (x, model.run(ALL_DESIGNS[key], x))
+    return _MODEL[(key, seconds, seed, n)]
 
 
 def _assert_equal(got: target_run.TargetRun, want: model.ModelRun):
@@ -79,8 +95,7 @@ def _assert_equal(got: target_run.TargetRun, want: model.ModelRun):
     assert {k: got.counters[k] for k in COUNTER_KEYS} == {k: getattr(want, k) for k in COUNTER_KEYS}
 
 
-@pytest.mark.parametrize("core", CORES)
-@pytest.mark.parametrize("key", IDS)
+@pytest.mark.parametrize("key, core", PAIRS)
 def test_cross_build_strict(builds, key, core):
     """-Os under -Wall -Wextra -Wpedantic -Wconversion -Wsign-conversion -Werror, freestanding;
     the sizes come out of the ELF."""
@@ -96,34 +111,26 @@ def test_cross_build_strict(builds, key, core):
 
 
 @pytest.mark.parametrize("path, seconds, seed", [("block", 0.05, 1), ("isr", 0.02, 5)])
-@pytest.mark.parametrize("core", CORES)
-@pytest.mark.parametrize("key", IDS)
+@pytest.mark.parametrize("key, core", PAIRS)
 def test_target_equals_model(builds, key, core, path, seconds, seed):
     """Block path (<name>_process in blocks of 4096), and the scheme's ISR function(s) per input
     with <name>_service every quarter queue: every sample and the counters."""
     d = ALL_DESIGNS[key]
-    x, want = _model(key, seconds, seed)
-    if core == "avr":
-        x = x[:AVR_INPUTS]
-        want = model.run(d, x)
+    x, want = _model(key, seconds, seed, AVR_INPUTS if core == "avr" else ISR_INPUTS if path == "isr" else None)
     got = target_run.run(_get(builds, key, core), d, x, isr=path == "isr")
     _assert_equal(got, want)
     assert got.counters["overruns"] == 0
 
 
-@pytest.mark.parametrize("core", CORES)
+@pytest.mark.parametrize("core", O2_CORES)
 @pytest.mark.parametrize("key", AUTO_IDS)
 def test_o2_build_equals_model(builds, key, core):
     d = ALL_DESIGNS[key]
-    x, want = _model(key, 0.05, 1)
-    if core == "avr":
-        x = x[:AVR_INPUTS]
-        want = model.run(d, x)
+    x, want = _model(key, 0.05, 1, AVR_INPUTS if core == "avr" else None)
     _assert_equal(target_run.run(_get(builds, key, core, "-O2"), d, x, block=397), want)
 
 
-@pytest.mark.parametrize("core", CORES)
-@pytest.mark.parametrize("key", IDS)
+@pytest.mark.parametrize("key, core", PAIRS)
 def test_instruction_set_check_passes(builds, key, core):
     """No instruction the named core lacks (edgetally.target.isa; the planted-instruction tests
     are in test_target_isa.py)."""
@@ -185,14 +192,34 @@ def test_avr_int_is_16_bits(builds):
     assert "#define __SIZEOF_INT__ 2" in r.stdout
 
 
+def test_runaway_call_is_stopped(builds):
+    """A call that runs past the block limit stops with TargetRunError instead of hanging."""
+    core = next(c for c in CORES if c != "avr")
+    key = AUTO_IDS[0]
+    b = _get(builds, key, core)
+    m = target_run.machine(b)
+    m.call("harness_init")
+    x, _ = _model(key, 0.05, 1)
+    m.write("harness_in", x[:b.in_len].astype(b.input_dtype))
+    m.guard.limit = 50
+    with pytest.raises(target.TargetRunError, match="did not return"):
+        m.call("harness_process", 0, b.in_len)
+
+
 def test_cross_build_leaves_no_folder(tmp_path, monkeypatch):
     """Without a workdir the build folder is removed (the ELF's bytes stay in the result)."""
     import tempfile
 
-    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))
+    tmp, cache = tmp_path / "tmp", tmp_path / "cache"
+    tmp.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp))
+    monkeypatch.setenv("EDGETALLY_CACHE", str(cache))       # empty: the build really runs
     b = target.cross_build(ALL_DESIGNS[AUTO_IDS[0]], CORES[0])
     assert b.elf is None and b.workdir is None and b.elf_bytes[:4] == b"\x7fELF"
-    assert list(tmp_path.iterdir()) == []
+    assert list(tmp.iterdir()) == []
+    assert [f.suffix for f in cache.iterdir()] == [".bin"]       # the one cached image
+    again = target.cross_build(ALL_DESIGNS[AUTO_IDS[0]], CORES[0])
+    assert again.elf_bytes == b.elf_bytes and list(tmp.iterdir()) == []
 
 
 def test_build_errors_carry_the_compiler_output(tmp_path):

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import jinja2
 
-from edgetally.fixedpoint import c_definitions
-from edgetally.ir import Design
+from ..fixedpoint import c_definitions
+from ..ir import Design, Topology
 
 
 @dataclass(frozen=True)
@@ -24,9 +24,8 @@ class Function:
 
 
 def input_type(design: Design) -> str:
-    fr = design.front
-    bits = fr.timer_bits if fr.kind == "stamp" else fr.counter_bits
-    return "uint16_t" if bits == 16 else "uint32_t"
+    """The C type of one input (``Design.input_ctype``)."""
+    return design.input_ctype
 
 
 def api(design: Design) -> list[Function]:
@@ -41,13 +40,14 @@ def api(design: Design) -> list[Function]:
         Function(f"size_t {p}_service({st}, {p}_sample_t *out, size_t cap)",
                  "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
     ]
-    if design.scheme == "timestamp":
+    topo = design.topology
+    if topo is Topology.CAPTURE:
         fns.append(Function(f"void {p}_capture_isr({st}, {inp} stamp)",
                             "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full)."))
-    elif design.scheme == "interrupt" and design.front.kind == "stamp":
+    elif topo is Topology.EDGE_STAMP:
         fns.append(Function(f"void {p}_edge_isr({st}, {inp} timer_now)",
                             "Edge interrupt: queue the free-running timer's value read at entry."))
-    elif design.scheme == "interrupt":
+    elif topo is Topology.EDGE_COUNT:
         fns.append(Function(f"void {p}_edge_isr({st})", "Edge interrupt: count one IF edge."))
         fns.append(Function(f"void {p}_tick_isr({st})", "Grid timer interrupt: queue the edge count."))
     else:
@@ -83,7 +83,7 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
     its clipping, once per output sample), "grid" (the CIC, once per grid instant) and "input" (the
     per-input front end and the queue). One definition, checked against the emitted C by a test."""
     p = design.name
-    stamp_only = ("phase", "gap") if design.front.kind == "stamp" else ()
+    stamp_only = ("phase", "gap") if design.stamps else ()
     return {
         "output": [f"{p}_post", f"{p}_clip_data"],
         "grid": [f"{p}_grid"],
@@ -94,9 +94,9 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
     ops = ["wrap_s32", "rshr", "sat"]
-    if design.front.kind == "stamp":
+    if design.stamps:
         ops.append("ratio_floor")
-        if design.front.order == "cubic":
+        if design.cubic:
             ops.append("cubic_fraction")
     return ops
 
@@ -154,7 +154,11 @@ def emit(design: Design) -> dict[str, str]:
         data_type="int16_t" if design.filters.data_bits == 16 else "int32_t",
         coef_type="int16_t" if design.filters.coef_width == 16 else "int32_t",
         coef_macro="INT16_C" if design.filters.coef_width == 16 else "INT32_C",
-        offset_hz_per_lsb=f"{design.full_scale_hz / 2 ** design.scale.q:.6g}",
+        offset_hz_per_lsb=f"{design.offset_hz_per_unit:.6g}",
+        # template flags: the templates branch on these and print the Design, never decide
+        stamp=design.stamps, cubic=design.cubic, capture=design.topology is Topology.CAPTURE,
+        edge_stamp=design.topology is Topology.EDGE_STAMP, edge_count=design.topology is Topology.EDGE_COUNT,
+        counter=design.topology is Topology.COUNTER,
         input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
         fixedpoint=c_definitions(p, _operations(design)),
     )

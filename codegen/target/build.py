@@ -18,8 +18,9 @@ The emulated cores are listed once, in ``TARGETS``:
   bundled example is a few hundred bytes and would fit a 2 KB part on its own).
 
 Pure API: nothing is printed. The build folder is ``workdir`` when given (kept); otherwise a
-temporary folder that is removed before ``cross_build`` returns (the ELF's bytes are kept in the
-result).
+temporary folder that is removed before ``cross_build`` returns, and the ELF's bytes are kept in
+the result and in the bounded cache of ``edgetally.target.cache`` (keyed by the sources, the flags
+and the compiler binary, so a second build of the same design is not compiled again).
 """
 
 from __future__ import annotations
@@ -34,9 +35,9 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.check.hostbuild import STRICT_FLAGS
-from edgetally.emit import emit, input_type
-from edgetally.ir import Design
+from ..check.hostbuild import STRICT_FLAGS
+from ..emit import emit, input_type
+from ..ir import Design, Topology
 
 FREESTANDING_FLAGS = ("-ffreestanding", "-nostdlib", "-fno-common")
 
@@ -139,7 +140,7 @@ def emulator_available(core: str = "cortex-m0plus") -> bool:
             return True
     except ImportError:
         return False
-    from edgetally.target import simavr
+    from ..target import simavr
     return simavr.available()
 
 
@@ -205,11 +206,12 @@ def harness(design: Design, in_len: int, out_len: int) -> str:
     """The harness C: global state and buffers, entry points the emulator calls."""
     p, P = design.name, design.name.upper()
     fr = design.front
-    if design.scheme == "timestamp":
+    topo = design.topology
+    if topo is Topology.CAPTURE:
         call = f"    {p}_capture_isr(&harness_state, ({p}_input_t)value);\n"
-    elif design.scheme == "interrupt" and fr.kind == "stamp":
+    elif topo is Topology.EDGE_STAMP:
         call = f"    {p}_edge_isr(&harness_state, ({p}_input_t)value);\n"
-    elif design.scheme == "interrupt":
+    elif topo is Topology.EDGE_COUNT:
         mask = (1 << fr.counter_bits) - 1
         call = (f"    uint32_t k = (value - harness_last) & UINT32_C(0x{mask:X});\n"
                 f"    harness_last = value;\n"
@@ -313,16 +315,9 @@ def compile_and_link(core: str, sources: dict[str, str], cflags: list[str], wd: 
     if t.arch != "avr":
         (wd / "link.ld").write_text(LINKER_SCRIPT, encoding="utf-8")
         link_script = ["-T", "link.ld"]
-    log, objs = "", []
-    for name in sources:
-        if name.endswith(".c"):
-            obj = name[:-2] + ".o"
-            log += run_compiler([cc, *cflags, *FREESTANDING_FLAGS, "-c", name, "-o", obj], wd)
-            objs.append(obj)
-    arch_flags = [f for f in cflags if f.startswith(("-m", "-march", "-mabi"))]
-    log += run_compiler([cc, *arch_flags, *FREESTANDING_FLAGS, *link_script, *t.link, *objs, *t.libs,
-                         "-o", elf_name], wd)
-    return log
+    # one compiler call compiles every .c (each its own translation unit) and links
+    cfiles = [n for n in sources if n.endswith(".c")]
+    return run_compiler([cc, *cflags, *FREESTANDING_FLAGS, *cfiles, *link_script, *t.link, *t.libs, "-o", elf_name], wd)
 
 
 def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str | None = None) -> TargetBuild:
@@ -330,30 +325,41 @@ def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str
     flags (warnings are errors). Files go to ``workdir`` (made if needed, kept) or to a temporary
     folder removed before returning."""
     t = _target(core)
-    if workdir is None:
-        with tempfile.TemporaryDirectory(prefix=f"edgetally-{design.name}-") as tmp:
-            b = cross_build(design, core, opt, tmp)
-        b.elf, b.workdir = None, None
-        return b
-    wd = Path(workdir)
-    wd.mkdir(parents=True, exist_ok=True)
-    p = design.name
     sources = dict(emit(design))
     sources["harness.c"] = harness(design, t.in_len, t.out_len)
     # -g only adds debug sections (the DWARF ranges cycles.measure uses); it does not change the code.
     flags = [*STRICT_FLAGS, opt, *t.flags, "-gdwarf-4"]
+    p = design.name
+    if workdir is None:
+        # the ELF is kept in the bounded cache by the hash of everything that makes it (sources,
+        # flags, the compiler binary), so that a second verify of the same design does not rebuild
+        from . import cache
+
+        cc = compiler(core)
+        st = os.stat(cc) if cc else None
+        k = cache.key("elf", 2, sources, flags, t, LINKER_SCRIPT, cc, st and (st.st_size, st.st_mtime_ns))
+        data = cache.load_bytes(k)
+        if data is None:
+            with tempfile.TemporaryDirectory(prefix=f"edgetally-{p}-") as tmp:
+                log = compile_and_link(core, sources, flags, Path(tmp), f"{p}.elf")
+                data = (Path(tmp) / f"{p}.elf").read_bytes()
+            cache.store_bytes(k, data)
+        return describe(design, core, opt, data, None, "")
+    wd = Path(workdir)
+    wd.mkdir(parents=True, exist_ok=True)
     elf = wd / f"{p}.elf"
     log = compile_and_link(core, sources, flags, wd, elf.name)
     return describe(design, core, opt, elf, wd, log)
 
 
-def describe(design: Design, core: str, opt: str, elf_path: Path, wd: Path | None, log: str) -> TargetBuild:
-    """The sizes and symbols of a linked ELF (the demodulator's are those named <name>_*)."""
+def describe(design: Design, core: str, opt: str, elf_path: Path | bytes, wd: Path | None, log: str) -> TargetBuild:
+    """The sizes and symbols of a linked ELF, given as a file or its bytes (the demodulator's are
+    those named <name>_*)."""
     from elftools.elf.elffile import ELFFile
 
     t = _target(core)
     p = design.name
-    data = Path(elf_path).read_bytes()
+    data = elf_path if isinstance(elf_path, bytes) else Path(elf_path).read_bytes()
     syms: dict[str, Symbol] = {}
     elf = ELFFile(io.BytesIO(data))
     secnames = {i: s.name for i, s in enumerate(elf.iter_sections())}
@@ -381,7 +387,7 @@ def describe(design: Design, core: str, opt: str, elf_path: Path, wd: Path | Non
     flash_total = sum(sec_sizes.get(n, 0) for n in (".text", ".rodata", ".ARM.exidx", ".data"))
     ram_total = sum(sec_sizes.get(n, 0) for n in (".data", ".bss"))
     return TargetBuild(
-        design_name=p, core=core, opt=opt, elf=Path(elf_path), elf_bytes=data, workdir=wd, symbols=syms,
+        design_name=p, core=core, opt=opt, elf=None if isinstance(elf_path, bytes) else Path(elf_path), elf_bytes=data, workdir=wd, symbols=syms,
         flash_by_function=dict(sorted(fn.items())), flash_by_object=dict(sorted(fobj.items())),
         ram_by_object=dict(sorted(ram.items())), flash_demod=sum(fn.values()) + sum(fobj.values()),
         flash_runtime=runtime, flash_total=flash_total, ram_state=state_size, ram_total=ram_total,

@@ -1,5 +1,6 @@
 """One bounded on-disk cache for the target package: host helper libraries compiled from
-``csrc/`` and float-baseline figures, keyed by the hash of everything that makes them.
+``csrc/``, cross-built ELF images and float-baseline figures, keyed by the hash of everything that
+makes them.
 
 The folder is ``$EDGETALLY_CACHE`` or ``<temp>/edgetally-cache-<uid>``; it keeps at most
 ``MAX_ENTRIES`` files (the least recently used go first), so it never grows without bound.
@@ -62,6 +63,22 @@ def store_json(k: str, obj: dict) -> None:
     tmp = d / f".{k}.{os.getpid()}.tmp"
     tmp.write_text(json.dumps(obj))
     os.replace(tmp, d / f"{k}.json")
+    _trim(d)
+
+
+def load_bytes(k: str) -> bytes | None:
+    p = folder() / f"{k}.bin"
+    if not p.is_file():
+        return None
+    _touch(p)
+    return p.read_bytes()
+
+
+def store_bytes(k: str, data: bytes) -> None:
+    d = folder()
+    tmp = d / f".{k}.{os.getpid()}.tmp"
+    tmp.write_bytes(data)
+    os.replace(tmp, d / f"{k}.bin")
     _trim(d)
 
 

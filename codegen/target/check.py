@@ -12,10 +12,10 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from edgetally.check import model
-from edgetally.ir import Design
-from edgetally.stimulus.inputs import DEFAULT_SEED, make_inputs
-from edgetally.target.build import TARGETS
+from ..check import model
+from ..ir import Design, Topology
+from ..stimulus.inputs import DEFAULT_SEED, make_inputs
+from ..target.build import TARGETS
 
 TARGET_CORES = tuple(TARGETS)
 TARGET_SECONDS = 0.1
@@ -59,7 +59,7 @@ class CoreCheck:
 
 def available_cores() -> tuple[str, ...]:
     """The emulated cores whose cross compiler and emulator are installed here."""
-    from edgetally.target.build import available
+    from ..target.build import available
 
     return tuple(c for c in TARGET_CORES if available(c))
 
@@ -68,11 +68,11 @@ def check_core(design: Design, core: str, inputs: np.ndarray, bench: np.ndarray)
     """Build ``design`` for ``core`` once (-Os), run it on ``inputs`` against the model, measure the
     cycles per event and per output sample, check its instructions, and compare with the float
     baseline on ``bench``."""
-    from edgetally.target import build as target
-    from edgetally.target import cycles as target_cycles
-    from edgetally.target import float_baseline
-    from edgetally.target import isa
-    from edgetally.target import run as target_run
+    from ..target import build as target
+    from ..target import cycles as target_cycles
+    from ..target import float_baseline
+    from ..target import isa
+    from ..target import run as target_run
 
     inputs = inputs[:MAX_INPUTS.get(core, inputs.size)]
     want = model.run(design, inputs)
@@ -104,7 +104,7 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     set check, and cycles per output sample against the hand-written float baseline. The cores run
     two at a time (the emulators and compilers release the interpreter). Returns {core: the
     CoreCheck as a dict} for the cores installed here (empty when none is)."""
-    from edgetally.target import float_baseline
+    from ..target import float_baseline
 
     todo = [c for c in (cores or available_cores()) if c in TARGETS]
     if not todo:
@@ -119,19 +119,20 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
 def measured_load(design: Design, t: CoreCheck) -> float:
     """CPU fraction at the highest edge rate from cycles measured in the emulator: ISR calls (with
     exception entry and exit) at their event rates, inputs, grid instants and output samples."""
-    fr, b, rates = design.front, design.budget, design.rates
+    b, rates = design.budget, design.rates
     edge_hz = b.edge_hz_max
     isr = t.isr_cycles_with_entry
-    if fr.kind == "stamp":
-        input_hz = edge_hz / fr.prescale
-        isr_load = 0.0 if (design.scheme == "timestamp" and b.dma) else sum(isr.values()) * input_hz
+    topo = design.topology
+    if design.stamps:
+        input_hz = design.input_hz_max
+        isr_load = 0.0 if (topo is Topology.CAPTURE and b.dma) else sum(isr.values()) * input_hz
     else:
         input_hz = rates.grid_hz
         isr_load = 0.0
         for name, cyc in isr.items():
             if name.endswith("_edge_isr"):
                 isr_load += cyc * edge_hz
-            elif not (design.scheme == "counter" and b.dma):
+            elif not (topo is Topology.COUNTER and b.dma):
                 isr_load += cyc * rates.grid_hz
     work = input_hz * t.cycles_per_input + rates.grid_hz * t.cycles_per_grid + rates.out_hz * t.cycles_per_output
     return round((isr_load + work) / b.cpu_hz, 4)

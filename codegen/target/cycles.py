@@ -23,10 +23,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from edgetally.emit import internal_functions, isr_names
-from edgetally.ir import Design
-from edgetally.target.build import FLASH_BASE, TargetBuild, TargetRunError
-from edgetally.target.run import feed_isr, feed_process, machine
+from ..emit import internal_functions, isr_names
+from ..ir import Design
+from ..target.build import FLASH_BASE, TargetBuild, TargetRunError
+from ..target.run import feed_isr, feed_process, machine
 
 # Cycles per instruction class of the unicorn-run cores.
 # Arm: from memory of the Cortex-M0+ and Cortex-M4 technical reference manuals' instruction timing
@@ -77,7 +77,7 @@ class Costs:
     cycles_per_output_total: float
     isr_instr: dict[str, float]      # per call of each ISR function (body only, no entry/exit)
     isr_cycles: dict[str, float]
-    isr_cycles_with_entry: dict[str, float]   # + exception entry and exit from edgetally.cores (estimate)
+    isr_cycles_with_entry: dict[str, float]   # + exception entry and exit from ..cores (estimate)
     class_counts: dict[str, int] = field(default_factory=dict)
     stack_bytes: int = 0
 
@@ -331,8 +331,8 @@ def roles(build: TargetBuild, design: Design) -> tuple[list[tuple[str, list[tupl
 def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: int = 3000) -> Costs:
     """Instructions and cycles per event, from an emulated run of the first ``max_inputs`` inputs
     through <name>_process and of the ISR path on the first 1000 of them."""
-    from edgetally.check import model
-    from edgetally.cores import CORES
+    from ..check import model
+    from ..cores import CORES
 
     inputs = np.ascontiguousarray(inputs[:max_inputs], dtype=build.input_dtype)
     ref = model.run(design, inputs)

@@ -22,11 +22,11 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.ir import Design
-from edgetally.target import build as target
-from edgetally.target import cache
-from edgetally.target.cycles import Profiler, code_end
-from edgetally.target.run import feed_process, machine
+from ..ir import Design
+from ..target import build as target
+from ..target import cache
+from ..target.cycles import Profiler, code_end
+from ..target.run import feed_process, machine
 
 WARM, N = 1024, 3072
 CPACR = 0xE000ED88      # Armv7-M System Control Block: Coprocessor Access Control Register
@@ -34,7 +34,7 @@ CPACR = 0xE000ED88      # Armv7-M System Control Block: Coprocessor Access Contr
 
 def bench_inputs(design: Design, seed: int) -> np.ndarray:
     """Standard-test inputs, at least WARM + N of them (the slowest example needs about 0.2 s)."""
-    from edgetally.stimulus.inputs import make_inputs
+    from ..stimulus.inputs import make_inputs
 
     seconds = 0.15
     while True:
@@ -53,7 +53,7 @@ def float_params(design: Design, precision: str, in_len: int, out_len: int) -> s
     """The header that fits the baseline to a Design: its rates, widths and filter rows, in
     ``precision`` ("single" or "double")."""
     fr, c = design.front, design.cic
-    stamp = fr.kind == "stamp"
+    stamp = design.stamps
     bits = fr.timer_bits if stamp else fr.counter_bits
     # phase (stamp intervals, or edges) per grid instant at full-scale deviation: the audio scale
     fs_step = design.full_scale_hz / fr.prescale / design.rates.grid_hz
