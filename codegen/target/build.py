@@ -320,12 +320,14 @@ def compile_and_link(core: str, sources: dict[str, str], cflags: list[str], wd: 
     return run_compiler([cc, *cflags, *FREESTANDING_FLAGS, *cfiles, *link_script, *t.link, *t.libs, "-o", elf_name], wd)
 
 
-def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str | None = None) -> TargetBuild:
-    """Emit the C, add the harness, compile and link for ``core`` (a key of TARGETS) with the strict
-    flags (warnings are errors). Files go to ``workdir`` (made if needed, kept) or to a temporary
-    folder removed before returning."""
+def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str | None = None,
+                emitted: dict[str, str] | None = None) -> TargetBuild:
+    """Emit the C (or take ``emitted``, the output of ``edgetally.emit.emit(design)``), add the
+    harness, compile and link for ``core`` (a key of TARGETS) with the strict flags (warnings are
+    errors). Files go to ``workdir`` (made if needed, kept) or to a temporary folder removed before
+    returning."""
     t = _target(core)
-    sources = dict(emit(design))
+    sources = dict(emitted if emitted is not None else emit(design))
     sources["harness.c"] = harness(design, t.in_len, t.out_len)
     # -g only adds debug sections (the DWARF ranges cycles.measure uses); it does not change the code.
     flags = [*STRICT_FLAGS, opt, *t.flags, "-gdwarf-4"]

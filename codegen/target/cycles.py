@@ -18,6 +18,7 @@ here; they are added from ``edgetally.cores`` where stated. ``total_cycles`` cou
 
 from __future__ import annotations
 
+import hashlib
 import io
 from dataclasses import dataclass, field
 
@@ -167,7 +168,20 @@ def disassembler(arch: str):
 
 
 def dwarf_ranges(elf_bytes: bytes) -> dict[str, list[tuple[int, int]]]:
-    """Function name -> address ranges of its code, out-of-line and inlined instances alike."""
+    """Function name -> address ranges of its code, out-of-line and inlined instances alike
+    (cached by the ELF's hash: reading DWARF with pyelftools takes a noticeable fraction of a
+    second)."""
+    from . import cache
+
+    k = cache.key("dwarf-ranges", 1, hashlib.sha256(elf_bytes).hexdigest())
+    got = cache.load_json(k)
+    if got is None:
+        got = _read_dwarf_ranges(elf_bytes)
+        cache.store_json(k, got)
+    return {n: [tuple(r) for r in rs] for n, rs in got.items()}
+
+
+def _read_dwarf_ranges(elf_bytes: bytes) -> dict[str, list[tuple[int, int]]]:
     from elftools.elf.elffile import ELFFile
 
     out: dict[str, list[tuple[int, int]]] = {}
@@ -267,6 +281,9 @@ class Profiler:
     def start(self) -> None:
         self.t.start()
 
+    def stop(self) -> None:
+        self.t.struct.active = 0
+
     def result(self) -> Tally:
         names = self.names
         if self.build.target.arch == "avr":
@@ -328,44 +345,30 @@ def roles(build: TargetBuild, design: Design) -> tuple[list[tuple[str, list[tupl
 # measurements
 
 
-def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: int = 3000) -> Costs:
-    """Instructions and cycles per event, from an emulated run of the first ``max_inputs`` inputs
-    through <name>_process and of the ISR path on the first 1000 of them."""
-    from ..check import model
-    from ..cores import CORES
-
-    inputs = np.ascontiguousarray(inputs[:max_inputs], dtype=build.input_dtype)
-    ref = model.run(design, inputs)
-    rl, entries = roles(build, design)
-
+def isr_tally(build: TargetBuild, design: Design, inputs: np.ndarray, rl, entries) -> tuple[Tally, int]:
+    """The ISR path on ``inputs``: only the ISR functions' own instructions (and helpers they call)
+    count for them. Returns the tally and the deepest stack use."""
     m = machine(build)
     prof = Profiler(m, build, rl, entries)
     m.call("harness_init")
     prof.start()
-    chunks = feed_process(m, build, inputs, min(build.in_len, 1024))
-    produced = sum(c.size for c in chunks)
-    n_grid, n_out, n_in = int(ref.steps.size), int(ref.out.size), int(inputs.size)
-    if produced != n_out:
-        raise TargetRunError(f"measured run made {produced} outputs, the model {n_out}")
-    stack = m.stack_used()
-    t = prof.result()
+    feed_isr(m, build, inputs, max(1, min(design.queue_len // 4, build.in_len)))
+    return prof.result(), m.stack_used()
 
-    m2 = machine(build)
-    prof2 = Profiler(m2, build, rl, entries)
-    m2.call("harness_init")
-    prof2.start()
-    n_isr = min(n_in, 1000)
-    feed_isr(m2, build, inputs[:n_isr], max(1, min(design.queue_len // 4, build.in_len)))
-    stack = max(stack, m2.stack_used())
-    t2 = prof2.result()
+
+def costs(build: TargetBuild, design: Design, t: Tally, n_in: int, n_grid: int, n_out: int, t_isr: Tally,
+          stack: int) -> Costs:
+    """Per-event figures from a process-path tally over ``n_in`` inputs (that made ``n_grid`` grid
+    instants and ``n_out`` samples) and an ISR-path tally."""
+    from ..cores import CORES
 
     def per(d, k, n):
         return round(d.get(k, 0) / n, 2) if n else 0.0
 
     entry = CORES[build.core].isr_cycles
     names = isr_names(design)
-    isr_instr = {n: per(t2.counts, n, t2.calls.get(n, 0)) for n in names}
-    isr_cyc = {n: per(t2.cycles, n, t2.calls.get(n, 0)) for n in names}
+    isr_instr = {n: per(t_isr.counts, n, t_isr.calls.get(n, 0)) for n in names}
+    isr_cyc = {n: per(t_isr.cycles, n, t_isr.calls.get(n, 0)) for n in names}
     work = ("input", "grid", "output")
     cnt, cyc = t.counts, t.cycles
     return Costs(
@@ -379,6 +382,29 @@ def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: 
         isr_instr=isr_instr, isr_cycles=isr_cyc,
         isr_cycles_with_entry={n: round(v + entry, 2) for n, v in isr_cyc.items()},
         class_counts=dict(t.classes), stack_bytes=stack)
+
+
+def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: int = 3000, ref=None) -> Costs:
+    """Instructions and cycles per event, from an emulated run of the first ``max_inputs`` inputs
+    through <name>_process and of the ISR path on the first 1000 of them. ``ref``: the integer
+    model's run on those inputs, if the caller has it."""
+    from ..check import model
+
+    inputs = np.ascontiguousarray(inputs[:max_inputs], dtype=build.input_dtype)
+    if ref is None:
+        ref = model.run(design, inputs)
+    rl, entries = roles(build, design)
+    m = machine(build)
+    prof = Profiler(m, build, rl, entries)
+    m.call("harness_init")
+    prof.start()
+    chunks = feed_process(m, build, inputs, min(build.in_len, 1024))
+    produced = sum(c.size for c in chunks)
+    n_grid, n_out, n_in = int(ref.steps.size), int(ref.out.size), int(inputs.size)
+    if produced != n_out:
+        raise TargetRunError(f"measured run made {produced} outputs, the model {n_out}")
+    t_isr, isr_stack = isr_tally(build, design, inputs[:min(n_in, 1000)], rl, entries)
+    return costs(build, design, prof.result(), n_in, n_grid, n_out, t_isr, max(m.stack_used(), isr_stack))
 
 
 def total_cycles(build: TargetBuild, entry: str, *args: int, setup=None) -> tuple[int, float, int]:
