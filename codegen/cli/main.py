@@ -13,7 +13,7 @@ import traceback
 from pathlib import Path
 
 from .. import __version__
-from ..cli import quality as cli_quality
+from . import quality as cli_quality
 from ..spec import Spec, SpecError, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only

@@ -140,7 +140,7 @@ def emulator_available(core: str = "cortex-m0plus") -> bool:
             return True
     except ImportError:
         return False
-    from ..target import simavr
+    from . import simavr
     return simavr.available()
 
 

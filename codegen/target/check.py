@@ -15,7 +15,7 @@ import numpy as np
 from ..check import model
 from ..ir import Design, Topology
 from ..stimulus.inputs import DEFAULT_SEED, make_inputs
-from ..target.build import TARGETS
+from .build import TARGETS
 
 TARGET_CORES = tuple(TARGETS)
 TARGET_SECONDS = 0.1
@@ -60,7 +60,7 @@ class CoreCheck:
 
 def available_cores() -> tuple[str, ...]:
     """The emulated cores whose cross compiler and emulator are installed here."""
-    from ..target.build import available
+    from .build import available
 
     return tuple(c for c in TARGET_CORES if available(c))
 
@@ -88,11 +88,11 @@ def check_core(design: Design, core: str, inputs: np.ndarray, bench: np.ndarray,
     inputs [WARM, WARM + N), check its instructions, and compare with the float baseline on
     ``bench`` (the same window). ``emitted`` and ``models`` let several cores share the emitted C and the
     model's runs."""
-    from ..target import build as target
-    from ..target import cycles as target_cycles
-    from ..target import float_baseline
-    from ..target import isa
-    from ..target import run as target_run
+    from . import build as target
+    from . import cycles as target_cycles
+    from . import float_baseline
+    from . import isa
+    from . import run as target_run
 
     models = models or _Models(design, inputs)
     inputs = np.ascontiguousarray(inputs[:MAX_INPUTS.get(core, inputs.size)])
@@ -145,7 +145,7 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     set check, and cycles per output sample against the hand-written float baseline. The cores run
     two at a time (the emulators and compilers release the interpreter). Returns {core: the
     CoreCheck as a dict} for the cores installed here (empty when none is)."""
-    from ..target import float_baseline
+    from . import float_baseline
 
     todo = [c for c in (cores or available_cores()) if c in TARGETS]
     if not todo:

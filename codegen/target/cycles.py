@@ -26,8 +26,8 @@ import numpy as np
 
 from ..emit import internal_functions, isr_names
 from ..ir import Design
-from ..target.build import FLASH_BASE, TargetBuild, TargetRunError
-from ..target.run import feed_isr, feed_process, machine
+from .build import FLASH_BASE, TargetBuild, TargetRunError
+from .run import feed_isr, feed_process, machine
 
 # Cycles per instruction class of the unicorn-run cores.
 # Arm: from memory of the Cortex-M0+ and Cortex-M4 technical reference manuals' instruction timing

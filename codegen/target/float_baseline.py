@@ -23,10 +23,10 @@ from pathlib import Path
 import numpy as np
 
 from ..ir import Design
-from ..target import build as target
-from ..target import cache
-from ..target.cycles import Profiler, code_end
-from ..target.run import feed_process, machine
+from . import build as target
+from . import cache
+from .cycles import Profiler, code_end
+from .run import feed_process, machine
 
 WARM, N = 1024, 3072
 CPACR = 0xE000ED88      # Armv7-M System Control Block: Coprocessor Access Control Register

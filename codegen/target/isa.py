@@ -22,7 +22,7 @@ import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..target.build import TargetBuild
+from .build import TargetBuild
 
 _V6M_32BIT = {"bl", "mrs", "msr", "dmb", "dsb", "isb"}
 _RV_UPPER = re.compile(r"\b(a6|a7|s[2-9]|s1[01]|t[3-6]|x(1[6-9]|2\d|3[01]))\b")

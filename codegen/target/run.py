@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..target.build import (COUNTERS, FLASH_BASE, FLASH_SIZE, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE,
+from .build import (COUNTERS, FLASH_BASE, FLASH_SIZE, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE,
                                     TargetBuild, TargetRunError)
 
 # A runaway guard for one emulated call, in executed blocks (csrc/tally.c counts them in C). unicorn's
@@ -66,7 +66,7 @@ _TALLY_LIB = None
 def _tally_lib():
     global _TALLY_LIB
     if _TALLY_LIB is None:
-        from ..target.cache import host_library
+        from .cache import host_library
         _TALLY_LIB = ctypes.CDLL(str(host_library("tally")))
     return _TALLY_LIB
 
@@ -170,7 +170,7 @@ class UnicornMachine:
 def machine(build: TargetBuild):
     """The emulated core for ``build``, with the ELF loaded and RAM zeroed."""
     if build.target.emulator == "simavr":
-        from ..target.simavr import AvrMachine
+        from .simavr import AvrMachine
         return AvrMachine(build)
     return UnicornMachine(build)
 

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..target.build import AVR_PART, MAX_INSNS_PER_CALL, TargetBuild, TargetRunError
+from .build import AVR_PART, MAX_INSNS_PER_CALL, TargetBuild, TargetRunError
 
 DATA_SPACE = 0x800000      # avr-gcc's ELF address of data-space byte 0
 
@@ -58,7 +58,7 @@ _LIB = None
 def _lib():
     global _LIB
     if _LIB is None:
-        from ..target.cache import host_library
+        from .cache import host_library
         lib = ctypes.CDLL(str(host_library("avrsim", libs=("simavr",))))
         lib.et_avr_new.restype = ctypes.c_void_p
         lib.et_avr_new.argtypes = [ctypes.c_char_p]
