@@ -192,6 +192,30 @@ def test_avr_int_is_16_bits(builds):
     assert "#define __SIZEOF_INT__ 2" in r.stdout
 
 
+@pytest.mark.parametrize("core", [c for c in CORES if target.TARGETS[c].emulator == "unicorn"])
+def test_block_tally_counts_every_instruction(builds, core):
+    """The C block tally (each block decoded once, times its executions) counts exactly what
+    unicorn's own per-instruction hook counts (outside our code: unicorn's UC_HOOK_CODE)."""
+    import unicorn
+
+    from edgetally.target.cycles import Profiler, code_end
+
+    key = AUTO_IDS[0]
+    b = _get(builds, key, core)
+    x, _ = _model(key, 0.05, 1, 400)
+    m = target_run.machine(b)
+    prof = Profiler(m, b, [("all", [(target.FLASH_BASE, code_end(b))])], {})
+    seen = [0]
+    m.mu.hook_add(unicorn.UC_HOOK_CODE, lambda *_: seen.__setitem__(0, seen[0] + 1))
+    m.call("harness_init")
+    seen[0] = 0
+    prof.start()
+    target_run.feed_process(m, b, x.astype(b.input_dtype), b.in_len)
+    t = prof.result()
+    assert seen[0] > 10_000
+    assert sum(t.counts.values()) == seen[0]
+
+
 def test_runaway_call_is_stopped(builds):
     """A call that runs past the block limit stops with TargetRunError instead of hanging."""
     core = next(c for c in CORES if c != "avr")

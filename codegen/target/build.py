@@ -30,7 +30,7 @@ import os
 import shutil
 import subprocess
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -187,8 +187,8 @@ class TargetBuild:
     input_ctype: str
     sample_dtype: type
     input_dtype: type
+    target: CoreTarget
     compile_log: str = ""
-    target: CoreTarget = field(default=None)   # type: ignore[assignment]
 
     def address(self, name: str) -> int:
         return self.symbols[name].addr

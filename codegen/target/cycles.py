@@ -13,7 +13,7 @@ the function it was inlined from; the functions of each role come from
 Counting costs no Python call per executed block: a C block hook (csrc/tally.c) counts each
 translated block's executions by entry context; each block is decoded once (capstone) and its
 instructions multiplied by its count. Exception entry and exit of a real interrupt are not executed
-here; they are added from ``edgetally.cores`` where stated. ``total_cycles`` counts one whole call.
+here; they are added from ``edgetally.cores`` where stated.
 """
 
 from __future__ import annotations
@@ -405,17 +405,3 @@ def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: 
         raise TargetRunError(f"measured run made {produced} outputs, the model {n_out}")
     t_isr, isr_stack = isr_tally(build, design, inputs[:min(n_in, 1000)], rl, entries)
     return costs(build, design, prof.result(), n_in, n_grid, n_out, t_isr, max(m.stack_used(), isr_stack))
-
-
-def total_cycles(build: TargetBuild, entry: str, *args: int, setup=None) -> tuple[int, float, int]:
-    """(instructions, cycles, r0) of one call of ``entry`` with every instruction counted, whatever
-    function it is in; ``setup(machine)`` runs first (e.g. to write the input buffer)."""
-    m = machine(build)
-    base = 0 if build.target.arch == "avr" else FLASH_BASE
-    prof = Profiler(m, build, [("all", [(base, code_end(build))])], {})
-    if setup is not None:
-        setup(m)
-    prof.start()
-    r0 = m.call(entry, *args)
-    t = prof.result()
-    return sum(t.counts.values()), sum(t.cycles.values()), r0
