@@ -80,3 +80,23 @@ def test_float_baseline_uses_the_fpu_on_m4f_and_software_on_m0(tmp_path):
     assert "__aeabi_fadd" in m0.symbols and "__aeabi_dadd" not in m0.symbols
     m0d = float_build(d, "cortex-m0plus", tmp_path / "m0d", precision="double")
     assert "__aeabi_dadd" in m0d.symbols
+
+
+def test_avr_cycles_are_the_manuals():
+    """simavr's cycle count through our driver, on a planted sequence: LDI r24,1; LDI r25,0; RET.
+    AVR Instruction Set Manual (from memory): LDI 1 cycle, RET 4 cycles on a part with a 16-bit PC
+    (the ATmega1284P's 128 KB of flash are 64 K words): 3 instructions, 6 cycles, r24 = 1."""
+    from edgetally.target.cycles import Profiler, code_end
+    from edgetally.target.run import machine
+
+    if not target.available("avr"):
+        pytest.skip("avr-gcc or simavr is not installed")
+    b = _build("avr")
+    code = b"".join(w.to_bytes(2, "little") for w in (0xE081, 0xE090, 0x9508))
+    planted = _plant(b, "harness_init", code)
+    m = machine(planted)
+    prof = Profiler(m, planted, [("all", [(0, code_end(planted))])], {})
+    prof.start()
+    assert m.call("harness_init") >> 16 == 1      # the driver returns r22..r25; r24:r25 hold 1
+    t = prof.result()
+    assert t.counts == {"all": 3} and t.cycles == {"all": 6.0}
