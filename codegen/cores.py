@@ -101,7 +101,8 @@ CORES = {
     "avr": Core(
         name="avr", note="8-bit AVR class (ATmega, hardware 8x8 multiply): 16-bit int, wide arithmetic in software",
         has_capture=True, has_edge_irq=True, has_counter=True,
-        capture_prescalers=(1, 8, 64, 256, 1024),   # Timer1 clock select, datasheet (from memory)
+        capture_prescalers=(1,),   # datasheet, from memory: the input capture unit latches every selected
+                                   # edge (the clock select divides the timer clock, not the edges)
         hw_divide=False, mul64=False,
         isr_cycles=40,          # 11 (datasheet, from memory) + about 30 for the saving of a C handler (estimate)
         irq_jitter_cycles=4,    # datasheet, from memory: instructions take 1 to 4 cycles (5 with a 3-byte PC)
