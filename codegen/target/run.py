@@ -111,7 +111,9 @@ class UnicornMachine:
         self._hook_c(_tally_lib().et_guard_block, self.guard, FLASH_BASE, FLASH_BASE + FLASH_SIZE - 1)
 
     def _hook_c(self, fn, struct, begin: int, end: int) -> None:
-        """Add a block hook written in C (``fn``) with ``struct`` as its user data."""
+        """Add a block hook written in C (``fn``) with ``struct`` as its user data. unicorn's Python
+        binding only takes Python callbacks, so this calls the library's uc_hook_add through the
+        binding's ctypes handle (``uclib``, ``Uc._uch``: the layout of unicorn 2.1's binding)."""
         from unicorn.unicorn_py3.unicorn import uc_hook_h, uclib
 
         handle = uc_hook_h()
