@@ -369,11 +369,12 @@ def read_sigmf(path) -> tuple[float, np.ndarray, float | None]:
             rec = sigmffile.fromfile(str(meta), skip_checksum=True)
     except Exception as e:   # the library raises several kinds (schema, file, key errors)
         raise RecordingError(meta, "", f"not a valid SigMF recording: {_cut(e, 100)}")
-    dtype = str(rec.get_global_field(rec.DATATYPE_KEY))
+    dtype = str(rec.get_global_field("core:datatype"))
     if not dtype.startswith("c"):
         raise RecordingError(meta, "", f"datatype {dtype!r} is real; IQ (a complex datatype such as cf32_le) is needed")
-    if rec.get_num_channels() != 1:
-        raise RecordingError(meta, "", f"{rec.get_num_channels()} channels; one is read")
+    chans = rec.num_channels if hasattr(rec, "num_channels") else rec.get_num_channels()
+    if chans != 1:
+        raise RecordingError(meta, "", f"{chans} channels; one is read")
     frame = rec.get_sample_size()
     size = data.stat().st_size
     extra = size % frame
@@ -382,11 +383,11 @@ def read_sigmf(path) -> tuple[float, np.ndarray, float | None]:
                              f"{extra} trailing byte(s), not a whole {frame}-byte sample (truncated?)")
     if size == 0:
         raise RecordingError(data, ": offset 0", "no samples")
-    fs = rec.get_global_field(rec.SAMPLE_RATE_KEY)
+    fs = rec.get_global_field("core:sample_rate")
     if not isinstance(fs, (int, float)) or not fs > 0:
         raise RecordingError(meta, "", f"core:sample_rate {_cut(fs)!r} must be a positive number")
     caps = rec.get_captures()
-    centre = caps[0].get(rec.FREQUENCY_KEY) if caps else None
+    centre = caps[0].get("core:frequency") if caps else None
     x = np.asarray(rec.read_samples(), dtype=np.complex128).reshape(-1)
     return float(fs), x, centre
 
