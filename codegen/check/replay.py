@@ -33,7 +33,6 @@ from edgetally.planner import schemes
 from edgetally.stimulus.recordings import Recording, settle_s
 
 STEADY_SINAD_DB = 10.0
-TRACK_S = 0.001           # the offset output is read after blocks of about this much input
 
 
 @dataclass(frozen=True)
@@ -72,9 +71,10 @@ def offset_hz_per_lsb(design: Design) -> float:
 
 
 def block_inputs(design: Design) -> int:
-    """Inputs per block of about TRACK_S: stamps come at the IF / prescale, counts at the grid rate."""
+    """Inputs per output sample at the IF centre (stamps come at the IF / prescale, counts at the
+    grid rate): the offset output is read about once per output sample."""
     rate = design.if_hz / design.front.prescale if design.front.kind == "stamp" else design.rates.grid_hz
-    return max(1, int(round(rate * TRACK_S)))
+    return max(1, int(round(rate / design.rates.out_hz)))
 
 
 def run_tracked(host: hostbuild.HostDemod, inputs: np.ndarray, block: int,
