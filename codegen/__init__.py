@@ -11,7 +11,7 @@ stays fast.
 
 __version__ = "0.1.0"
 
-from edgetally.spec import Spec, SpecError, load_spec, parse_spec
+from .spec import Spec, SpecError, load_spec, parse_spec
 
 _LAZY = {
     "Plan": ("planner.choose", "Plan"),

@@ -19,12 +19,17 @@ from __future__ import annotations
 
 import numpy as np
 
-MASK32 = 0xFFFFFFFF  # uint32_t arithmetic in C is arithmetic modulo 2**32: x & MASK32
+def wrap_bits(x, bits: int):
+    """Reduce modulo 2**bits into [0, 2**bits): what a ``bits``-wide unsigned register holds (a timer,
+    a counter, uint32_t arithmetic; the difference of two such values in modular arithmetic).
+    In C: unsigned arithmetic on the register's own type, then ``& (2**bits - 1)`` (the emitted
+    source's INPUT_MASK); for 32 bits uint32_t arithmetic does it alone."""
+    return x & ((1 << bits) - 1)
 
 
 def wrap_s32(x):
     """Reduce modulo 2**32 into [-2**31, 2**31): a uint32_t pattern read as int32_t."""
-    return ((x + 0x80000000) & MASK32) - 0x80000000
+    return wrap_bits(x + 0x80000000, 32) - 0x80000000
 
 
 def rshr(x, s: int):
@@ -45,6 +50,22 @@ def ratio_floor(num, shift: int, den):
     In C: an unsigned 32-bit shift then an unsigned 32-bit division (the design guarantees that
     ``num << shift`` fits in 32 bits)."""
     return (num << shift) // den
+
+
+def section_step(coefs, z: list, x: int, coef_bits: int, limit: int, narrow: bool) -> tuple[int, bool]:
+    """One direct form I IIR section on Python ints, the output chain's only recursion:
+    acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 (coefs = (b0, b1, b2, a1, a2), z = [x1, x2, y1, y2],
+    updated in place), summed modulo 2**32 when ``narrow`` (exact 32-bit products whose final sum
+    fits, see the certificate), y = sat(rshr(acc, coef_bits), -limit, limit). Returns (y, whether
+    the saturation engaged). Its C twin is the section loop of the emitted ``_post`` function."""
+    b0, b1, b2, a1, a2 = coefs
+    acc = b0 * x + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3]
+    if narrow:
+        acc = wrap_s32(acc)
+    yr = rshr(acc, coef_bits)
+    y = sat(yr, -limit, limit)
+    z[1], z[0], z[3], z[2] = z[0], x, z[2], y
+    return y, y != yr
 
 
 INV6_BITS = 15

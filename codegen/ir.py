@@ -7,10 +7,35 @@ model, the floating-point reference and the reports only read it.
 from __future__ import annotations
 
 import dataclasses
+import enum
 import json
 import types
 import typing
 from dataclasses import dataclass
+
+
+class Topology(enum.Enum):
+    """How the MCU sees the edges: the one typed value every consumer branches on (derived from the
+    Design's scheme and front kind by ``Design.topology``)."""
+
+    CAPTURE = "capture"          # timer input capture of every k-th edge; stamps by a capture ISR or DMA
+    EDGE_STAMP = "edge-stamp"    # an edge interrupt reads a free-running timer and queues the value
+    EDGE_COUNT = "edge-count"    # an edge interrupt counts; a grid-timer interrupt queues the count
+    COUNTER = "counter"          # an IF-clocked hardware counter, read at every grid tick (ISR or DMA)
+
+    @property
+    def stamps(self) -> bool:
+        """Inputs are timer values (a stamp front), not edge counts."""
+        return self in (Topology.CAPTURE, Topology.EDGE_STAMP)
+
+
+def variant_label(scheme: str, stamps: bool, prescale: int = 1, order: str = "linear") -> str:
+    """The short name of a way of seeing the edges, one word: k<prescale>-<order> (capture),
+    stamp-<order> (an edge interrupt that reads a timer), count (edge counts)."""
+    if not stamps:
+        return "count"
+    pre = f"k{prescale}" if scheme == "timestamp" else "stamp"
+    return f"{pre}-{order}"
 
 
 @dataclass(frozen=True)
@@ -87,13 +112,12 @@ class Scale:
     Q(q): full-scale deviation = 2**q. The offset tracker then follows the DC of u (the tuning
     offset): dc_acc += u - rshr(dc_acc, dc_shift), dc = rshr(dc_acc, dc_shift), a one-pole
     low-pass with a time constant of 2**dc_shift output samples; the filters get
-    sat(u - dc, +-limit)."""
+    sat(u - dc, +-limit). ``limit`` is the data limit of the output chain (``Filters.limit``)."""
 
     centre: int
     mult: int
     shift: int
     q: int
-    limit: int
     dc_shift: int
 
 
@@ -186,7 +210,6 @@ class Budget:
     cpu_hz: float
     dma: bool                 # capture DMA (stamp fronts) or counter DMA (count fronts)
     edge_hz_max: float
-    variant: str
     cycles_per_edge: int      # the edge or capture ISR; 0 when hardware or DMA does it
     cycles_per_input: int     # per stamp or count taken from the queue or a DMA block
     cycles_per_grid: int
@@ -215,6 +238,80 @@ class Design:
     queue_len: int         # stamps the capture ISR can queue between two services
     budget: Budget
     certificate: tuple[Register, ...] = ()
+
+    # --- derived facts: each defined once here, read by emit, the checks, the measurements ---
+
+    @property
+    def topology(self) -> Topology:
+        if self.scheme == "timestamp":
+            return Topology.CAPTURE
+        if self.scheme == "interrupt":
+            return Topology.EDGE_STAMP if self.front.kind == "stamp" else Topology.EDGE_COUNT
+        return Topology.COUNTER
+
+    @property
+    def stamps(self) -> bool:
+        """The inputs are timer values (capture or edge-interrupt stamps), not counts."""
+        return self.front.kind == "stamp"
+
+    @property
+    def variant(self) -> str:
+        """The planner's name of this way of seeing the edges (``variant_label``)."""
+        return variant_label(self.scheme, self.stamps, self.front.prescale, getattr(self.front, "order", "linear"))
+
+    @property
+    def cubic(self) -> bool:
+        """The stamp front interpolates through four stamps."""
+        return self.stamps and self.front.order == "cubic"
+
+    @property
+    def input_bits(self) -> int:
+        """Width of one input: the timer's (stamps) or the counter's (counts)."""
+        return self.front.timer_bits if self.stamps else self.front.counter_bits
+
+    @property
+    def input_ctype(self) -> str:
+        return "uint16_t" if self.input_bits == 16 else "uint32_t"
+
+    @property
+    def fraction_bits(self) -> int:
+        """Fraction bits of a CIC input step: the phase's per stamp interval, or the count's shift."""
+        return self.front.phase_shift if self.stamps else self.front.step_shift
+
+    @property
+    def hz_per_cic_lsb(self) -> float:
+        """Frequency (Hz) of one LSB of the CIC output."""
+        c = self.cic
+        return self.rates.grid_hz * self.front.prescale / (2.0 ** self.fraction_bits * c.ratio ** c.order)
+
+    @property
+    def offset_hz_per_unit(self) -> float:
+        """Hz per unit of the offset output (and of the scaled data word, Q(scale.q))."""
+        return self.full_scale_hz / 2 ** self.scale.q
+
+    @property
+    def input_hz_max(self) -> float:
+        """Inputs per second at the highest edge rate: stamps (every prescale-th edge) or grid reads."""
+        return self.budget.edge_hz_max / self.front.prescale if self.stamps else float(self.rates.grid_hz)
+
+    @property
+    def word_lengths(self) -> dict:
+        """The chosen word lengths in one flat record (verify's JSON, the report)."""
+        f = self.filters
+        return {
+            "input_bits": self.input_bits,
+            "step_fraction_bits": self.fraction_bits,
+            "cic_in_bits": self.cic.in_bits,
+            "cic_register_bits": self.cic.width,
+            "data_bits": f.data_bits,
+            "coef_bits": f.coef_bits,
+            "coef_width": f.coef_width,
+            "accumulator_bits": f.acc_bits,
+            "scaling": f.scaling,
+            "section_q": [s.q_out for s in f.sections],
+            "output": self.output.format,
+            "min_margin_bits": min(r.margin_bits for r in self.certificate),
+        }
 
     def to_json(self) -> str:
         return json.dumps(dataclasses.asdict(self), indent=2, sort_keys=True)

@@ -14,7 +14,7 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from edgetally.cores import CORES, HW_DIV32_CYCLES, HW_MAC64_CYCLES
+from .cores import CORES, HW_DIV32_CYCLES, HW_MAC64_CYCLES
 
 C_KEYWORDS = frozenset(
     """auto break case char const continue default do double else enum extern float for goto if

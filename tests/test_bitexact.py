@@ -6,7 +6,7 @@ import pytest
 import edgetally
 from edgetally.check import hostbuild
 from edgetally.check import model
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 from edgetally.stimulus.inputs import make_inputs
 from edgetally.check.verify import verify
 

@@ -28,8 +28,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.designer import wordlength as fixed
+from edgetally.dsp import cic, iir
+from edgetally.designer import wordlength
 from edgetally.measure import metrics
 from edgetally.check import model
 from edgetally.planner import schemes
@@ -62,10 +62,10 @@ def test_hogenauer_published_example():
 
 def test_limit_cycles_within_jackson_dead_band(design):
     f = design.filters
-    measured = fixed.limit_cycle_lsb(f)
+    measured = wordlength.limit_cycle_lsb(f)
     assert len(measured) == len(f.sections)
     for s, m in zip(f.sections, measured):
-        est = fixed.jackson_dead_band(s, f.coef_bits)
+        est = wordlength.jackson_dead_band(s, f.coef_bits)
         # Jackson 1969, recomputed from the integers: 0.5 / (1 - |a2|) (first order: |a1|).
         a = s.a2 if s.a2 else s.a1
         assert est == pytest.approx(0.5 / (1 - abs(a) / 2.0 ** f.coef_bits), rel=1e-12)
@@ -106,7 +106,7 @@ def test_limit_cycle_exists_near_unit_circle():
     sec = Section("lowpass", 1 << cb, 0, 0, a1, a2, q_out=11, float_sos=(1.0, 0.0, 0.0, 1.0, -1.8, 0.95))
     f = Filters(data_bits=16, coef_bits=cb, coef_width=16, acc_bits=32, scaling="l1", limit=32767,
                 sections=(sec,))
-    est = fixed.jackson_dead_band(sec, cb)
+    est = wordlength.jackson_dead_band(sec, cb)
     assert est == pytest.approx(0.5 / (1 - a2 / 2 ** cb), rel=1e-12)      # 10.0 LSB
     # Certainly a limit cycle: the independent iteration finds a nonzero periodic orbit.
     amps = _zero_input_cycles(sec, cb, f.limit, [(f.limit, f.limit), (10, 0), (5, -5), (3, 3), (-20, 7)])
@@ -114,7 +114,7 @@ def test_limit_cycle_exists_near_unit_circle():
     # Jackson's estimate is the size of such cycles: within a factor 2 (the estimate is approximate).
     assert est / 2 <= max(amps) <= 2 * est, (amps, est)
     # The package measures a nonzero dead band, within a factor 2 of Jackson's estimate.
-    m = fixed.limit_cycle_lsb(f)[0]
+    m = wordlength.limit_cycle_lsb(f)[0]
     assert m > 0
     assert est / 2 <= m <= 2 * est, (m, est)
 
@@ -131,8 +131,8 @@ def test_coef_bits_for_holds_the_rounded_coefficients(c):
     # Q format that does.
     # Exact integer comparisons: no tolerance.
     rows = [[c, 0.0, 0.0, 1.0, 0.0, 0.0]]
-    cb = fixed.coef_bits_for(rows, 11, [11], 16)
-    sec = fixed.quantise_rows(rows, ["lowpass"], 11, [11], cb)[0]
+    cb = wordlength.coef_bits_for(rows, 11, [11], 16)
+    sec = iir.quantise_rows(rows, ["lowpass"], 11, [11], cb)[0]
     for v in (sec.b0, sec.b1, sec.b2, sec.a1, sec.a2):
         assert -(2 ** 15) <= v <= 2 ** 15 - 1, (cb, v)
     assert not -(2 ** 15) <= round(c * 2.0 ** (cb + 1)) <= 2 ** 15 - 1     # one more bit would not fit
@@ -149,7 +149,7 @@ NOISE_TONES = 40
 def noise_run(designs):
     """tiny_irq (16-bit data, Q15, 32-bit sums): the integer post chain against a float implementation
     of the same quantised coefficients with no rounding anywhere, on a busy band-limited input.
-    Returns (measured in-band error power, fixed.roundoff_noise prediction, the design), both in
+    Returns (measured in-band error power, wordlength.roundoff_noise prediction, the design), both in
     full-scale^2."""
     d = designs["tiny_irq"]
     sc, f = d.scale, d.filters
@@ -168,23 +168,23 @@ def noise_run(designs):
     out, sats, clips = model.post_chain(d, y)
     assert sats == 0 and clips == 0                  # premise: well inside every limit
     # Float reference with no rounding at all: the exact scaled input (the Scale rule without rshr),
-    # the offset tracker as reference.py writes it, the quantised rows (fixed.quantised_rows), and the
+    # the offset tracker as reference.py writes it, the quantised rows (wordlength.quantised_rows), and the
     # output word unrounded; all in full-scale units.
     u = (y - sc.centre).astype(np.float64) * sc.mult / 2.0 ** sc.shift / 2.0 ** sc.q
     alpha = 2.0 ** -sc.dc_shift
     dc = signal.lfilter([0.0, alpha], [1.0, alpha - 1.0], u)
-    ref = signal.sosfilt(np.array(fixed.quantised_rows(f, sc.q)), u - dc)
+    ref = signal.sosfilt(np.array(wordlength.quantised_rows(f, sc.q)), u - dc)
     bits = 16 if d.output.format == "s16" else int(d.output.format[1:])
     got = (out.astype(np.float64) - d.output.mid) / 2.0 ** (bits - 1)
     measured = metrics.band_power(got - ref, fs, schemes.BAND_LOW_HZ, d.audio_hz)
-    predicted = fixed.roundoff_noise(f, sc.q, bits, fs, schemes.BAND_LOW_HZ, d.audio_hz)
+    predicted = wordlength.roundoff_noise(f, sc.q, bits, fs, schemes.BAND_LOW_HZ, d.audio_hz)
     # the error is roundoff, not a gain or delay mistake: far below the signal
     assert measured < 1e-4 * metrics.band_power(ref, fs, schemes.BAND_LOW_HZ, d.audio_hz)
     return measured, predicted, d
 
 
 def test_roundoff_noise_prediction_within_3db(noise_run):
-    # Jackson 1970 as predicted by fixed.roundoff_noise, against the measured in-band error power.
+    # Jackson 1970 as predicted by wordlength.roundoff_noise, against the measured in-band error power.
     # 3 dB is the bound the project uses for noise formulas. Fair here because: the estimate's own
     # spread is ~0.06 dB (1/sqrt(5400) independent bins); the white, uniform, uncorrelated model holds
     # well for this busy input (hundreds of LSB of change per sample at every rounding node), and a
@@ -283,7 +283,7 @@ def _worst_signs(d, k, length):
     of the cascade's impulse response (chain input to section k, quantised rows), reversed."""
     imp = np.zeros(length)
     imp[0] = 1.0
-    h = signal.sosfilt(np.array(fixed.quantised_rows(d.filters, d.scale.q)[: k + 1]), imp)
+    h = signal.sosfilt(np.array(wordlength.quantised_rows(d.filters, d.scale.q)[: k + 1]), imp)
     return np.where(h >= 0, 1, -1)[::-1], h * 2.0 ** (d.filters.sections[k].q_out - d.scale.q)
 
 

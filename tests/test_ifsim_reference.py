@@ -28,12 +28,12 @@ from scipy import signal as ssig
 from scipy import special
 
 import edgetally
-from edgetally.stimulus import ifnoise as ifsim
+from edgetally.stimulus import ifnoise
 from edgetally.measure import metrics
 from edgetally.check import reference
 from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
-from edgetally.stimulus.fm import FmSignal, Tone
+from edgetally.stimulus import signals
+from edgetally.stimulus.signals import FmSignal, Tone
 
 LEAD_S = 0.1    # filters settling, as edgetally.verify.LEAD_S
 
@@ -44,14 +44,21 @@ F0, FM, FS, SPAN = 100_000.0, 1000.0, 1_024_000.0, 0.01   # 10 modulation period
 N_SAMPLES = 10240
 
 
+def _if_waveform(sig: FmSignal, fs: float, duration_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """The noiseless IF sin(2 pi phase(t)) (unit amplitude) at t = k / fs in [0, duration_s)."""
+    t = np.arange(int(math.ceil(duration_s * fs))) / fs
+    t = t[t < duration_s]
+    return t, np.sin(2 * np.pi * sig.phase(t))
+
+
 def _lines(beta: float, theta: float, start: float):
-    """One-sided amplitude spectrum of if_waveform (sine amplitude per bin), the carrier's bin and
+    """One-sided amplitude spectrum of _if_waveform (sine amplitude per bin), the carrier's bin and
     the bins per fm. The span holds whole modulation periods and whole IF cycles, so every line
     f0 + n fm falls on a bin (no leakage). Images: the negative-frequency lines reach the carrier's
     bin only for n = -2 f0 / fm = -200, and the alias at fs for n = (fs - 2 f0) / fm = 824:
     |J_200(beta)| < 1e-200 for beta < 9, so both are nothing."""
     sig = FmSignal(if_hz=F0, tones=(Tone(FM, beta * FM, theta),), start_phase=start)
-    t, x = ifsim.if_waveform(sig, FS, SPAN)
+    t, x = _if_waveform(sig, FS, SPAN)
     assert x.size == N_SAMPLES and t[-1] < SPAN
     a = 2 * np.abs(np.fft.rfft(x)) / x.size
     return a, int(round(F0 / (FS / x.size))), int(round(FM / (FS / x.size)))
@@ -124,7 +131,7 @@ def test_cnr_is_carrier_over_noise_in_the_band(modulated):
     else:
         sig = FmSignal(if_hz=F0, tones=(), start_phase=0.37)
         bw = 50_000.0
-    w = ifsim.noisy_if(sig, span, cnr_db, bw, rng)
+    w = ifnoise.noisy_if(sig, span, cnr_db, bw, rng)
     assert w.noise_bw_hz == pytest.approx(50_000.0)
     n = w.t.size
     if modulated:
@@ -160,10 +167,10 @@ def test_noiseless_crossings_are_the_exact_edges():
     # test_signals_reference), and the refinement bound of the ifsim docstring: 5.81 M / (16^4 f)
     # with f >= 225 kHz is 0.39 ns, more than 10x below the 11.9 ns quantum of an 84 MHz timer.
     sig = FmSignal(if_hz=300_000.0, tones=(Tone(15_000.0, 75_000.0, 0.7),), start_phase=0.3)
-    t = ifsim.noisy_edge_times(sig, 0.02, math.inf)
+    t = ifnoise.noisy_edge_times(sig, 0.02, math.inf)
     ref = signals.edge_times(sig, 0.02)
     assert t.size == ref.size
-    bound = 5.81 / (ifsim.OVERSAMPLE ** 4 * 225_000.0)
+    bound = 5.81 / (ifnoise.OVERSAMPLE ** 4 * 225_000.0)
     assert bound < 0.1 / 84e6
     assert np.max(np.abs(t - ref)) < bound
 
@@ -174,12 +181,12 @@ def test_hysteresis_delays_each_edge_by_asin():
     h = 0.2
     sig = FmSignal(if_hz=100_000.0, tones=(Tone(3000.0, 20_000.0, 1.1),), start_phase=0.6)
     late = FmSignal(if_hz=sig.if_hz, tones=sig.tones, start_phase=sig.start_phase - math.asin(h) / (2 * math.pi))
-    t = ifsim.noisy_edge_times(sig, 0.01, math.inf, hysteresis=h)
+    t = ifnoise.noisy_edge_times(sig, 0.01, math.inf, hysteresis=h)
     ref = signals.edge_times(late, 0.01)
     assert t.size == ref.size
     # bound as above with M = 1: 5.81 / (16^4 * 80 kHz) = 1.1 ns; the curvature of the sine at H
     # is nonzero, still within that fourth-order bound
-    assert np.max(np.abs(t - ref)) < 5.81 / (ifsim.OVERSAMPLE ** 4 * 80_000.0)
+    assert np.max(np.abs(t - ref)) < 5.81 / (ifnoise.OVERSAMPLE ** 4 * 80_000.0)
 
 
 def test_noise_alone_crosses_at_rices_rate():
@@ -191,7 +198,7 @@ def test_noise_alone_crosses_at_rices_rate():
     # its power, 1e-6).
     f0, bw, span, parts = 100_000.0, 160_000.0, 0.5, 10
     sig = FmSignal(if_hz=f0, tones=(), start_phase=0.0)
-    t = ifsim.noisy_edge_times(sig, span, -60.0, bw, np.random.default_rng(31))
+    t = ifnoise.noisy_edge_times(sig, span, -60.0, bw, np.random.default_rng(31))
     assert np.all(np.diff(t) > 0) and t[0] >= 0 and t[-1] < span
     # Tolerance from the sample itself: 10 segments of 50 ms (the noise decorrelates within ~1 / B =
     # 6 us, so the segments are independent); the mean rate must lie within 5 standard errors.
@@ -210,7 +217,7 @@ def test_hysteresis_never_adds_edges():
     sig = FmSignal(if_hz=100_000.0, tones=(Tone(1000.0, 17_500.0, 0.3),), start_phase=0.1)
     counts = []
     for h in (0.0, 0.05, 0.1, 0.2):
-        t = ifsim.noisy_edge_times(sig, 0.05, 0.0, 100_000.0, np.random.default_rng(9), hysteresis=h)
+        t = ifnoise.noisy_edge_times(sig, 0.05, 0.0, 100_000.0, np.random.default_rng(9), hysteresis=h)
         assert np.all(np.diff(t) > 0) and t[0] >= 0 and t[-1] < 0.05
         counts.append(t.size)
     assert all(b <= a + 1 for a, b in zip(counts, counts[1:]))
@@ -221,7 +228,7 @@ def test_edge_jitter_at_high_cnr():
     cnr_db, span = 40.0, 0.05
     sig = FmSignal(if_hz=300_000.0, tones=(Tone(15_000.0, 75_000.0, 2.0),), start_phase=0.8)
     clean = signals.edge_times(sig, span)
-    noisy = ifsim.noisy_edge_times(sig, span, cnr_db, None, np.random.default_rng(21))
+    noisy = ifnoise.noisy_edge_times(sig, span, cnr_db, None, np.random.default_rng(21))
     # at 40 dB no crossing is gained or lost (a click needs the noise to reach the carrier: 100 sigma)
     assert noisy.size == clean.size
     cnr = 10 ** (cnr_db / 10)
@@ -277,7 +284,7 @@ def _measure(d, dev, band_w, noise_bw, cnr_db, seed) -> float:
     rng = np.random.default_rng(seed)
     sig = signals.test_tone(d.if_hz, d.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
     assert sig.peak_deviation() == pytest.approx(dev)
-    times = ifsim.noisy_edge_times(sig, LEAD_S + SPAN_S, cnr_db, noise_bw, rng)
+    times = ifnoise.noisy_edge_times(sig, LEAD_S + SPAN_S, cnr_db, noise_bw, rng)
     stamps = signals.capture(times[::d.front.prescale], d.rates.timer_hz, d.front.timer_bits)
     out = reference.run(d, stamps)
     skip = int(round(LEAD_S * d.rates.out_hz))
@@ -323,7 +330,7 @@ def test_fm_threshold_and_above_threshold_formula(chain):
     # far below the noise at the highest CNR, so that it is not the limit: 20 dB below adds < 0.05 dB.
     # That also makes the SINAD measured below the SNR of the formula (distortion is in the floor).
     floor = min(_measure(d, dev, band_w, noise_bw, math.inf, s) for s in SEEDS)
-    assert floor > ifsim.above_threshold_snr_db(max(ABOVE), dev, band_w) + corr + 20.0
+    assert floor > ifnoise.above_threshold_snr_db(max(ABOVE), dev, band_w) + corr + 20.0
     # Scatter of one measurement: the noise power is summed over K = W T = 5000 * 0.3 = 1500 bins of a
     # Hann periodogram; the f^2 shape leaves (5/9) K effective bins and the Hann correlation divides
     # by 1.94: K_eff = 430, relative std 4.8 %, 0.21 dB; the mean of two seeds 0.15 dB. The
@@ -332,7 +339,7 @@ def test_fm_threshold_and_above_threshold_formula(chain):
     # band-matched prediction must hold to 5 sigma + 0.2 dB < 1 dB.
     for cnr_db in ABOVE:
         snr = float(np.mean([_measure(d, dev, band_w, noise_bw, cnr_db, s) for s in SEEDS]))
-        formula = ifsim.above_threshold_snr_db(cnr_db, dev, band_w)
+        formula = ifnoise.above_threshold_snr_db(cnr_db, dev, band_w)
         assert abs(snr - formula) < 3.0, (cnr_db, formula, snr)            # the issue's acceptance
         assert abs(snr - (formula + corr)) < 1.0, (cnr_db, formula + corr, snr)
     # Below threshold (3 dB CNR) clicks dominate: the formula (with the same band correction) says
@@ -340,13 +347,13 @@ def test_fm_threshold_and_above_threshold_formula(chain):
     # frequency, flat PSD, 2 N W in the band) about 9 dB. A chain without clicks would sit within
     # 1 dB of the formula as above; 10 dB short is far from both.
     snr = float(np.mean([_measure(d, dev, band_w, noise_bw, BELOW, s) for s in SEEDS]))
-    assert snr < ifsim.above_threshold_snr_db(BELOW, dev, band_w) + corr - 10.0
+    assert snr < ifnoise.above_threshold_snr_db(BELOW, dev, band_w) + corr - 10.0
 
 
 def test_formula_algebra():
     # 3 beta^2 (beta + 1) CNR (Haykin): beta = 5 gives 3 * 25 * 6 = 450 times the CNR, i.e. +26.53 dB
-    assert ifsim.above_threshold_snr_db(10.0, 25_000.0, 5000.0) == pytest.approx(10 + 10 * math.log10(450.0), abs=1e-12)
+    assert ifnoise.above_threshold_snr_db(10.0, 25_000.0, 5000.0) == pytest.approx(10 + 10 * math.log10(450.0), abs=1e-12)
     # Carson's rule 2 (deviation + highest tone): 2 (75 + 15) kHz = 180 kHz (Haykin's FM broadcast
     # example gives 180 kHz for 75 kHz deviation and 15 kHz audio; from memory)
     sig = FmSignal(if_hz=300_000.0, tones=(Tone(15_000.0, 60_000.0), Tone(5000.0, 15_000.0)))
-    assert ifsim.carson_bandwidth_hz(sig) == pytest.approx(180_000.0)
+    assert ifnoise.carson_bandwidth_hz(sig) == pytest.approx(180_000.0)

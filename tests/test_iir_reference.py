@@ -14,7 +14,7 @@ What the integers mean (ir.Section): section k reads Q(q_in) with q_in the previ
 of that change of format, its a coefficients do not. So b_int = round(b g 2^cb), a_int = round(a 2^cb).
 
 The quantisation bound used throughout: rounding to the nearest multiple of 2^-cb is off by at most
-eps = 2^-(cb+1) (checked below, not assumed). With the scale change undone (fixed.quantised_rows) a b
+eps = 2^-(cb+1) (checked below, not assumed). With the scale change undone (wordlength.quantised_rows) a b
 coefficient is off by eps_b = eps / g, an a coefficient by eps. For one section H = B/A and its quantised
 H' = B'/A':  H' - H = (dB - H dA) / A', so
     |H' - H| <= (3 eps_b + 2 eps |H|) / |A'|       (3 numerator and 2 denominator coefficients),
@@ -37,7 +37,7 @@ import pytest
 from scipy import signal
 
 from edgetally import emit
-from edgetally.designer import wordlength as fixed
+from edgetally.designer import wordlength
 from edgetally.dsp import iir
 from edgetally.check import model
 from edgetally.fixedpoint import rshr, sat, wrap_s32
@@ -86,7 +86,7 @@ def _pick(d, roles=None):
     with one of ``roles`` (all when None), in cascade order."""
     flt = d.filters
     eps = 2.0 ** -(flt.coef_bits + 1)
-    qrows = fixed.quantised_rows(flt, d.scale.q)
+    qrows = wordlength.quantised_rows(flt, d.scale.q)
     out = ([], [], [])
     for s, q, q_in in zip(flt.sections, qrows, _q_ins(d)):
         if roles is None or s.role in roles:
@@ -115,10 +115,10 @@ def test_quantised_coefficients_are_rounded_scaled_float_design(design):
 
 
 def test_quantised_rows_is_exact_division(design):
-    # fixed.quantised_rows must give int / 2^cb * 2^(q_in - q_out) for b, int / 2^cb for a, exactly
+    # wordlength.quantised_rows must give int / 2^cb * 2^(q_in - q_out) for b, int / 2^cb for a, exactly
     # (power-of-two scalings are exact in doubles); every later reference in this file rests on it.
     flt = design.filters
-    rows = fixed.quantised_rows(flt, design.scale.q)
+    rows = wordlength.quantised_rows(flt, design.scale.q)
     assert len(rows) == len(flt.sections)
     for s, q_in, row in zip(flt.sections, _q_ins(design), rows):
         cb = 2.0 ** flt.coef_bits
@@ -140,13 +140,13 @@ def test_quantised_response_matches_float_design(design):
     # The bound is meaningful: a few hundred eps at most, and a tenth of the 0.1 dB ripple band
     # (1 - 10^(-0.1/20) = 0.0114) even at Q15, so the passband check below can fail.
     assert float(np.max(bound)) < 400 * eps and float(np.max(bound)) < 0.1 * (1 - 10 ** (-0.1 / 20))
-    # The package's own figure (fixed.response_error_db, used to choose word lengths) is consistent
+    # The package's own figure (wordlength.response_error_db, used to choose word lengths) is consistent
     # with the bound: |20 log10(|H'| / |H|)| <= 20 log10(1 + bound / |H|) over [0, audio].
     fa = np.linspace(0.0, design.audio_hz, 512)
     _, hf = signal.sosfreqz(np.array(frows), worN=fa, fs=fs)
     ba = _quant_bound(frows, qrows, eps_b, eps, fa, fs) + FLOAT_EVAL
     allowed = float(np.max(20 * np.log10(1 + ba / np.abs(hf))))
-    assert fixed.response_error_db(design.filters, design.scale.q, fs, design.audio_hz) <= allowed + 1e-9
+    assert wordlength.response_error_db(design.filters, design.scale.q, fs, design.audio_hz) <= allowed + 1e-9
 
 
 def test_quantised_poles_inside_unit_circle(design):
@@ -204,7 +204,7 @@ def test_emitted_deemphasis_section_corner(designs):
     fs = d.rates.out_hz
     assert fs == 48000
     q_in = _q_ins(d)[k]
-    row = fixed.quantised_rows(flt, d.scale.q)[k]
+    row = wordlength.quantised_rows(flt, d.scale.q)[k]
     _, h = signal.sosfreqz(np.array([row]), worN=[3183.1], fs=fs)
     db = 20 * math.log10(abs(h[0]))
     assert db == pytest.approx(-3.0, abs=0.05)                        # issue acceptance
@@ -303,11 +303,11 @@ def _rounding_bounds(rows, length):
 
 
 def test_integer_sections_match_sosfilt_on_impulse(design):
-    # scipy.signal.sosfilt of fixed.quantised_rows (full-scale units), rescaled to each section's own
+    # scipy.signal.sosfilt of wordlength.quantised_rows (full-scale units), rescaled to each section's own
     # LSB by 2^(q_out - q_in of the chain), as the reference for integer sections written in this test.
     flt = design.filters
     q0 = design.scale.q
-    qrows = fixed.quantised_rows(flt, q0)
+    qrows = wordlength.quantised_rows(flt, q0)
     raw = _raw_rows(design)
     length = _impulse_length(raw)
     x = np.zeros(length, dtype=np.int64)

@@ -10,7 +10,7 @@ from edgetally.dsp import cic
 from edgetally.check import hostbuild
 from edgetally.measure import metrics
 from edgetally.check import model
-from edgetally.stimulus import fm as signals
+from edgetally.stimulus import signals
 from edgetally.stimulus.inputs import make_inputs
 from edgetally.check.verify import verify
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from edgetally.check.replay import replay
-from edgetally.stimulus import fm, recordings
+from edgetally.stimulus import recordings, signals as fm
 from edgetally.stimulus.inputs import make_inputs
 
 from conftest import ALL_DESIGNS

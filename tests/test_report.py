@@ -351,3 +351,24 @@ def _check_in_chromium(exe: str, page: Path, images: int, shot: Path) -> None:
     background = colours[np.argmax(counts)]
     assert np.mean(code != background) >= 0.05
     assert colours.size >= 1000
+
+
+@pytest.mark.slow
+def test_report_exits_nonzero_when_the_emulated_target_differs(tmp_path, monkeypatch):
+    """One verdict for every command: a report whose emulated target run differs from the model
+    must not exit 0 (VerifyResult.ok counts the targets), even when the host build is bit-exact."""
+    import dataclasses
+
+    from edgetally.check import verify as verify_mod
+    from edgetally.cli.main import main
+    from edgetally.report import make
+
+    def differing(design, **kw):
+        res = verify_mod.verify(design, **{**kw, "targets": False})
+        assert res.bit_exact
+        return dataclasses.replace(res, target_bit_exact=False, target={})
+
+    monkeypatch.setattr(make, "verify", differing)
+    out = tmp_path / "out"
+    assert main(["report", str(EXAMPLES / "orchard_link.toml"), "-o", str(out), "--seconds", "0.3"]) == 1
+    assert "DIFFERS" in (out / "orchard_report.html").read_text(encoding="utf-8")

@@ -20,8 +20,8 @@ import numpy as np
 import pytest
 from scipy import integrate, special
 
-from edgetally.stimulus import fm as signals
-from edgetally.stimulus.fm import FmSignal, Tone
+from edgetally.stimulus import signals
+from edgetally.stimulus.signals import FmSignal, Tone
 
 
 def _inst_freq(tones, f0):

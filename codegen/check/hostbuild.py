@@ -3,7 +3,8 @@
 The emitted source is first compiled on its own with the strict flags (warnings are errors), so
 that the check covers exactly the code a user will build; the cffi wrapper, which is Python C-API
 code, is then compiled with the compiler's defaults and linked against that object. Builds are
-cached by a hash of the sources and flags in a per-user folder under the system temp directory.
+cached by a hash of the sources and flags in a per-user folder under the system temp directory
+(at most CACHE_ENTRIES builds; the oldest are removed).
 """
 
 from __future__ import annotations
@@ -20,9 +21,10 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.ir import Design
-from edgetally.emit import api, emit, input_type, isr_names
-from edgetally.check.model import service_due
+from ..fixedpoint import wrap_bits
+from ..ir import Design, Topology
+from ..emit import api, emit, input_type, isr_names
+from ..check.model import service_due
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 OPT_FLAGS = ["-O2"]
@@ -137,14 +139,13 @@ class HostDemod:
         def due(k: int) -> bool:              # k: inputs so far
             return service_due(k, service_every, stall)
 
-        if d.scheme == "interrupt" and d.front.kind == "count":
+        if d.topology is Topology.EDGE_COUNT:
             edge, tick = self._fn("edge_isr"), self._fn("tick_isr")
-            mask = (1 << d.front.counter_bits) - 1
             values = inputs.astype(np.int64)
             for _ in range(int(values[0])):
                 edge(st)
             tick(st)
-            for k, step in enumerate((np.diff(values) & mask).tolist(), 2):
+            for k, step in enumerate(wrap_bits(np.diff(values), d.input_bits).tolist(), 2):
                 for _ in range(step):
                     edge(st)
                 tick(st)
@@ -173,6 +174,8 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
     root = workdir or cache_root()
     folder = root / key
     found = list(folder.glob(f"{modname}*.so")) + list(folder.glob(f"{modname}*.pyd")) if folder.exists() else []
+    if found:
+        os.utime(folder)                      # most recently used: the last to be trimmed
     if not found:
         tmp = Path(tempfile.mkdtemp(prefix="build-", dir=_ensure(root)))
         try:
@@ -194,10 +197,26 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
         except Exception:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
+        _trim(root)
     spec = importlib.util.spec_from_file_location(modname, found[0])
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
     return HostDemod(design=design, ffi=mod.ffi, lib=mod.lib)
+
+
+CACHE_ENTRIES = 64     # host builds kept; the oldest beyond this are removed (each is about 100 kB)
+
+
+def _trim(root: Path, keep: int = CACHE_ENTRIES) -> None:
+    """Bound the cache: remove the least recently used builds beyond ``keep`` (and stale
+    ``build-*`` folders an interrupted build left more than an hour ago)."""
+    import time
+
+    entries = [e for e in root.iterdir() if e.is_dir()]
+    stale = [e for e in entries if e.name.startswith("build-") and time.time() - e.stat().st_mtime > 3600]
+    done = sorted((e for e in entries if not e.name.startswith("build-")), key=lambda e: e.stat().st_mtime)
+    for e in stale + done[:-keep]:
+        shutil.rmtree(e, ignore_errors=True)
 
 
 def _ensure(p: Path) -> Path:

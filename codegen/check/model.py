@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from edgetally.ir import Design
-from edgetally.fixedpoint import MASK32, cubic_fraction, ratio_floor, rshr, sat, wrap_s32
+from ..ir import Design
+from ..fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, wrap_bits, wrap_s32
 
 
 @dataclass(frozen=True)
@@ -34,7 +34,7 @@ def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:
     c = np.asarray(stamps, dtype=np.int64)
     if c.size == 0:
         return c
-    delta = np.minimum(np.diff(c) & ((1 << timer_bits) - 1), max_delta)
+    delta = np.minimum(wrap_bits(np.diff(c), timer_bits), max_delta)
     return c[0] + np.concatenate(([0], np.cumsum(delta)))
 
 
@@ -118,7 +118,7 @@ def count_steps(design: Design, counts: np.ndarray, lost=None) -> tuple[np.ndarr
     c = np.asarray(counts, dtype=np.int64)
     if c.size < 2:
         return np.zeros(0, dtype=np.int64), 0, 0
-    d = np.diff(c) & ((1 << fr.counter_bits) - 1)
+    d = wrap_bits(np.diff(c), fr.counter_bits)
     gap = zero_run_gaps(d, fr.gap_run) | lost_flags(c.size, lost)[1:]
     ok = in_range(d, fr.diff_low, fr.diff_limit)
     clamps = int(np.count_nonzero(~ok & ~gap))
@@ -131,10 +131,10 @@ def cic_decimate(design: Design, x: np.ndarray) -> np.ndarray:
     c = design.cic
     v = x.astype(np.int64)
     for _ in range(c.order):
-        v = np.cumsum(v) & MASK32
+        v = wrap_bits(np.cumsum(v), 32)
     v = v[c.ratio - 1::c.ratio]
     for _ in range(c.order):
-        v = (v - np.concatenate(([0], v[:-1]))) & MASK32
+        v = wrap_bits(v - np.concatenate(([0], v[:-1])), 32)
     return v[c.order:]
 
 
@@ -159,15 +159,9 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
         if v > lim or v < -lim:
             sats += 1
             v = sat(v, -lim, lim)
-        for (b0, b1, b2, a1, a2), z in zip(coefs, state):
-            acc = b0 * v + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3]
-            if narrow_acc:
-                acc = wrap_s32(acc)
-            yr = rshr(acc, cb)
-            yn = sat(yr, -lim, lim)
-            sats += yn != yr
-            z[1], z[0], z[3], z[2] = z[0], v, z[2], yn
-            v = yn
+        for c, z in zip(coefs, state):
+            v, saturated = section_step(c, z, v, cb, lim, narrow_acc)
+            sats += saturated
         o = v * of.lmul
         if of.rshift:
             o = rshr(o, of.rshift)

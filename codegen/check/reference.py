@@ -9,9 +9,10 @@ from __future__ import annotations
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.ir import Design
-from edgetally.check.model import unwrap, zero_run_gaps
+from ..dsp import cic
+from ..fixedpoint import wrap_bits
+from ..ir import Design
+from ..check.model import unwrap, zero_run_gaps
 
 
 def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:
@@ -43,7 +44,7 @@ def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:
 def _count_steps(design: Design, counts: np.ndarray) -> np.ndarray:
     fr = design.front
     c = np.asarray(counts, dtype=np.int64)
-    d = np.diff(c) & ((1 << fr.counter_bits) - 1)
+    d = wrap_bits(np.diff(c), fr.counter_bits)
     gap = zero_run_gaps(d, fr.gap_run)
     return np.where(gap, design.if_hz / design.rates.grid_hz, d.astype(np.float64))
 

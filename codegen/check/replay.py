@@ -25,12 +25,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from edgetally.check import hostbuild, model
-from edgetally.check.compare import compare
-from edgetally.ir import Design
-from edgetally.measure import metrics
-from edgetally.planner import schemes
-from edgetally.stimulus.recordings import Recording, settle_s
+from ..check import hostbuild, model
+from ..check.compare import compare
+from ..ir import Design
+from ..measure import metrics
+from ..planner import schemes
+from ..stimulus.recordings import Recording, settle_s
 
 STEADY_SINAD_DB = 10.0
 
@@ -208,7 +208,7 @@ def _input_freq(design: Design, rec: Recording) -> tuple[np.ndarray, np.ndarray]
 
 def plots(design: Design, rec: Recording, res: ReplayResult) -> list[str]:
     """Three figures as <img> tags: the input's frequency, the output and offset, the spectrum."""
-    from edgetally.report import plots as rp
+    from ..report import plots as rp
 
     figs = []
     t, f = _input_freq(design, rec)
@@ -254,7 +254,7 @@ def plots(design: Design, rec: Recording, res: ReplayResult) -> list[str]:
 
 
 def page(design: Design, rec: Recording, res: ReplayResult, wav_name: str) -> str:
-    from edgetally.report import page as rpage
+    from ..report import page as rpage
 
     e = html.escape
     rows = "".join(f"<li>{e(s.strip())}</li>" for s in summary_lines(design, res)[1:])
@@ -269,7 +269,7 @@ def page(design: Design, rec: Recording, res: ReplayResult, wav_name: str) -> st
 
 def replay_files(design: Design, rec: Recording, res: ReplayResult) -> dict[str, bytes]:
     """{file name: bytes}: <name>_replay.wav (the C's output as 16-bit PCM) and <name>_replay.html."""
-    from edgetally.report import listen
+    from ..report import listen
 
     wav = f"{design.name}_replay.wav"
     return {wav: listen.wav_bytes(design.rates.out_hz, listen.pcm16(design, res.out)),

@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from edgetally.check import model
-from edgetally.emit import Vectors
-from edgetally.ir import Design
-from edgetally.stimulus.inputs import DEFAULT_SEED, make_inputs
+from ..check import model
+from ..emit import Vectors
+from ..ir import Design
+from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
 
 def test_vectors(design: Design, seconds: float = 0.05, seed: int = DEFAULT_SEED):

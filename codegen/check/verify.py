@@ -12,12 +12,12 @@ import time
 from dataclasses import asdict, dataclass
 from typing import Callable
 
-from edgetally.check import hostbuild, model, reference
-from edgetally.check.compare import compare
-from edgetally.ir import Design
-from edgetally.measure import metrics
-from edgetally.planner import schemes
-from edgetally.stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
+from ..check import hostbuild, model, reference
+from ..check.compare import compare
+from ..ir import Design
+from ..measure import metrics
+from ..planner import schemes
+from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
 
 
 @dataclass(frozen=True)
@@ -83,7 +83,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     tgt = {}
     if targets:
         say("cross-compiling for the target cores and running them in the emulator")
-        from edgetally.target.check import target_check
+        from ..target.check import target_check
 
         tgt = target_check(design, seed)
     say("running the floating-point reference")
@@ -97,23 +97,8 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     fixed = metrics.sinad_db(c_out[skip:], fs, schemes.TEST_TONE_HZ, *band)
     flt = metrics.sinad_db(ref[skip:ref.size], fs, schemes.TEST_TONE_HZ, *band)
     pred = schemes.predict_design(design)
-    fr, f = design.front, design.filters
-    widths = {
-        "input_bits": fr.timer_bits if fr.kind == "stamp" else fr.counter_bits,
-        "step_fraction_bits": fr.phase_shift if fr.kind == "stamp" else fr.step_shift,
-        "cic_in_bits": design.cic.in_bits,
-        "cic_register_bits": design.cic.width,
-        "data_bits": f.data_bits,
-        "coef_bits": f.coef_bits,
-        "coef_width": f.coef_width,
-        "accumulator_bits": f.acc_bits,
-        "scaling": f.scaling,
-        "section_q": [s.q_out for s in f.sections],
-        "output": design.output.format,
-        "min_margin_bits": min(r.margin_bits for r in design.certificate),
-    }
     return VerifyResult(
-        name=design.name, scheme=design.scheme, variant=design.budget.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
+        name=design.name, scheme=design.scheme, variant=design.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
         bit_exact=cmp.bit_exact, samples=cmp.samples, mismatches=cmp.mismatches,
         first_mismatch=cmp.first_mismatch, counters_match=cmp.counters_match,
         sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),
@@ -123,7 +108,7 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
         implementation_loss_db=round(flt - fixed, 2) + 0.0,
         quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0, gaps=m.gaps, clamps=m.clamps,
         saturations=m.saturations, clips=m.clips,
-        offset_hz=round(counters["offset"] * design.full_scale_hz / 2 ** design.scale.q, 3),
-        c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=widths,
+        offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 3),
+        c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=design.word_lengths,
         target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None, target=tgt,
     )

@@ -1,5 +1,1 @@
-"""The thin command line: one small module per command over the pure API."""
-
-from edgetally.cli.main import main
-
-__all__ = ["main"]
+"""The thin command line over the pure API (entry point: ``edgetally.cli.main.main``)."""

@@ -12,10 +12,10 @@ import sys
 import traceback
 from pathlib import Path
 
-from edgetally import __version__
-from edgetally.cli import quality as cli_quality
-from edgetally.cli import replay as cli_replay
-from edgetally.spec import Spec, SpecError, load_spec
+from .. import __version__
+from ..cli import quality as cli_quality
+from ..cli import replay as cli_replay
+from ..spec import Spec, SpecError, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
 # when they run, so that a bad spec is refused without loading them.
@@ -159,12 +159,12 @@ def _json_safe(obj):
 def cmd_plan(args) -> int:
     spec = load_spec(args.spec)
     _warn(spec)
-    from edgetally.planner.choose import plan
+    from ..planner.choose import plan
 
     pl = plan(spec, scheme=args.scheme)
     sims = None
     if args.simulate:
-        from edgetally.planner.refine import simulate_options
+        from ..planner.refine import simulate_options
 
         if sys.stderr.isatty():
             print("edgetally: simulating each feasible option ...", file=sys.stderr)
@@ -199,10 +199,10 @@ def _measured_plan(spec: Spec, pl, scheme):
     """Measure the chosen design's cycles in the emulator for the spec's core; while the measured
     load exceeds the budget, drop that option (with the measured figure as its reason) and plan
     again. Returns the final plan and its measurement."""
-    from edgetally.target import build as target
-    from edgetally.designer.assemble import design as make_design
-    from edgetally.planner.choose import plan
-    from edgetally.target.check import target_check
+    from ..target import build as target
+    from ..designer.assemble import design as make_design
+    from ..planner.choose import plan
+    from ..target.check import target_check
 
     if spec.target.core not in ("cortex-m0plus", "cortex-m4"):
         raise UsageError(f"--measured: the {spec.target.core} core is not emulated (cortex-m0plus, cortex-m4 are)")
@@ -225,15 +225,15 @@ def _measured_plan(spec: Spec, pl, scheme):
 def cmd_emit(args) -> int:
     spec = load_spec(args.spec)
     _warn(spec)
-    from edgetally.designer.assemble import design as make_design
-    from edgetally.emit import emit
+    from ..designer.assemble import design as make_design
+    from ..emit import emit
 
     d = make_design(spec, scheme=args.scheme)
     files = dict(emit(d))
     files[f"{d.name}_design.json"] = d.to_json() + "\n"
     if not args.no_test:
-        from edgetally.emit import unit_test
-        from edgetally.check.vectors import test_vectors
+        from ..emit import unit_test
+        from ..check.vectors import test_vectors
 
         files.update(unit_test(d, test_vectors(d)))
     out = Path(args.out)
@@ -254,8 +254,8 @@ def cmd_emit(args) -> int:
 
 
 def cmd_verify(args) -> int:
-    from edgetally.stimulus.inputs import DEFAULT_SEED
-    from edgetally.check.verify import verify
+    from ..stimulus.inputs import DEFAULT_SEED
+    from ..check.verify import verify
 
     _check_seconds(args.seconds)
     for opt, v in (("--loss-ms", args.loss_ms), ("--burst-ms", args.burst_ms)):
@@ -266,7 +266,7 @@ def cmd_verify(args) -> int:
         raise UsageError("--points needs --sweep")
     spec = load_spec(args.spec)
     _warn(spec)
-    from edgetally.designer.assemble import design as make_design
+    from ..designer.assemble import design as make_design
 
     d = make_design(spec, scheme=args.scheme)
     for kind in args.sweep:
@@ -277,8 +277,8 @@ def cmd_verify(args) -> int:
     res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target)
     host = None
     if args.sweep or args.scenario:
-        from edgetally.check.hostbuild import build
-        from edgetally.measure.hostile import Options
+        from ..check.hostbuild import build
+        from ..measure.hostile import Options
 
         host = build(d)
     sw = cli_quality.run_sweeps(d, args.sweep, points, seed, host, tty)
@@ -329,8 +329,8 @@ def cmd_report(args) -> int:
     _check_seconds(args.seconds)
     spec = load_spec(args.spec)
     _warn(spec)
-    from edgetally.designer.assemble import design as make_design
-    from edgetally.planner.choose import plan
+    from ..designer.assemble import design as make_design
+    from ..planner.choose import plan
 
     pl = plan(spec, scheme=args.scheme)
     return cli_quality.cmd_report(args, spec, make_design(spec, pl), pl)
@@ -339,7 +339,7 @@ def cmd_report(args) -> int:
 def cmd_widths(args) -> int:
     spec = load_spec(args.spec)
     _warn(spec)
-    from edgetally.designer.widths import check_widths, parse_sets
+    from ..designer.widths import check_widths, parse_sets
 
     rep = check_widths(spec, scheme=args.scheme, overrides=parse_sets(args.set), simulate=not args.no_simulate)
     if args.json:
@@ -396,7 +396,7 @@ def main(argv: list[str] | None = None) -> int:
 def _internal(e: Exception, debug: bool) -> int:
     """A failure that is not the user's spec: exit 1, one line unless --debug (a BuildError
     carries the compiler's messages, which are printed in full)."""
-    from edgetally.check.hostbuild import BuildError
+    from ..check.hostbuild import BuildError
 
     if debug:
         traceback.print_exc()

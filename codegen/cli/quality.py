@@ -6,7 +6,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from edgetally.cli.progress import Progress
+from ..cli.progress import Progress
 
 
 class ArgError(Exception):
@@ -28,7 +28,7 @@ def parse_points(text: str | None) -> list[float] | None:
 
 def check_points(design, kind: str, pts: list[float] | None) -> None:
     """The API's check of swept values, as a usage error."""
-    from edgetally.measure import sweeps
+    from ..measure import sweeps
 
     try:
         sweeps.check_points(design, kind, pts)
@@ -37,7 +37,7 @@ def check_points(design, kind: str, pts: list[float] | None) -> None:
 
 
 def run_sweeps(design, kinds: list[str], points: list[float] | None, seed: int, host, tty: bool) -> list:
-    from edgetally.measure import sweeps
+    from ..measure import sweeps
 
     out = []
     for kind in kinds:
@@ -49,7 +49,7 @@ def run_sweeps(design, kinds: list[str], points: list[float] | None, seed: int, 
 
 
 def run_scenarios(design, names: list[str], options, host, tty: bool) -> list:
-    from edgetally.measure import hostile
+    from ..measure import hostile
 
     todo = list(hostile.SCENARIOS) if "all" in names else names
     out = []
@@ -88,8 +88,8 @@ def print_scenarios(results) -> None:
 
 def cmd_report(args, spec, design, plan_obj) -> int:
     """Make the report (edgetally.report_make), write its files, print one summary line."""
-    from edgetally.report import make as report_make
-    from edgetally.stimulus.inputs import DEFAULT_SEED
+    from ..report import make as report_make
+    from ..stimulus.inputs import DEFAULT_SEED
 
     out = Path(args.out)
     if out.exists() and not out.is_dir():

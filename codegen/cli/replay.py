@@ -37,8 +37,8 @@ def add_parser(subparsers) -> None:
 
 def run(args) -> int:
     """The command; errors go up to main (SpecError, UsageError, RecordingError -> exit 2)."""
-    from edgetally.cli.main import UsageError, _json_safe, _warn
-    from edgetally.spec import load_spec
+    from ..cli.main import UsageError, _json_safe, _warn
+    from ..spec import load_spec
 
     if not math.isfinite(args.offset_hz):
         raise UsageError(f"--offset-hz {args.offset_hz}: must be a finite frequency in Hz")
@@ -47,9 +47,9 @@ def run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"-o {out}: exists and is not a folder")
-    from edgetally.check.replay import replay, replay_files, summary_lines
-    from edgetally.designer.assemble import design as make_design
-    from edgetally.stimulus.recordings import RecordingError, load
+    from ..check.replay import replay, replay_files, summary_lines
+    from ..designer.assemble import design as make_design
+    from ..stimulus.recordings import RecordingError, load
 
     d = make_design(spec, scheme=args.scheme)
     try:

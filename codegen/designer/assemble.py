@@ -11,14 +11,14 @@ import math
 from dataclasses import dataclass
 from fractions import Fraction
 
-from edgetally import __version__
-from edgetally.dsp import cic
-from edgetally.designer import wordlength as fixed
-from edgetally.dsp import iir
-from edgetally.planner import schemes
-from edgetally.ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
-from edgetally.planner.choose import REG_BITS, Plan, plan
-from edgetally.spec import Spec, SpecError
+from .. import __version__
+from ..dsp import cic
+from ..designer import wordlength
+from ..dsp import iir
+from ..planner import schemes
+from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
+from ..planner.choose import REG_BITS, Plan, plan
+from ..spec import Spec, SpecError
 
 DC_CORNER_HZ = 2.0      # offset tracker corner: far below any audio band (common practice, no source)
 SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)
@@ -61,17 +61,17 @@ def _bound_rel(spec: Spec, p: Plan) -> float:
     return float(max(centre, y_max - centre) * unit / Fraction(spec.output.full_scale_hz))
 
 
-def _filters(spec: Spec, p: Plan, a: fixed.Arith, scaling: str, coef_bits: int | None) -> tuple[Filters, int]:
+def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: int | None) -> tuple[Filters, int]:
     sig, out = spec.signal, spec.output
     pairs = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz, droop=_droop(spec, p))
     rows = [list(map(float, r)) for _, sos in pairs for r in sos]
     roles = [role for role, sos in pairs for _ in sos]
-    lim = fixed.limit_of(a.data_bits)
+    lim = wordlength.limit_of(a.data_bits)
     in_rel = 2 * _bound_rel(spec, p)                        # audio minus offset
     q_in = math.floor(math.log2(lim / in_rel))
-    qs = fixed.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
-    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, fixed.coef_bits_for(rows, q_in, qs, a.coef_width))
-    sections = fixed.quantise_rows(rows, roles, q_in, qs, cb)
+    qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
+    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
 
@@ -103,7 +103,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     out_bits = output_bits(spec.output.format)
     opts = []
     for name in names:
-        a = fixed.ARITHS[name]
+        a = wordlength.ARITHS[name]
         a = dataclasses.replace(a, **{k: ov[k] for k in ("data_bits", "coef_width", "acc_bits") if k in ov})
         scaling = ov.get("scaling", fx.scaling if a.acc_bits == 64 else "l1")
         try:
@@ -111,8 +111,8 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
         except ValueError as e:
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
-        err = fixed.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
-        noise = fixed.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
+        err = wordlength.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
+        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
                                      spec.signal.audio_hz)
         loss = 10 * math.log10(1 + noise / signal_fs2)
         needed = f.coef_bits
@@ -121,7 +121,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
                 g, _ = _filters(spec, p, a, scaling, cb)
             except ValueError:
                 break
-            if fixed.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
+            if wordlength.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
                 break
             needed = cb
         cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections))
@@ -154,8 +154,8 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
-    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, limit=f.limit, dc_shift=dc_shift)
-    cert = fixed.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
+    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
+    cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
                              dc_shift=dc_shift, f=f)
     per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
@@ -172,6 +172,6 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
                       edge_hz_max=sig.if_hz + sig.deviation_hz, cycles_per_edge=p.load.per_edge,
                       cycles_per_input=p.load.per_input, cycles_per_grid=p.load.per_grid,
                       cycles_per_output=per_output, load_fraction=fraction, ram_bytes=p.load.ram_bytes,
-                      variant=p.variant, isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
+                      isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
         certificate=cert,
     )

@@ -7,13 +7,13 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, field
 
-from edgetally.designer import assemble as build
-from edgetally.dsp import cic
-from edgetally.designer import wordlength as fixed
-from edgetally.planner import schemes
-from edgetally.ir import Design
-from edgetally.planner.choose import plan
-from edgetally.spec import Spec, SpecError
+from ..designer import assemble
+from ..dsp import cic
+from ..designer import wordlength
+from ..planner import schemes
+from ..ir import Design
+from ..planner.choose import plan
+from ..spec import Spec, SpecError
 
 
 @dataclass(frozen=True)
@@ -46,11 +46,11 @@ def parse_sets(items: list[str]) -> dict:
         key, sep, value = item.partition("=")
         if not sep or not key.startswith("filters."):
             raise SpecError("--set", item, "must look like filters.KEY=VALUE, KEY one of "
-                            + ", ".join(build.OVERRIDABLE))
+                            + ", ".join(assemble.OVERRIDABLE))
         name = key[len("filters."):]
-        if name not in build.OVERRIDABLE:
-            raise SpecError("--set", item, "KEY must be one of " + ", ".join(build.OVERRIDABLE))
-        if build.OVERRIDABLE[name] is int:
+        if name not in assemble.OVERRIDABLE:
+            raise SpecError("--set", item, "KEY must be one of " + ", ".join(assemble.OVERRIDABLE))
+        if assemble.OVERRIDABLE[name] is int:
             try:
                 out[name] = int(value)
             except ValueError:
@@ -73,11 +73,11 @@ def _limit_cycles(d: Design, noise_fs2: float) -> list[dict]:
     below the demodulator's own in-band noise."""
     f = d.filters
     rows = []
-    for s, m in zip(f.sections, fixed.limit_cycle_lsb(f)):
+    for s, m in zip(f.sections, wordlength.limit_cycle_lsb(f)):
         idle = (m * 2.0 ** -s.q_out) ** 2 / 2
         below = 10 * math.log10(noise_fs2 / idle) if idle else math.inf
         rows.append({"section": s.role, "dead_band_lsb": m,
-                     "jackson_lsb": round(fixed.jackson_dead_band(s, f.coef_bits), 2),
+                     "jackson_lsb": round(wordlength.jackson_dead_band(s, f.coef_bits), 2),
                      "below_noise_db": round(below, 1)})
     return rows
 
@@ -87,8 +87,8 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
     """The width table and every check; ``simulate`` also runs the emitted C against the model and
     the float reference (skipped when a register could overflow: such C would be undefined)."""
     p = plan(spec, scheme)
-    d = build.design(spec, p, overrides=overrides)
-    opts = build.width_options(spec, p, overrides)
+    d = assemble.design(spec, p, overrides=overrides)
+    opts = assemble.width_options(spec, p, overrides)
     opt = next(o for o in opts if o.filters == d.filters)
     fx = spec.fixed
     failures = [f"{r.name}: bound {r.bound} does not fit {r.bits} bits (margin {r.margin_bits} bits)"
@@ -107,7 +107,7 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
     sim_loss = bit_exact = None
     overflow = any(r.margin_bits < 0 and not r.name.endswith(".out") for r in d.certificate)
     if simulate and not overflow:
-        from edgetally.check.verify import verify
+        from ..check.verify import verify
 
         res = verify(d, seconds=seconds)
         sim_loss, bit_exact = res.implementation_loss_db, res.bit_exact
@@ -122,6 +122,10 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
         "droop_db_at_band_edge": round(cic.droop_db(band, out_hz, c.order, c.ratio), 3),
         "compensated": any(s.role == "droop" for s in d.filters.sections),
         "worst_alias_db": round(float(cic.response_db((out_hz - band) / out_hz, c.order, c.ratio)), 2),
+        # Hogenauer's pruned register widths (eq. 21) if the output were kept to the data word: shown
+        # so that the user sees what pruning would give; every register is a 32-bit word anyway
+        "pruned_widths": cic.pruned_widths(c.in_bits, min(cic.full_width(c.in_bits, c.order, c.ratio),
+                                                          d.filters.data_bits), c.order, c.ratio),
         "pruning": "not applied: every CIC register is a 32-bit word on these targets, so Hogenauer's "
                    "pruning would save no storage or cycles",
     }

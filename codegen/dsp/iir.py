@@ -12,7 +12,8 @@ import math
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
+from ..dsp import cic
+from ..ir import Section
 
 # Audio low-pass: elliptic, 0.1 dB ripple, 60 dB stopband. Common practice, no source: an
 # elliptic low-pass is the cheapest IIR per dB of stopband for a given order.
@@ -65,19 +66,20 @@ def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float,
     return out
 
 
-def quantise(sos: np.ndarray, coef_bits: int) -> list[tuple[int, int, int, int, int]]:
-    """Round each coefficient to Q(coef_bits); returns (b0, b1, b2, a1, a2) per section (a0 = 1).
-
-    Raises ValueError if a quantised section has a pole on or outside |z| = 1 - POLE_MARGIN."""
-    scale = 1 << coef_bits
-    out = []
-    for row in np.asarray(sos, dtype=float):
+def quantise_rows(rows: list, roles: list[str], q_in: int, qs: list[int], cb: int) -> tuple[Section, ...]:
+    """The one coefficient quantiser: each section's b row scaled by its change of format
+    2**(q_out - q_in) (per-section scaling), every coefficient rounded to Q(cb); ValueError if a
+    quantised pole leaves the unit circle by less than POLE_MARGIN."""
+    out, prev, scale = [], q_in, float(1 << cb)
+    for row, role, q in zip(rows, roles, qs):
         b0, b1, b2, a0, a1, a2 = row
         if abs(a0 - 1.0) > 1e-12:
             raise ValueError("sections must be normalised to a0 = 1")
-        q = tuple(int(round(c * scale)) for c in (b0, b1, b2, a1, a2))
-        poles = np.roots([1.0, q[3] / scale, q[4] / scale])
+        g = 2.0 ** (q - prev)
+        c = [int(round(v * scale)) for v in (b0 * g, b1 * g, b2 * g, a1, a2)]
+        poles = np.roots([1.0, c[3] / scale, c[4] / scale])
         if np.max(np.abs(poles)) >= 1.0 - POLE_MARGIN:
-            raise ValueError(f"quantised poles {poles} leave the unit circle margin")
-        out.append(q)
-    return out
+            raise ValueError(f"{role}: quantised poles {poles} leave the unit circle margin")
+        out.append(Section(role, *c, q_out=q, float_sos=tuple(float(v) for v in row)))
+        prev = q
+    return tuple(out)

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import jinja2
 
-from edgetally.fixedpoint import c_definitions
-from edgetally.ir import Design
+from ..fixedpoint import c_definitions
+from ..ir import Design, Topology
 
 
 @dataclass(frozen=True)
@@ -24,9 +24,8 @@ class Function:
 
 
 def input_type(design: Design) -> str:
-    fr = design.front
-    bits = fr.timer_bits if fr.kind == "stamp" else fr.counter_bits
-    return "uint16_t" if bits == 16 else "uint32_t"
+    """The C type of one input (``Design.input_ctype``)."""
+    return design.input_ctype
 
 
 def api(design: Design) -> list[Function]:
@@ -41,13 +40,14 @@ def api(design: Design) -> list[Function]:
         Function(f"size_t {p}_service({st}, {p}_sample_t *out, size_t cap)",
                  "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
     ]
-    if design.scheme == "timestamp":
+    topo = design.topology
+    if topo is Topology.CAPTURE:
         fns.append(Function(f"void {p}_capture_isr({st}, {inp} stamp)",
                             "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full)."))
-    elif design.scheme == "interrupt" and design.front.kind == "stamp":
+    elif topo is Topology.EDGE_STAMP:
         fns.append(Function(f"void {p}_edge_isr({st}, {inp} timer_now)",
                             "Edge interrupt: queue the free-running timer's value read at entry."))
-    elif design.scheme == "interrupt":
+    elif topo is Topology.EDGE_COUNT:
         fns.append(Function(f"void {p}_edge_isr({st})", "Edge interrupt: count one IF edge."))
         fns.append(Function(f"void {p}_tick_isr({st})", "Grid timer interrupt: queue the edge count."))
     else:
@@ -80,9 +80,9 @@ def isr_names(design: Design) -> list[str]:
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
     ops = ["wrap_s32", "rshr", "sat"]
-    if design.front.kind == "stamp":
+    if design.stamps:
         ops.append("ratio_floor")
-        if design.front.order == "cubic":
+        if design.cubic:
             ops.append("cubic_fraction")
     return ops
 
@@ -109,10 +109,11 @@ def port(design: Design) -> Port:
     worth of output samples at the IF centre's input rate, and two chunks."""
     p, fr, b = design.name, design.front, design.budget
     inp = f"{p}_input_t"
-    rate = design.if_hz / fr.prescale if fr.kind == "stamp" else design.rates.grid_hz
+    rate = design.if_hz / fr.prescale if design.stamps else design.rates.grid_hz
     per_queue = -(-design.queue_len * design.rates.out_hz // int(rate))
     ring = 1 << (max(2 * PORT_CHUNK, 4 * per_queue) - 1).bit_length()
-    dma = b.dma and design.scheme in ("timestamp", "counter")     # as the header's wiring comment reads it
+    topo = design.topology
+    dma = b.dma and topo in (Topology.CAPTURE, Topology.COUNTER)     # as the header's wiring comment reads it
     handlers = []
     hw = [Function(f"void {p}_hw_output_start(uint32_t rate_hz)",
                    "Start the output timer at rate_hz, calling the output interrupt each period (DAC or PWM)."),
@@ -122,8 +123,8 @@ def port(design: Design) -> Port:
           Function(f"void {p}_hw_mute(bool mute)", "Mute (true) or unmute the audio stage: the carrier is absent."),
           Function(f"void {p}_hw_inputs_lost(uint32_t total)", "Inputs were lost (queue full or DMA late): total so far.")]
     if dma:
-        what = "capture" if design.scheme == "timestamp" else "counter"
-        if design.scheme == "timestamp":
+        what = "capture" if topo is Topology.CAPTURE else "counter"
+        if topo is Topology.CAPTURE:
             hw.append(Function(f"void {p}_hw_capture_dma_start({inp} *buf, uint32_t n, uint32_t prescale)",
                                f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, input capture on "
                                "every prescale-th IF edge, circular DMA of the captured values into buf[0..n-1] "
@@ -135,15 +136,15 @@ def port(design: Design) -> Port:
                                "buf[0..n-1], with half and full transfer interrupts."))
         handlers += [(f"{p}_port_dma_half_irq", f"{what} DMA half transfer"),
                      (f"{p}_port_dma_full_irq", f"{what} DMA transfer complete")]
-    elif design.scheme == "timestamp":
+    elif topo is Topology.CAPTURE:
         hw += [Function(f"void {p}_hw_capture_start(uint32_t prescale)",
                         f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz with input capture on "
                         "every prescale-th IF edge and its interrupt."),
                Function(f"{inp} {p}_hw_capture_value(void)", "The captured timer value (and clear the capture flag).")]
         handlers.append((f"{p}_port_capture_irq", f"timer capture, one per {fr.prescale} IF edge(s)"))
-    elif design.scheme == "interrupt":
+    elif topo in (Topology.EDGE_STAMP, Topology.EDGE_COUNT):
         hw.append(Function(f"void {p}_hw_edge_irq_start(void)", "Enable the comparator or pin interrupt on the IF edge."))
-        if fr.kind == "stamp":
+        if topo is Topology.EDGE_STAMP:
             hw.append(Function(f"{inp} {p}_hw_timer_now(void)",
                                f"The free-running {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, read now."))
             handlers.append((f"{p}_port_edge_irq", "every IF edge"))
@@ -220,7 +221,11 @@ def emit(design: Design) -> dict[str, str]:
         data_type="int16_t" if design.filters.data_bits == 16 else "int32_t",
         coef_type="int16_t" if design.filters.coef_width == 16 else "int32_t",
         coef_macro="INT16_C" if design.filters.coef_width == 16 else "INT32_C",
-        offset_hz_per_lsb=f"{design.full_scale_hz / 2 ** design.scale.q:.6g}",
+        offset_hz_per_lsb=f"{design.offset_hz_per_unit:.6g}",
+        # template flags: the templates branch on these and print the Design, never decide
+        stamp=design.stamps, cubic=design.cubic, capture=design.topology is Topology.CAPTURE,
+        edge_stamp=design.topology is Topology.EDGE_STAMP, edge_count=design.topology is Topology.EDGE_COUNT,
+        counter=design.topology is Topology.COUNTER,
         input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
         fixedpoint=c_definitions(p, _operations(design)),
     )

@@ -7,15 +7,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass
-from typing import Callable
 
 import numpy as np
 
-from edgetally.check import model
-from edgetally.measure import recovery
-from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
-from edgetally.ir import Design
+from ..check import model
+from ..measure import recovery
+from ..planner import schemes
+from ..stimulus import signals
+from ..ir import Design
 
 
 @dataclass(frozen=True)
@@ -84,7 +83,7 @@ class _Case:
 
 
 def _edges(design: Design, seconds: float, rng: np.random.Generator) -> np.ndarray:
-    from edgetally.stimulus.inputs import standard_signal
+    from ..stimulus.inputs import standard_signal
 
     return signals.edge_times(standard_signal(design, rng), seconds)
 
@@ -97,7 +96,7 @@ def _first_input_at(design: Design, times: np.ndarray, t: float) -> int:
 
 
 def _hardware(design: Design, times, duration, seed, start=None):
-    from edgetally.stimulus.inputs import hardware_inputs
+    from ..stimulus.inputs import hardware_inputs
 
     return hardware_inputs(design, times, duration, np.random.default_rng(seed + 1), start)
 
@@ -193,7 +192,7 @@ def _flag(name: str, counters: dict, lost: bool) -> bool:
 
 def run_scenario(design: Design, name: str, host=None, options: Options = Options()) -> ScenarioResult:
     """Run one named scenario through the emitted C (``host``, built if None) and the model."""
-    from edgetally.check import hostbuild
+    from ..check import hostbuild
 
     if name not in SCENARIOS:
         raise ValueError(f"scenario {name!r}: expected one of {', '.join(SCENARIOS)}")
@@ -275,7 +274,7 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
     rng = np.random.default_rng(options.seed)
     total = LEAD_S + PRE_S + 0.1
     times = _edges(design, total, rng)
-    bits = design.front.timer_bits if design.front.kind == "stamp" else design.front.counter_bits
+    bits = design.input_bits
     base = _hardware(design, times, total, options.seed, start=0)
     want = model.run(design, base)
     ref, c0 = host.process(base)
@@ -288,7 +287,7 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
             got, c = host.process(_hardware(design, times, total, options.seed, start=start))
             same &= bool(np.array_equal(got, ref)) and c["gaps"] == c0["gaps"] and c["clamps"] == c0["clamps"]
             runs += 1
-    what = "timer" if design.front.kind == "stamp" else "counter"
+    what = "timer" if design.stamps else "counter"
     return ScenarioResult(
         name="timer-wrap", description=f"the {bits}-bit {what} wraps at {runs} places (at and just after "
                                        f"{len(places)} inputs spread over the run)",
@@ -297,17 +296,3 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
         output_note=("identical to the run without a wrap on every sample" if same
                      else "differs from the run without a wrap"),
         recovery_ms=0.0, predicted_recovery_ms=0.0)
-
-
-def run_all(design: Design, host=None, options: Options = Options(),
-            progress: Callable[[str], None] | None = None) -> tuple[ScenarioResult, ...]:
-    """Every scenario, in SCENARIOS order; ``progress`` is told each name as it starts."""
-    from edgetally.check import hostbuild
-
-    host = host or hostbuild.build(design)
-    out = []
-    for name in SCENARIOS:
-        if progress:
-            progress(name)
-        out.append(run_scenario(design, name, host, options))
-    return tuple(out)

@@ -18,7 +18,6 @@ Method (least squares at known frequencies, then a Hann periodogram of what is l
   DC + tone fit also absorbs the harmonics' projection onto the tone, a relative change of order
   (harmonic / tone amplitude) / (N sin(pi f / fs)), which ``tone_power`` and ``level`` (joint fit)
   do not contain.
-- ``tone_level_db``: 20 log10(amplitude of the DC + tone fit / full scale).
 
 Float floor: a power below eps^2 times the record's mean square (eps = 2^-52, the spacing of doubles
 near 1) is below what the samples themselves resolve, so every power in a dB ratio is raised to that
@@ -129,15 +128,3 @@ def tone_analysis(x: np.ndarray, fs: float, tone_hz: float, band_lo: float, band
         harmonic_power=p_harm,
         harmonic_orders=orders,
     )
-
-
-def tone_level_db(x: np.ndarray, fs: float, tone_hz: float, full_scale: float) -> float:
-    """20 log10(peak amplitude of the tone at tone_hz / full_scale), from the DC + tone fit.
-
-    An amplitude below eps * full_scale is reported as that floor (about -313 dB), so a silent
-    record gives a finite level."""
-    _check_tone(fs, tone_hz)
-    if not full_scale > 0:
-        raise ValueError(f"full_scale must be positive, got {full_scale}")
-    p_tone, _ = tone_fit(x, fs, tone_hz)
-    return 20 * math.log10(max(math.sqrt(2 * p_tone), EPS * full_scale) / full_scale)

@@ -25,8 +25,8 @@ import math
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.ir import Design
+from ..dsp import cic
+from ..ir import Design
 
 THRESHOLD_FS = 0.01      # "normal" = within 1 % of full scale of the undisturbed output (common practice, no source)
 NOISE_SIGMAS = 6.0       # or six noise standard deviations, when the design's own noise is larger

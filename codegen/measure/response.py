@@ -7,9 +7,9 @@ import math
 
 import numpy as np
 
-from edgetally.dsp import cic
-from edgetally.designer import wordlength as fixed
-from edgetally.ir import Design
+from ..dsp import cic
+from ..designer import wordlength
+from ..ir import Design
 
 FLOOR_DB = -160.0          # dB values are clipped here (zeros of the response)
 
@@ -26,13 +26,11 @@ def chain_response(design: Design, f_hz: np.ndarray) -> tuple[np.ndarray, np.nda
     corner lies far below the audio band."""
     from scipy import signal
 
-    out_hz, c, fr, sc = design.rates.out_hz, design.cic, design.front, design.scale
+    out_hz, c, sc = design.rates.out_hz, design.cic, design.scale
     f = np.asarray(f_hz, dtype=float)
     cic_db = cic.response_db(f / out_hz, c.order, c.ratio)
-    _, hq = signal.sosfreqz(np.array(fixed.quantised_rows(design.filters, sc.q)), worN=f, fs=out_hz)
+    _, hq = signal.sosfreqz(np.array(wordlength.quantised_rows(design.filters, sc.q)), worN=f, fs=out_hz)
     _, hf = signal.sosfreqz(np.array([list(s.float_sos) for s in design.filters.sections]), worN=f, fs=out_hz)
-    frac_bits = fr.phase_shift if fr.kind == "stamp" else fr.step_shift
-    unit_hz = design.rates.grid_hz * fr.prescale / (2.0 ** frac_bits * c.ratio ** c.order)   # Hz per CIC LSB
-    exact_gain = unit_hz / design.full_scale_hz * 2.0 ** sc.q
+    exact_gain = design.hz_per_cic_lsb / design.full_scale_hz * 2.0 ** sc.q
     scale_db = 20 * math.log10(sc.mult / 2.0 ** sc.shift / exact_gain)
     return cic_db + floor_db(hq) + scale_db, cic_db + floor_db(hf)

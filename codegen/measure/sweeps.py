@@ -10,14 +10,14 @@ from typing import Callable
 
 import numpy as np
 
-from edgetally.stimulus import ifnoise as ifsim
-from edgetally.measure import metrics
-from edgetally.check import model
-from edgetally.check import reference
-from edgetally.measure import response
-from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
-from edgetally.ir import Design
+from ..stimulus import ifnoise
+from ..measure import metrics
+from ..check import model
+from ..check import reference
+from ..measure import response
+from ..planner import schemes
+from ..stimulus import signals
+from ..ir import Design
 
 KINDS = ("cnr", "tone", "deviation", "offset")
 
@@ -110,12 +110,12 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
         x=float(x), bit_exact=exact, sinad_db=round(a.sinad_db, 2), float_sinad_db=round(flt, 2),
         snr_db=round(a.snr_db, 2), thd_db=round(a.thd_db, 2), level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),
         predicted_db=None if predicted is None else round(float(predicted), 2),
-        offset_hz=round(counters["offset"] * design.full_scale_hz / 2 ** design.scale.q, 2),
+        offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 2),
         flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")})
 
 
 def _inputs(design: Design, sig: signals.FmSignal, seed: int, times: np.ndarray | None = None) -> np.ndarray:
-    from edgetally.stimulus.inputs import hardware_inputs
+    from ..stimulus.inputs import hardware_inputs
 
     duration = LEAD_S + SECONDS
     if times is None:
@@ -147,7 +147,7 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
               host=None, progress: Callable[[int, int], None] | None = None) -> Sweep:
     """One sweep: every point runs the emitted C (``host``, built if None) and the integer model on
     the same inputs and compares them in full. ``progress(done, total)`` after each point."""
-    from edgetally.check import hostbuild
+    from ..check import hostbuild
 
     if kind not in KINDS:
         raise ValueError(f"sweep {kind!r}: expected one of {', '.join(KINDS)}")
@@ -173,9 +173,9 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
         if kind == "cnr":
             sig = _tone(design, tone, dev, seed)
             duration = LEAD_S + SECONDS
-            times = ifsim.noisy_edge_times(sig, duration, x, rng=np.random.default_rng(seed + 11 + n))
+            times = ifnoise.noisy_edge_times(sig, duration, x, rng=np.random.default_rng(seed + 11 + n))
             inputs = _inputs(design, sig, seed, times)
-            predicted = ifsim.above_threshold_snr_db(x, dev, design.audio_hz)
+            predicted = ifnoise.above_threshold_snr_db(x, dev, design.audio_hz)
             pt = _measure(design, host, inputs, tone, x, predicted)
         elif kind == "tone":
             inputs = _inputs(design, _tone(design, x, dev, seed), seed)

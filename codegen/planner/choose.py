@@ -14,12 +14,12 @@ import dataclasses
 import math
 from dataclasses import dataclass, field
 
-from edgetally.dsp import cic
-from edgetally.dsp import iir
-from edgetally.planner import schemes
-from edgetally.ir import CountFront, StampFront
-from edgetally.planner.schemes import Variant
-from edgetally.spec import Spec, SpecError
+from ..dsp import cic
+from ..dsp import iir
+from ..planner import schemes
+from ..ir import CountFront, StampFront
+from ..planner.schemes import Variant
+from ..spec import Spec, SpecError
 
 CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 after a counter (DESIGN.md section 4)
 MAX_RATIO = 64
@@ -92,7 +92,7 @@ def _checked_filters(spec: Spec) -> list:
     filters = iir.output_filters(sig.audio_hz, sig.deemphasis_us, out.rate_hz)
     for role, sos in filters:
         try:
-            iir.quantise(sos, iir.COEF_BITS)
+            iir.quantise_rows(list(sos), [role] * len(sos), 0, [0] * len(sos), iir.COEF_BITS)
         except ValueError:
             fld = FILTER_FIELDS[role]
             val = sig.audio_hz if role == "lowpass" else sig.deemphasis_us

@@ -3,17 +3,17 @@ short standard test, the measurement that ``plan --simulate`` shows beside the f
 
 from __future__ import annotations
 
-from edgetally.check import reference
-from edgetally.measure import metrics
-from edgetally.planner import schemes
-from edgetally.stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
+from ..check import reference
+from ..measure import metrics
+from ..planner import schemes
+from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
 
 
 def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_SEED) -> dict[tuple[str, str], float]:
     """SINAD of the float reference of every feasible option row of a plan, from a short
     simulation: the refinement of the planner's formulas that ``plan --simulate`` shows."""
-    from edgetally.designer.assemble import design as make_design
-    from edgetally.planner.choose import plan
+    from ..designer.assemble import design as make_design
+    from ..planner.choose import plan
 
     out = {}
     for o in plan_obj.options:

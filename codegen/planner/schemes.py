@@ -45,16 +45,17 @@ These are planning figures; verify measures the truth by simulation.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import signal
 
-from edgetally.dsp import cic
-from edgetally.cores import CORES
-from edgetally.ir import Design
-from edgetally.spec import Target
+from ..dsp import cic
+from ..cores import CORES
+from ..ir import Design, variant_label
+from ..spec import Target
 
 TEST_TONE_HZ = 1000.0
 TEST_LEVEL = 0.7           # fraction of full-scale deviation for the standard test tone
@@ -94,10 +95,7 @@ class Variant:
     def label(self) -> str:
         """Short name, one word: k<prescale>-<order> (capture), stamp-<order> (edge interrupt that
         reads a timer), count (edge counts)."""
-        if self.front == "count":
-            return "count"
-        pre = f"k{self.prescale}" if self.scheme == "timestamp" else "stamp"
-        return f"{pre}-{self.order}"
+        return variant_label(self.scheme, self.front == "stamp", self.prescale, self.order)
 
 
 def variants(tgt: Target) -> list[tuple[Variant, str | None]]:
@@ -140,14 +138,23 @@ def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, ba
 
     After decimation by R the output PSD at fo is the sum of the CIC-shaped input PSD over the R
     images fo + m * out_hz, m = 0..R-1 (one period of the grid-rate spectrum); the band power is
-    twice the integral over [BAND_LOW_HZ, band_hz] (two-sided PSD)."""
+    twice the integral over [BAND_LOW_HZ, band_hz] (two-sided PSD). The power is linear in sigma2:
+    the shaped integral for sigma2 = 1 is computed once per chain (the planner asks for it about a
+    hundred times per plan)."""
+    key = tuple(tuple(float(v) for v in row) for sos in post_sos for row in np.atleast_2d(sos))
+    return sigma2 * _unit_band_noise(float(grid_hz), float(out_hz), int(r), int(n), float(band_hz), key)
+
+
+@functools.lru_cache(maxsize=512)
+def _unit_band_noise(grid_hz: float, out_hz: float, r: int, n: int, band_hz: float, rows: tuple) -> float:
     f = np.linspace(BAND_LOW_HZ, band_hz, 2001)
     total = np.zeros_like(f)
     for m in range(r):
         fa = f + m * out_hz
         h2 = 10 ** (cic.response_db(fa / out_hz, n, r) / 10)
-        total += h2 * 2 * sigma2 * grid_hz * (1 - np.cos(2 * np.pi * fa / grid_hz))
-    return 2.0 * float(np.trapezoid(total * _post_gain2(post_sos, f, out_hz), f))
+        total += h2 * 2 * grid_hz * (1 - np.cos(2 * np.pi * fa / grid_hz))
+    post = _post_gain2([np.array(rows)], f, out_hz) if rows else np.ones_like(f)
+    return 2.0 * float(np.trapezoid(total * post, f))
 
 
 def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,

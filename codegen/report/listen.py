@@ -29,11 +29,11 @@ import numpy as np
 from scipy import special
 from scipy.io import wavfile
 
-from edgetally.check import hostbuild
-from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
-from edgetally.ir import Design
-from edgetally.stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
+from ..check import hostbuild
+from ..planner import schemes
+from ..stimulus import signals
+from ..ir import Design
+from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
 
 # Two-tone: 700 Hz and 1900 Hz in a 3 kHz voice band (common practice, no source: two tones not in
 # a simple ratio, well inside the band), scaled down with a narrower audio band.
@@ -124,11 +124,6 @@ def band_top_hz(design: Design) -> float:
     return min(VOICE_BAND_HZ, design.audio_hz)
 
 
-def test_tone_signal(design: Design, rng: np.random.Generator) -> signals.FmSignal:
-    """The standard test tone, as verify makes it (same draws from ``rng``)."""
-    return standard_signal(design, rng)
-
-
 def two_tone_signal(design: Design, rng: np.random.Generator) -> signals.FmSignal:
     """Two tones (700 and 1900 Hz, scaled down when the band ends below 3 kHz), each at half the
     standard test deviation, so the peak deviation equals the test tone's."""
@@ -164,7 +159,7 @@ def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
     tt = two_tone_signal(design, rng)
     made = [
         (f"{p}_tone.wav", f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
-                          "deviation", test_tone_signal(design, rng)),
+                          "deviation", standard_signal(design, rng)),
         (f"{p}_two_tone.wav", "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
          + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation", tt),
         (f"{p}_sweep.wav", f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "

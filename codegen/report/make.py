@@ -6,15 +6,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from edgetally.check import hostbuild
-from edgetally.measure import hostile
-from edgetally.report import page as report
-from edgetally.measure import sweeps
-from edgetally.ir import Design
-from edgetally.planner.choose import Plan
-from edgetally.spec import Spec
-from edgetally.stimulus.inputs import DEFAULT_SEED
-from edgetally.check.verify import VerifyResult, verify
+from ..check import hostbuild
+from ..measure import hostile
+from ..report import page as report
+from ..measure import sweeps
+from ..ir import Design
+from ..planner.choose import Plan
+from ..spec import Spec
+from ..stimulus.inputs import DEFAULT_SEED
+from ..check.verify import VerifyResult, verify
 
 
 class _Quiet:
@@ -42,7 +42,9 @@ class Made:
 
     @property
     def ok(self) -> bool:
-        return self.verify.bit_exact and self.sweeps_bit_exact and not self.failed_scenarios
+        """The one verdict (edgetally.check.verify.VerifyResult.ok, the emulated targets included),
+        every sweep point bit-exact and every scenario passed."""
+        return self.verify.ok and self.sweeps_bit_exact and not self.failed_scenarios
 
 
 def steps(design: Design) -> int:

@@ -15,16 +15,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from edgetally.dsp import cic
-from edgetally.report import listen
-from edgetally.report import plots as report_plots
-from edgetally.planner import schemes
-from edgetally.measure.response import chain_response
-from edgetally.ir import Design
-from edgetally.planner.choose import Plan
-from edgetally.spec import Spec
-from edgetally.stimulus.inputs import DEFAULT_SEED
-from edgetally.check.verify import VerifyResult
+from ..dsp import cic
+from ..report import listen
+from ..report import plots as report_plots
+from ..planner import schemes
+from ..measure.response import chain_response
+from ..ir import Design, Topology
+from ..planner.choose import Plan
+from ..spec import Spec
+from ..stimulus.inputs import DEFAULT_SEED
+from ..check.verify import VerifyResult
 
 PAGE_OK = "edgetally-page-ok"
 
@@ -126,6 +126,8 @@ def _verdict(ctx: ReportContext) -> str:
         cores = ", ".join(f"{_e(k)} {_yes(bool(t.get('bit_exact')), 'bit-exact', 'DIFFERS')}"
                           for k, t in ctx.target.items())
         lines.append(f"Cross-compiled and emulated: {cores}.")
+    elif v.target_bit_exact is False:
+        lines.append(f"Cross-compiled and emulated: {_yes(False, no='DIFFERS from the model')}.")
     return "\n".join(f"<p>{ln}</p>" for ln in lines)
 
 
@@ -180,21 +182,22 @@ def _arrow(label: str) -> str:
 def _chain_section(ctx: ReportContext) -> str:
     d = ctx.design
     fr, c, sc, f, of, b, r = d.front, d.cic, d.scale, d.filters, d.output, d.budget, d.rates
-    if d.scheme == "timestamp":
+    topo = d.topology
+    if topo is Topology.CAPTURE:
         first = _box("timer input capture", [f"{fr.timer_bits}-bit timer at {_hz(r.timer_hz)}",
                                              f"capture every {fr.prescale} edge(s)",
                                              "stamps by DMA" if b.dma else f"capture ISR, queue of {d.queue_len}"])
-    elif d.scheme == "interrupt" and fr.kind == "stamp":
+    elif topo is Topology.EDGE_STAMP:
         first = _box("edge interrupt, reads a timer", [f"{fr.timer_bits}-bit timer at {_hz(r.timer_hz)}",
                                                        f"latency jitter up to {b.irq_jitter_cycles} cycles",
                                                        f"queue of {d.queue_len}"])
-    elif d.scheme == "interrupt":
+    elif topo is Topology.EDGE_COUNT:
         first = _box("edge interrupt, counts", [f"{fr.counter_bits}-bit software count",
                                                 "grid timer ISR queues the count"])
     else:
         first = _box("IF-clocked counter", [f"{fr.counter_bits}-bit hardware counter",
                                             "read every grid tick by " + ("DMA" if b.dma else "a tick ISR")])
-    if fr.kind == "stamp":
+    if d.stamps:
         input_hz = b.edge_hz_max / fr.prescale
         front = _box(f"phase interpolation ({fr.order})", [f"grid {_hz(r.grid_hz)} ({fr.grid_ticks} ticks)",
                                                            f"phase fraction {fr.phase_shift} bits",
@@ -283,10 +286,10 @@ def _hostile_section(ctx: ReportContext) -> str:
 
 def _budget_section(ctx: ReportContext) -> str:
     d, spec = ctx.design, ctx.spec
-    b, fr, r = d.budget, d.front, d.rates
-    input_hz = b.edge_hz_max / fr.prescale if fr.kind == "stamp" else r.grid_hz
+    b, r = d.budget, d.rates
+    input_hz = d.input_hz_max
     edge = str(b.cycles_per_edge) if b.cycles_per_edge else "none (hardware or DMA)"
-    kind = "stamp" if fr.kind == "stamp" else "count"
+    kind = "stamp" if d.stamps else "count"
     rows = [["edge ISR", _e(_hz(b.edge_hz_max)), edge],
             [f"input ({kind})", _e(_hz(input_hz)), str(b.cycles_per_input)],
             ["grid instant", _e(_hz(r.grid_hz)), str(b.cycles_per_grid)],
@@ -295,7 +298,7 @@ def _budget_section(ctx: ReportContext) -> str:
     width = min(100.0, 100.0 * b.load_fraction)
     mark = min(100.0, 100.0 * budget)
     over = b.load_fraction > budget
-    parts = [f"<p>Estimated on {_e(b.core)} at {_e(_hz(b.cpu_hz))} ({_e(b.variant)}), at the highest edge rate:</p>",
+    parts = [f"<p>Estimated on {_e(b.core)} at {_e(_hz(b.cpu_hz))} ({_e(d.variant)}), at the highest edge rate:</p>",
              _table(["event", "rate up to", "cycles each (estimate)"], rows),
              f'<div class="bar"><div class="fill{" over" if over else ""}" style="width:{width:.1f}%"></div>'
              f'<div class="mark" style="left:{mark:.1f}%"></div></div>',

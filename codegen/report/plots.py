@@ -9,9 +9,9 @@ import io
 
 import numpy as np
 
-from edgetally.planner import schemes
-from edgetally.ir import Design
-from edgetally.measure.response import FLOOR_DB, chain_response, floor_db
+from ..planner import schemes
+from ..ir import Design
+from ..measure.response import FLOOR_DB, chain_response, floor_db
 
 DPI = 100
 BAD = "#b3261e"

@@ -48,7 +48,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft as sfft
 
-from edgetally.stimulus.fm import FmSignal
+from ..stimulus.signals import FmSignal
 
 OVERSAMPLE = 16    # samples per cycle of f_hi; see the error bound in the module docstring
 _PAD = 2           # samples before t = 0 and after the end, so every crossing has its four cubic nodes
@@ -72,13 +72,6 @@ def above_threshold_snr_db(cnr_db: float, deviation_hz: float, audio_hz: float) 
     in that band B_T, built from the same deviation and W."""
     beta = deviation_hz / audio_hz
     return float(cnr_db + 10.0 * math.log10(3.0 * beta ** 2 * (beta + 1.0)))
-
-
-def if_waveform(sig: FmSignal, fs: float, duration_s: float) -> tuple[np.ndarray, np.ndarray]:
-    """The noiseless IF sin(2 pi phase(t)) (unit amplitude) at t = k / fs in [0, duration_s)."""
-    t = np.arange(int(math.ceil(duration_s * fs))) / fs
-    t = t[t < duration_s]
-    return t, np.sin(2 * np.pi * sig.phase(t))
 
 
 @dataclass(frozen=True)

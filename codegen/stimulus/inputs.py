@@ -12,9 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from edgetally.ir import Design
-from edgetally.planner import schemes
-from edgetally.stimulus import fm as signals
+from ..ir import Design, Topology
+from ..planner import schemes
+from ..stimulus import signals
 
 LEAD_S = 0.1
 DEFAULT_SEED = 20261202
@@ -46,13 +46,14 @@ def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.
     latency), or counts read at each grid instant. The timer's or counter's start value is
     ``start``, or drawn from ``rng`` (an edge-counting interrupt starts at 0 unless given)."""
     fr, b = design.front, design.budget
-    if fr.kind == "count":
+    topo = design.topology
+    if not design.stamps:
         if start is None:
-            start = 0 if design.scheme == "interrupt" else int(rng.integers(0, 1 << fr.counter_bits))
+            start = 0 if topo is Topology.EDGE_COUNT else int(rng.integers(0, 1 << fr.counter_bits))
         return signals.counts_at(times, design.rates.grid_hz, duration, fr.counter_bits, start)
     if start is None:
         start = int(rng.integers(0, 1 << fr.timer_bits))
-    if design.scheme == "interrupt":
+    if topo is Topology.EDGE_STAMP:
         return signals.software_stamps(times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2,
                                        b.irq_jitter_cycles, rng, start)
     return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, start)

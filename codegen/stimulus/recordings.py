@@ -43,8 +43,8 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.ir import Design
-from edgetally.stimulus.ifnoise import _refine as cubic_root   # the IF simulator's crossing refinement
+from ..ir import Design
+from ..stimulus.ifnoise import _refine as cubic_root   # the IF simulator's crossing refinement
 
 FORMATS = ("vcd", "csv", "bin", "wav", "sigmf")
 EXTENSIONS = {".vcd": "vcd", ".csv": "csv", ".txt": "csv", ".bin": "bin", ".raw": "bin", ".wav": "wav",

@@ -24,9 +24,9 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.emit import emit, input_type
-from edgetally.check.hostbuild import STRICT_FLAGS
-from edgetally.ir import Design
+from ..emit import emit, input_type
+from ..check.hostbuild import STRICT_FLAGS
+from ..ir import Design, Topology
 
 CORE_FLAGS = {
     "cortex-m0plus": ["-mcpu=cortex-m0plus", "-mthumb", "-mfloat-abi=soft"],
@@ -126,11 +126,12 @@ class TargetBuild:
 def _harness(design: Design) -> str:
     p, P = design.name, design.name.upper()
     fr = design.front
-    if design.scheme == "timestamp":
+    topo = design.topology
+    if topo is Topology.CAPTURE:
         call = f"    {p}_capture_isr(&harness_state, ({p}_input_t)value);\n"
-    elif design.scheme == "interrupt" and fr.kind == "stamp":
+    elif topo is Topology.EDGE_STAMP:
         call = f"    {p}_edge_isr(&harness_state, ({p}_input_t)value);\n"
-    elif design.scheme == "interrupt":
+    elif topo is Topology.EDGE_COUNT:
         mask = (1 << fr.counter_bits) - 1
         call = (f"    uint32_t k = (value - harness_last) & UINT32_C(0x{mask:X});\n"
                 f"    harness_last = value;\n"

@@ -8,9 +8,9 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.check import model
-from edgetally.ir import Design
-from edgetally.stimulus.inputs import DEFAULT_SEED, make_inputs
+from ..check import model
+from ..ir import Design, Topology
+from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
 
 TARGET_CORES = ("cortex-m0plus", "cortex-m4")
@@ -23,13 +23,13 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     event (estimates from instruction counts, see edgetally.target), and cycles per output sample
     against the hand-written float baseline (edgetally.float_baseline). Empty when the cross
     compiler or the emulator is not installed."""
-    from edgetally.target import build as target
-    from edgetally.target import cycles as target_cycles
-    from edgetally.target import run as target_run
+    from ..target import build as target
+    from ..target import cycles as target_cycles
+    from ..target import run as target_run
 
     if target.toolchain() is None or not target.emulator_available():
         return {}
-    from edgetally.target import float_baseline
+    from ..target import float_baseline
 
     inputs = make_inputs(design, seconds, seed)
     want = model.run(design, inputs)
@@ -62,19 +62,20 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
 def measured_load(design: Design, t: dict) -> float:
     """CPU fraction at the highest edge rate from cycles measured in the emulator: ISR calls (with
     exception entry and exit) at their event rates, inputs, grid instants and output samples."""
-    fr, b, rates = design.front, design.budget, design.rates
+    b, rates = design.budget, design.rates
     edge_hz = b.edge_hz_max
     isr = t["isr_cycles_with_entry"]
-    if fr.kind == "stamp":
-        input_hz = edge_hz / fr.prescale
-        isr_load = 0.0 if (design.scheme == "timestamp" and b.dma) else sum(isr.values()) * input_hz
+    topo = design.topology
+    if design.stamps:
+        input_hz = design.input_hz_max
+        isr_load = 0.0 if (topo is Topology.CAPTURE and b.dma) else sum(isr.values()) * input_hz
     else:
         input_hz = rates.grid_hz
         isr_load = 0.0
         for name, cyc in isr.items():
             if name.endswith("_edge_isr"):
                 isr_load += cyc * edge_hz
-            elif not (design.scheme == "counter" and b.dma):
+            elif not (topo is Topology.COUNTER and b.dma):
                 isr_load += cyc * rates.grid_hz
     work = input_hz * t["cycles_per_input"] + rates.grid_hz * t["cycles_per_grid"] + rates.out_hz * t["cycles_per_output"]
     return round((isr_load + work) / b.cpu_hz, 4)

@@ -16,10 +16,10 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.emit import isr_names
-from edgetally.ir import Design
-from edgetally.target.build import FLASH_BASE, FLASH_SIZE, IN_LEN, TargetBuild, TargetRunError
-from edgetally.target.run import _feed_isr, _feed_process, _Machine
+from ..emit import isr_names
+from ..ir import Design
+from ..target.build import FLASH_BASE, FLASH_SIZE, IN_LEN, TargetBuild, TargetRunError
+from ..target.run import _feed_isr, _feed_process, _Machine
 
 
 # Cycles per instruction class. Source: from memory of the Cortex-M0+ and Cortex-M4 technical
@@ -243,8 +243,8 @@ def isr_functions(design: Design) -> list[str]:
 def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: int = 3000) -> Costs:
     """Instructions and estimated cycles per event, from an emulated run of the first
     ``max_inputs`` inputs through <name>_process and of the ISR path on the same inputs."""
-    from edgetally.check import model
-    from edgetally.cores import CORES
+    from ..check import model
+    from ..cores import CORES
 
     p = design.name
     inputs = np.ascontiguousarray(inputs[:max_inputs], dtype=build.input_dtype)

@@ -15,16 +15,16 @@ from pathlib import Path
 
 import numpy as np
 
-from edgetally.target import build as target
-from edgetally.target import cycles as target_cycles
-from edgetally.ir import Design
+from ..target import build as target
+from ..target import cycles as target_cycles
+from ..ir import Design
 
 WARM, N = 1024, 3072
 
 
 def bench_inputs(design: Design, seed: int) -> np.ndarray:
     """Standard-test inputs, at least WARM + N of them (the slowest example needs about 0.2 s)."""
-    from edgetally.stimulus.inputs import make_inputs
+    from ..stimulus.inputs import make_inputs
 
     seconds = 0.15
     while True:

@@ -13,6 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..fixedpoint import wrap_bits
+
 
 @dataclass(frozen=True)
 class Tone:
@@ -86,7 +88,7 @@ def capture(times: np.ndarray, timer_hz: float, timer_bits: int, offset_ticks: i
     plus the counter's start value, wrapped to timer_bits. Returned as uint16 or uint32."""
     ticks = np.floor(times * timer_hz).astype(np.int64) + int(offset_ticks)
     dtype = np.uint16 if timer_bits == 16 else np.uint32
-    return (ticks & ((1 << timer_bits) - 1)).astype(dtype)
+    return wrap_bits(ticks, timer_bits).astype(dtype)
 
 
 def software_stamps(times: np.ndarray, timer_hz: float, timer_bits: int, cpu_hz: float, latency_cycles: int,
@@ -106,7 +108,7 @@ def counts_at(times: np.ndarray, grid_hz: float, duration_s: float, counter_bits
     grid = start_s + k / grid_hz
     n = np.searchsorted(times, grid, side="left").astype(np.int64) + int(offset)
     dtype = np.uint16 if counter_bits == 16 else np.uint32
-    return (n & ((1 << counter_bits) - 1)).astype(dtype)
+    return wrap_bits(n, counter_bits).astype(dtype)
 
 
 def test_tone(if_hz: float, full_scale_hz: float, level: float, tone_hz: float,
