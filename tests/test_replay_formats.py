@@ -133,3 +133,25 @@ def test_if_wav(key, tmp_path):
     assert rec.edge_times.size == exact.size
     assert np.max(np.abs(rec.edge_times - exact)) < bound
     _check(d, rec)
+
+
+def test_steady_tone_found_with_its_sinad(tmp_path):
+    """A 1 kHz FM tone: the summary finds it and its SINAD equals the SINAD measured at the known
+    tone frequency (edgetally.measure.metrics, as verify measures it) on the same settled samples.
+    The fitted frequency's spread at this SINAD and length is about 1e-4 Hz (Cramer-Rao bound for a
+    tone in white noise, sqrt(12) / (2 pi N^1.5 T sqrt(SNR)) with N = 2400, SNR >= 40 dB; Rife and
+    Boorstyn, IEEE Trans. IT-20(5), 1974, from memory): 0.01 Hz is far outside it."""
+    import math
+
+    from edgetally.measure import metrics
+    from edgetally.planner import schemes
+
+    d = ALL_DESIGNS["orchard_link:timestamp"]
+    sec = 0.3 + recordings.settle_s(d)
+    ps = np.round(fm.edge_times(_sig(d), sec) * 1e12).astype(np.int64) + 1000
+    _write_vcd(tmp_path / "tone.vcd", ps, int(sec * 1e12) + 2000)
+    res = _check(d, recordings.load(d, tmp_path / "tone.vcd", signal="if_pin"))
+    assert abs(res.tone_hz - 1000.0) < 0.01
+    settled = d.output.fraction(res.out[int(math.ceil(res.settle_s * d.rates.out_hz)):])
+    want = metrics.sinad_db(settled, d.rates.out_hz, 1000.0, schemes.BAND_LOW_HZ, d.audio_hz)
+    assert want > 40 and abs(res.sinad_db - want) < 0.1

@@ -137,6 +137,7 @@ def test_sox_chirp_as_the_if(key, tmp_path):
     rec = recordings.load(d, wav)
     res = replay(d, rec)
     assert res.bit_exact
+    assert res.tone_hz is None and res.sinad_db is None      # a ramp is no steady tone
     k = (f2 - f1) / secs
     f_est = frequency_estimate(d, res)
     t = output_t0(d, rec) + np.arange(f_est.size) / d.rates.out_hz
