@@ -236,8 +236,8 @@ def _u_range(d):
     """The scale stage's output range over every CIC output 0..y_max (ir.Scale rule)."""
     sc = d.scale
     y_max = _cert(d)["cic.output"].bound
-    lo = sat(rshr((0 - sc.centre) * sc.mult, sc.shift), -sc.limit, sc.limit)
-    hi = sat(rshr((y_max - sc.centre) * sc.mult, sc.shift), -sc.limit, sc.limit)
+    lo = sat(rshr((0 - sc.centre) * sc.mult, sc.shift), -d.filters.limit, d.filters.limit)
+    hi = sat(rshr((y_max - sc.centre) * sc.mult, sc.shift), -d.filters.limit, d.filters.limit)
     return lo, hi, y_max
 
 

@@ -24,7 +24,7 @@ import numpy as np
 from ..fixedpoint import wrap_bits
 from ..ir import Design, Topology
 from ..emit import api, emit, input_type, isr_names
-from ..check.model import service_due
+from .model import service_due
 
 STRICT_FLAGS = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wsign-conversion", "-Werror"]
 OPT_FLAGS = ["-O2"]

@@ -12,7 +12,7 @@ from scipy import signal
 from ..dsp import cic
 from ..fixedpoint import wrap_bits
 from ..ir import Design
-from ..check.model import unwrap, zero_run_gaps
+from .model import unwrap, zero_run_gaps
 
 
 def _stamp_steps(design: Design, stamps: np.ndarray) -> np.ndarray:

@@ -25,8 +25,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..check import hostbuild, model
-from ..check.compare import compare
+from . import hostbuild, model
+from .compare import compare
 from ..ir import Design
 from ..measure import metrics
 from ..planner import schemes

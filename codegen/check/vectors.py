@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ..check import model
+from . import model
 from ..emit import Vectors
 from ..ir import Design
 from ..stimulus.inputs import DEFAULT_SEED, make_inputs

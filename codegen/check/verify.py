@@ -12,8 +12,8 @@ import time
 from dataclasses import asdict, dataclass
 from typing import Callable
 
-from ..check import hostbuild, model, reference
-from ..check.compare import compare
+from . import hostbuild, model, reference
+from .compare import compare
 from ..ir import Design
 from ..measure import metrics
 from ..planner import schemes

@@ -13,8 +13,8 @@ import traceback
 from pathlib import Path
 
 from .. import __version__
-from ..cli import quality as cli_quality
-from ..cli import replay as cli_replay
+from . import quality as cli_quality
+from . import replay as cli_replay
 from ..spec import Spec, SpecError, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only

@@ -6,7 +6,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from ..cli.progress import Progress
+from .progress import Progress
 
 
 class ArgError(Exception):

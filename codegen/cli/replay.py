@@ -37,7 +37,7 @@ def add_parser(subparsers) -> None:
 
 def run(args) -> int:
     """The command; errors go up to main (SpecError, UsageError, RecordingError -> exit 2)."""
-    from ..cli.main import UsageError, _json_safe, _warn
+    from .main import UsageError, _json_safe, _warn
     from ..spec import load_spec
 
     if not math.isfinite(args.offset_hz):

@@ -13,7 +13,7 @@ from fractions import Fraction
 
 from .. import __version__
 from ..dsp import cic
-from ..designer import wordlength
+from . import wordlength
 from ..dsp import iir
 from ..planner import schemes
 from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits

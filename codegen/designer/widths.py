@@ -7,9 +7,9 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, field
 
-from ..designer import assemble
+from . import assemble
 from ..dsp import cic
-from ..designer import wordlength
+from . import wordlength
 from ..planner import schemes
 from ..ir import Design
 from ..planner.choose import plan

@@ -12,7 +12,7 @@ import math
 import numpy as np
 from scipy import signal
 
-from ..dsp import cic
+from . import cic
 from ..ir import Section
 
 # Audio low-pass: elliptic, 0.1 dB ripple, 60 dB stopband. Common practice, no source: an

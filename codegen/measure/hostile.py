@@ -11,7 +11,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from ..check import model
-from ..measure import recovery
+from . import recovery
 from ..planner import schemes
 from ..stimulus import signals
 from ..ir import Design

@@ -11,10 +11,10 @@ from typing import Callable
 import numpy as np
 
 from ..stimulus import ifnoise
-from ..measure import metrics
+from . import metrics
 from ..check import model
 from ..check import reference
-from ..measure import response
+from . import response
 from ..planner import schemes
 from ..stimulus import signals
 from ..ir import Design

@@ -16,9 +16,9 @@ from dataclasses import dataclass, field
 
 from ..dsp import cic
 from ..dsp import iir
-from ..planner import schemes
+from . import schemes
 from ..ir import CountFront, StampFront
-from ..planner.schemes import Variant
+from .schemes import Variant
 from ..spec import Spec, SpecError
 
 CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 after a counter (DESIGN.md section 4)

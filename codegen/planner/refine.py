@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from ..check import reference
 from ..measure import metrics
-from ..planner import schemes
+from . import schemes
 from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
 
 
@@ -13,7 +13,7 @@ def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_
     """SINAD of the float reference of every feasible option row of a plan, from a short
     simulation: the refinement of the planner's formulas that ``plan --simulate`` shows."""
     from ..designer.assemble import design as make_design
-    from ..planner.choose import plan
+    from .choose import plan
 
     out = {}
     for o in plan_obj.options:

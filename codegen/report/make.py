@@ -8,7 +8,7 @@ from dataclasses import dataclass
 
 from ..check import hostbuild
 from ..measure import hostile
-from ..report import page as report
+from . import page as report
 from ..measure import sweeps
 from ..ir import Design
 from ..planner.choose import Plan

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..dsp import cic
-from ..report import listen
-from ..report import plots as report_plots
+from . import listen
+from . import plots as report_plots
 from ..planner import schemes
 from ..measure.response import chain_response
 from ..ir import Design, Topology

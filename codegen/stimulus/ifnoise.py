@@ -48,7 +48,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import fft as sfft
 
-from ..stimulus.signals import FmSignal
+from .signals import FmSignal
 
 OVERSAMPLE = 16    # samples per cycle of f_hi; see the error bound in the module docstring
 _PAD = 2           # samples before t = 0 and after the end, so every crossing has its four cubic nodes

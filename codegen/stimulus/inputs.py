@@ -14,7 +14,7 @@ import numpy as np
 
 from ..ir import Design, Topology
 from ..planner import schemes
-from ..stimulus import signals
+from . import signals
 
 LEAD_S = 0.1
 DEFAULT_SEED = 20261202

@@ -23,13 +23,13 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     event (estimates from instruction counts, see edgetally.target), and cycles per output sample
     against the hand-written float baseline (edgetally.float_baseline). Empty when the cross
     compiler or the emulator is not installed."""
-    from ..target import build as target
-    from ..target import cycles as target_cycles
-    from ..target import run as target_run
+    from . import build as target
+    from . import cycles as target_cycles
+    from . import run as target_run
 
     if target.toolchain() is None or not target.emulator_available():
         return {}
-    from ..target import float_baseline
+    from . import float_baseline
 
     inputs = make_inputs(design, seconds, seed)
     want = model.run(design, inputs)

@@ -18,8 +18,8 @@ import numpy as np
 
 from ..emit import isr_names
 from ..ir import Design
-from ..target.build import FLASH_BASE, FLASH_SIZE, IN_LEN, TargetBuild, TargetRunError
-from ..target.run import _feed_isr, _feed_process, _Machine
+from .build import FLASH_BASE, FLASH_SIZE, IN_LEN, TargetBuild, TargetRunError
+from .run import _feed_isr, _feed_process, _Machine
 
 
 # Cycles per instruction class. Source: from memory of the Cortex-M0+ and Cortex-M4 technical

@@ -15,8 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..target import build as target
-from ..target import cycles as target_cycles
+from . import build as target
+from . import cycles as target_cycles
 from ..ir import Design
 
 WARM, N = 1024, 3072

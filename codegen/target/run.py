@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..target.build import (COUNTERS, FLASH_BASE, FLASH_SIZE, IN_LEN, MAX_INSNS_PER_CALL, OUT_LEN, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE, TargetBuild, TargetRunError)
+from .build import (COUNTERS, FLASH_BASE, FLASH_SIZE, IN_LEN, MAX_INSNS_PER_CALL, OUT_LEN, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE, TargetBuild, TargetRunError)
 
 
 class _Machine:
