@@ -87,6 +87,12 @@ def _cases(tmp: Path):
     p = tmp / "still.csv"
     p.write_text("".join("1234\n" for _ in range(5000)))
     c.append(("counts that never change", SHAFT, p, [], r"still\.csv: the count never changes"))
+    p = tmp / "huge.csv"
+    p.write_text("100\n200\n" + "9" * 30 + "\n")
+    c.append(("csv value wider than 64 bits", ORCHARD, p, [], r"huge\.csv:3: 9+ is not an unsigned stamp"))
+    p = tmp / "silent_iq.wav"
+    _wav(p, 96000, np.zeros((96000, 2), dtype=np.int16))
+    c.append(("iq recording of zeros", ORCHARD, p, [], r"silent_iq\.wav: every IQ sample is zero"))
     return c
 
 
@@ -106,7 +112,7 @@ def test_at_least_ten_malformed_recordings(tmp_path):
     assert len(_cases(tmp_path)) >= 10
 
 
-@pytest.mark.parametrize("index", range(16))
+@pytest.mark.parametrize("index", range(18))
 def test_malformed_recording_exits_2_with_one_line(index, tmp_path, capsys, quick_design):
     name, spec, path, extra, pattern = _cases(tmp_path)[index]
     rc = main(["replay", str(spec), str(path), "-o", str(tmp_path / "out"), *extra])

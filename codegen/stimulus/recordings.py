@@ -224,8 +224,8 @@ def read_csv(path, signal: str | None = None) -> tuple[list[int], list[int]]:
         if not _is_int(cell):
             raise RecordingError(path, f":{ln}", f"{_cut(cell)!r} is not an integer stamp or count")
         v = int(cell, 0)
-        if v < 0:
-            raise RecordingError(path, f":{ln}", f"{v} is negative; stamps and counts are unsigned")
+        if not 0 <= v < 1 << 64:
+            raise RecordingError(path, f":{ln}", f"{_cut(v)} is not an unsigned stamp or count of at most 64 bits")
         values.append(v)
         lines.append(ln)
     return values, lines
@@ -520,11 +520,15 @@ def load(design: Design, path, fmt: str | None = None, signal: str | None = None
                 raise RecordingError(path, "", f"{x.shape[1]} channels: one (the IF) or two (I and Q) are read")
             iq = x.shape[1] == 2
             _check_rate(path, fs, design, offset_hz, iq)
+            if iq and not np.any(x):
+                raise RecordingError(path, "", "every IQ sample is zero: no carrier, no edges")
             t = iq_edges(x[:, 0] + 1j * x[:, 1], fs, design.if_hz, offset_hz, edge) if iq else real_edges(x[:, 0], fs, edge)
             kind = f"IQ WAV, channel offset {offset_hz:g} Hz" if iq else "IF WAV"
             e = _float_edges(t, x.shape[0], fs, f"{kind}, {fs} Hz, {x.shape[0]} samples, {edge} crossings")
         else:
             fs, x, centre = read_sigmf(path)
+            if not np.any(x):
+                raise RecordingError(path, "", "every IQ sample is zero: no carrier, no edges")
             _check_rate(path, fs, design, offset_hz, True)
             c = f", centre {centre:g} Hz" if isinstance(centre, (int, float)) else ""
             e = _float_edges(iq_edges(x, fs, design.if_hz, offset_hz, edge), x.size, fs,
