@@ -142,3 +142,19 @@ def test_port_wiring_gives_the_model_output(key, tmp_path):
     assert (stalls, losses) == (0, 0)
     assert got.size == want.size > 100
     assert np.array_equal(got, want)
+
+
+CROSS = [c for c in (["avr-gcc", "-mmcu=atmega328p"], ["arm-none-eabi-gcc", "-mcpu=cortex-m0plus", "-mthumb"])
+         if shutil.which(c[0])]
+
+
+@pytest.mark.parametrize("key", sorted(k for k in ALL_DESIGNS if not k.endswith(":auto")))
+@pytest.mark.parametrize("cross", CROSS, ids=lambda c: c[0])
+def test_port_compiles_for_the_targets(key, cross, tmp_path):
+    """Also warning-free where int and size_t are 16 bits (AVR) and for a Thumb core."""
+    d = ALL_DESIGNS[key]
+    for name, text in emit(d).items():
+        (tmp_path / name).write_text(text)
+    res = subprocess.run([cross[0], *STRICT_FLAGS, "-Os", *cross[1:], "-c", str(tmp_path / f"{d.name}_port.c"),
+                          "-o", str(tmp_path / "port.o")], capture_output=True, text=True)
+    assert res.returncode == 0 and res.stderr == "", res.stderr
