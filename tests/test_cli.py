@@ -21,7 +21,7 @@ import edgetally
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 ORCHARD = EXAMPLES / "orchard_link.toml"
 CAMPUS = EXAMPLES / "campus_fm.toml"
-ORCHARD_FILES = {"orchard.h", "orchard.c", "orchard_design.json", "orchard_test.c", "orchard_vectors.h",
+ORCHARD_FILES = {"orchard.h", "orchard.c", "orchard_port.c", "orchard_design.json", "orchard_test.c", "orchard_vectors.h",
                  "Makefile", "CMakeLists.txt"}
 
 

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from .. import __version__
 from . import quality as cli_quality
+from . import replay as cli_replay
 from ..spec import Spec, SpecError, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
@@ -95,6 +96,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--seconds", type=float, default=1.0, help="length of the standard test signal (default 1)")
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signals (default fixed)")
     p.add_argument("--no-target", action="store_true", help="leave out the emulated target runs")
+    cli_replay.add_parser(sub)
     return ap
 
 
@@ -392,7 +394,7 @@ def main(argv: list[str] | None = None) -> int:
     ap = _parser()
     args = ap.parse_args(argv)
     handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify, "widths": cmd_widths,
-               "report": cmd_report}[args.command]
+               "report": cmd_report, "replay": cli_replay.run}[args.command]
     try:
         return handler(args)
     except SpecError as e:

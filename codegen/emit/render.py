@@ -101,6 +101,86 @@ def _operations(design: Design) -> list[str]:
     return ops
 
 
+@dataclass(frozen=True)
+class Port:
+    """What the wiring skeleton <name>_port.c prints: its handlers, the hardware-access functions
+    the user writes, and its buffer lengths (made here, so the template only prints them)."""
+
+    api: tuple[Function, ...]          # the port's own functions (vector table, main loop)
+    handlers: tuple                    # (name, doc) of the interrupt handlers, for the comment
+    hw: tuple[Function, ...]           # the hardware-access interface
+    ring: int                          # output ring length, a power of two
+    chunk: int                         # samples taken per service call (a stack buffer)
+    half: int                          # inputs per DMA half-buffer (DMA designs): the queue's length
+    dma: bool                          # the inputs come by DMA
+
+
+PORT_CHUNK = 16        # samples per service call: 32 or 64 bytes of stack (common practice, no source)
+
+
+def port(design: Design) -> Port:
+    """The wiring skeleton's parts for this design. The output ring holds at least four queues'
+    worth of output samples at the IF centre's input rate, and two chunks."""
+    p, fr, b = design.name, design.front, design.budget
+    inp = f"{p}_input_t"
+    rate = design.if_hz / fr.prescale if design.stamps else design.rates.grid_hz
+    per_queue = -(-design.queue_len * design.rates.out_hz // int(rate))
+    ring = 1 << (max(2 * PORT_CHUNK, 4 * per_queue) - 1).bit_length()
+    topo = design.topology
+    dma = b.dma and topo in (Topology.CAPTURE, Topology.COUNTER)     # as the header's wiring comment reads it
+    handlers = []
+    hw = [Function(f"void {p}_hw_output_start(uint32_t rate_hz)",
+                   "Start the output timer at rate_hz, calling the output interrupt each period (DAC or PWM)."),
+          Function(f"void {p}_hw_output_write({p}_sample_t v)",
+                   f"Write one sample (format {design.output.format}) to the DAC or the PWM compare register."),
+          Function(f"void {p}_hw_output_stalled(void)", "The output ring is full: the output timer is not running."),
+          Function(f"void {p}_hw_mute(bool mute)", "Mute (true) or unmute the audio stage: the carrier is absent."),
+          Function(f"void {p}_hw_inputs_lost(uint32_t total)", "Inputs were lost (queue full or DMA late): total so far.")]
+    if dma:
+        what = "capture" if topo is Topology.CAPTURE else "counter"
+        if topo is Topology.CAPTURE:
+            hw.append(Function(f"void {p}_hw_capture_dma_start({inp} *buf, uint32_t n, uint32_t prescale)",
+                               f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, input capture on "
+                               "every prescale-th IF edge, circular DMA of the captured values into buf[0..n-1] "
+                               "with half and full transfer interrupts."))
+        else:
+            hw.append(Function(f"void {p}_hw_counter_dma_start({inp} *buf, uint32_t n, uint32_t grid_ticks)",
+                               f"Start the {fr.counter_bits}-bit counter clocked by the IF and a grid timer of "
+                               "grid_ticks timer ticks whose event copies the counter by circular DMA into "
+                               "buf[0..n-1], with half and full transfer interrupts."))
+        handlers += [(f"{p}_port_dma_half_irq", f"{what} DMA half transfer"),
+                     (f"{p}_port_dma_full_irq", f"{what} DMA transfer complete")]
+    elif topo is Topology.CAPTURE:
+        hw += [Function(f"void {p}_hw_capture_start(uint32_t prescale)",
+                        f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz with input capture on "
+                        "every prescale-th IF edge and its interrupt."),
+               Function(f"{inp} {p}_hw_capture_value(void)", "The captured timer value (and clear the capture flag).")]
+        handlers.append((f"{p}_port_capture_irq", f"timer capture, one per {fr.prescale} IF edge(s)"))
+    elif topo in (Topology.EDGE_STAMP, Topology.EDGE_COUNT):
+        hw.append(Function(f"void {p}_hw_edge_irq_start(void)", "Enable the comparator or pin interrupt on the IF edge."))
+        if topo is Topology.EDGE_STAMP:
+            hw.append(Function(f"{inp} {p}_hw_timer_now(void)",
+                               f"The free-running {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, read now."))
+            handlers.append((f"{p}_port_edge_irq", "every IF edge"))
+        else:
+            hw.append(Function(f"void {p}_hw_grid_timer_start(uint32_t grid_ticks)",
+                               "Start the grid timer: an interrupt every grid_ticks timer ticks."))
+            handlers += [(f"{p}_port_edge_irq", "every IF edge"),
+                         (f"{p}_port_tick_irq", f"grid timer, {design.rates.grid_hz} Hz")]
+    else:
+        hw += [Function(f"void {p}_hw_grid_timer_start(uint32_t grid_ticks)",
+                        f"Start the {fr.counter_bits}-bit counter clocked by the IF and the grid timer: an interrupt "
+                        "every grid_ticks timer ticks."),
+               Function(f"{inp} {p}_hw_counter_value(void)", "The IF-clocked counter's value, read now.")]
+        handlers.append((f"{p}_port_tick_irq", f"grid timer, {design.rates.grid_hz} Hz"))
+    handlers.append((f"{p}_port_output_irq", f"output timer, {design.rates.out_hz} Hz"))
+    api = [Function(f"void {p}_port_start(void)", ""), Function(f"void {p}_port_poll(void)", ""),
+           Function(f"uint32_t {p}_port_pending(void)", ""), Function(f"int32_t {p}_port_offset(void)", "")]
+    api += [Function(f"void {n}(void)", d) for n, d in handlers]
+    return Port(api=tuple(api), handlers=tuple(dict(name=n, doc=d) for n, d in handlers), hw=tuple(hw), ring=ring,
+                chunk=PORT_CHUNK, half=design.queue_len, dma=dma)
+
+
 def _env() -> jinja2.Environment:
     env = jinja2.Environment(
         loader=jinja2.FunctionLoader(
@@ -144,7 +224,8 @@ def unit_test(design: Design, vectors: Vectors) -> dict[str, str]:
 
 
 def emit(design: Design) -> dict[str, str]:
-    """The C files of ``design``: {"<name>.h": text, "<name>.c": text}."""
+    """The C files of ``design``: {"<name>.h": text, "<name>.c": text, "<name>_port.c": text} (the
+    last a wiring skeleton over a hardware-access interface the user writes)."""
     env = _env()
     p = design.name
     inp = input_type(design)
@@ -165,4 +246,5 @@ def emit(design: Design) -> dict[str, str]:
     return {
         f"{p}.h": env.get_template("demod.h.j2").render(ctx),
         f"{p}.c": env.get_template("demod.c.j2").render(ctx),
+        f"{p}_port.c": env.get_template("port.c.j2").render(ctx, port=port(design)),
     }
