@@ -100,7 +100,7 @@ def _parser() -> argparse.ArgumentParser:
     return ap
 
 
-def _warn(spec: Spec) -> None:
+def warn_spec(spec: Spec) -> None:
     for w in spec.warnings:
         print(f"edgetally: warning: {w}", file=sys.stderr)
 
@@ -146,19 +146,19 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
     return "\n".join(lines)
 
 
-def _json_safe(obj):
+def json_safe(obj):
     if isinstance(obj, float) and not math.isfinite(obj):
         return None
     if isinstance(obj, dict):
-        return {k: _json_safe(v) for k, v in obj.items()}
+        return {k: json_safe(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
-        return [_json_safe(v) for v in obj]
+        return [json_safe(v) for v in obj]
     return obj
 
 
 def cmd_plan(args) -> int:
     spec = load_spec(args.spec)
-    _warn(spec)
+    warn_spec(spec)
     from ..planner.choose import plan
 
     pl = plan(spec, scheme=args.scheme)
@@ -179,7 +179,7 @@ def cmd_plan(args) -> int:
             obj["measured"] = measured
         if sims is not None:
             obj["simulated_sinad_db"] = [{"scheme": k[0], "variant": k[1], "sinad_db": v} for k, v in sims.items()]
-        print(json.dumps(_json_safe(obj), indent=2))
+        print(json.dumps(json_safe(obj), indent=2))
     else:
         print(_plan_table(spec, pl, sims))
         if measured is not None:
@@ -226,7 +226,7 @@ def _measured_plan(spec: Spec, pl, scheme):
 
 def cmd_emit(args) -> int:
     spec = load_spec(args.spec)
-    _warn(spec)
+    warn_spec(spec)
     from ..designer.assemble import design as make_design
     from ..emit import emit
 
@@ -281,7 +281,7 @@ def cmd_verify(args) -> int:
     if points is not None and not args.sweep:
         raise UsageError("--points needs --sweep")
     spec = load_spec(args.spec)
-    _warn(spec)
+    warn_spec(spec)
     from ..designer.assemble import design as make_design
 
     d = make_design(spec, scheme=args.scheme)
@@ -301,7 +301,7 @@ def cmd_verify(args) -> int:
     hs = cli_quality.run_scenarios(d, args.scenario, Options(args.loss_ms, args.burst_ms, seed=seed), host, tty) \
         if args.scenario else []
     if args.json:
-        print(json.dumps(_json_safe({**res.to_dict(), **cli_quality.json_extra(sw, hs)}), indent=2))
+        print(json.dumps(json_safe({**res.to_dict(), **cli_quality.json_extra(sw, hs)}), indent=2))
     else:
         verdict = "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
         print(f"edgetally verify '{res.name}' ({res.scheme}, {res.variant}), {res.seconds:g} s of signal, "
@@ -347,7 +347,7 @@ def _check_seconds(seconds: float) -> None:
 def cmd_report(args) -> int:
     _check_seconds(args.seconds)
     spec = load_spec(args.spec)
-    _warn(spec)
+    warn_spec(spec)
     from ..designer.assemble import design as make_design
     from ..planner.choose import plan
 
@@ -357,12 +357,12 @@ def cmd_report(args) -> int:
 
 def cmd_widths(args) -> int:
     spec = load_spec(args.spec)
-    _warn(spec)
+    warn_spec(spec)
     from ..designer.widths import check_widths, parse_sets
 
     rep = check_widths(spec, scheme=args.scheme, overrides=parse_sets(args.set), simulate=not args.no_simulate)
     if args.json:
-        print(json.dumps(_json_safe(rep.to_dict()), indent=2))
+        print(json.dumps(json_safe(rep.to_dict()), indent=2))
     else:
         over = ", ".join(f"{k}={v}" for k, v in rep.overrides.items()) or "none"
         print(f"edgetally widths for '{rep.name}': {rep.arith} arithmetic, overrides: {over}")

@@ -37,13 +37,13 @@ def add_parser(subparsers) -> None:
 
 def run(args) -> int:
     """The command; errors go up to main (SpecError, UsageError, RecordingError -> exit 2)."""
-    from .main import UsageError, _json_safe, _warn
+    from .main import UsageError, json_safe, warn_spec
     from ..spec import load_spec
 
     if not math.isfinite(args.offset_hz):
         raise UsageError(f"--offset-hz {args.offset_hz}: must be a finite frequency in Hz")
     spec = load_spec(args.spec)
-    _warn(spec)
+    warn_spec(spec)
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UsageError(f"-o {out}: exists and is not a folder")
@@ -65,7 +65,7 @@ def run(args) -> int:
     for n, b in files.items():
         (out / n).write_bytes(b)
     if args.json:
-        print(json.dumps(_json_safe({**res.to_dict(), "files": [str(out / n) for n in files]}), indent=2))
+        print(json.dumps(json_safe({**res.to_dict(), "files": [str(out / n) for n in files]}), indent=2))
     else:
         print("\n".join(summary_lines(d, res)))
         for n in files:

@@ -133,7 +133,7 @@ def noisy_if(sig: FmSignal, duration_s: float, cnr_db: float, noise_bw_hz: float
     return NoisyIf(fs=fs, t=t, carrier=carrier, noise=noise, noise_bw_hz=bw)
 
 
-def _refine(y0, y1, y2, y3) -> np.ndarray:
+def refine_crossing(y0, y1, y2, y3) -> np.ndarray:
     """Root u in (0, 1] of the cubic through (-1, y0), (0, y1), (1, y2), (2, y3), given y1 < 0 <= y2:
     Newton from the linear estimate, kept inside the shrinking bracket (bisection when it leaves)."""
     c1 = -y0 / 3 - y1 / 2 + y2 - y3 / 6
@@ -174,7 +174,7 @@ def crossings(w: NoisyIf, hysteresis: float = 0.0) -> np.ndarray:
         k = np.flatnonzero((state[:-1] == -1) & (state[1:] == 1)) + 1
     k = k[(k >= 2) & (k <= r.size - 2)]
     y = r - h
-    u = _refine(y[k - 2], y[k - 1], y[k], y[k + 1])
+    u = refine_crossing(y[k - 2], y[k - 1], y[k], y[k + 1])
     t = (k - 1 - _PAD + u) / w.fs
     return t[t >= 0]
 

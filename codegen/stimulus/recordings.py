@@ -44,7 +44,7 @@ from pathlib import Path
 import numpy as np
 
 from ..ir import Design
-from .ifnoise import _refine as cubic_root   # the IF simulator's crossing refinement
+from .ifnoise import refine_crossing as cubic_root   # the IF simulator's crossing refinement
 
 FORMATS = ("vcd", "csv", "bin", "wav", "sigmf")
 EXTENSIONS = {".vcd": "vcd", ".csv": "csv", ".txt": "csv", ".bin": "bin", ".raw": "bin", ".wav": "wav",
