@@ -327,7 +327,10 @@ def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str
     errors). Files go to ``workdir`` (made if needed, kept) or to a temporary folder removed before
     returning."""
     t = _target(core)
-    sources = dict(emitted if emitted is not None else emit(design))
+    # the demodulator's header and source; the wiring skeleton (<name>_port.c) needs the user's
+    # hardware functions and is compiled by its own tests
+    sources = {n: t for n, t in (emitted if emitted is not None else emit(design)).items()
+               if n != f"{design.name}_port.c"}
     sources["harness.c"] = harness(design, t.in_len, t.out_len)
     # -g only adds debug sections (the DWARF ranges cycles.measure uses); it does not change the code.
     flags = [*STRICT_FLAGS, opt, *t.flags, "-gdwarf-4"]
