@@ -8,6 +8,7 @@ for the header and for the host build's cffi declarations alike.
 
 from __future__ import annotations
 
+import functools
 import importlib.resources
 from dataclasses import dataclass
 
@@ -181,7 +182,9 @@ def port(design: Design) -> Port:
                 chunk=PORT_CHUNK, half=design.queue_len, dma=dma)
 
 
+@functools.lru_cache(maxsize=1)
 def _env() -> jinja2.Environment:
+    """The one template environment (made once: compiling the templates costs more than rendering)."""
     env = jinja2.Environment(
         loader=jinja2.FunctionLoader(
             lambda name: importlib.resources.files("edgetally.c_templates").joinpath(name).read_text("utf-8")),
