@@ -124,7 +124,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             if wordlength.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
                 break
             needed = cb
-        cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections))
+        cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections), a.data_bits, a.coef_width)
         why = []
         if loss > fx.loss_limit_db:
             why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")

@@ -52,6 +52,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import signal
 
+from . import costs
 from ..dsp import cic
 from ..cores import CORES
 from ..ir import Design, variant_label
@@ -244,16 +245,56 @@ OUTPUT_OPS = 60                                    # combs' share, scale, offset
 SECTION_OPS = {64: 100, 32: 45}                    # a section's rounding, saturation and state moves
 
 
-def filter_cycles(tgt: Target, acc_bits: int, sections: int) -> int:
-    """Cycles of the IIR sections per output sample: five products and their sums per section,
-    as 32x32->64 multiply-accumulates (64-bit accumulators) or exact 32-bit products."""
+def calibrated(tgt: Target) -> bool:
+    """Whether ``tgt`` is priced from its core's calibrated table: it has one, and the spec did not
+    give the part a divider or multiplier that the core's emulated build lacks (or the reverse)."""
+    c = CORES[tgt.core]
+    return costs.table(tgt.core) is not None and tgt.hw_divide == c.hw_divide and tgt.mul64 == c.mul64
+
+
+def filter_cycles(tgt: Target, acc_bits: int, sections: int, data_bits: int = 32, coef_width: int = 32) -> int:
+    """Cycles of the IIR sections per output sample: from the core's calibrated table for this
+    arithmetic, or five products and their sums per section, as 32x32->64 multiply-accumulates
+    (64-bit accumulators) or exact 32-bit products."""
+    if calibrated(tgt):
+        t = costs.table(tgt.core)["output"]["section"].get(costs.arith_key(data_bits, coef_width, acc_bits))
+        if t is not None:
+            return round(t * sections)
     mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
     return sections * (5 * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
 
 
+def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, int, int] | None:
+    """(per_edge, per_input, per_grid, per_output) from the core's calibrated table, with the
+    exception entry and exit of each ISR from the target (the profile's or the spec's), or None
+    where the table lacks a figure. The output path is planned wide, as in ``load``."""
+    if not calibrated(tgt):
+        return None
+    core, isr = tgt.core, tgt.isr_cycles
+    bits = tgt.timer_bits if v.front == "stamp" else tgt.counter_bits
+    per_input = costs.lookup(core, "input", costs.input_key(v.front, v.order, bits))
+    grid = costs.lookup(core, "grid", costs.grid_key(v.front, v.order))
+    base = costs.output_cycles(core, v.front, costs.arith_key(32, 32, 64), 0)
+    if v.front == "stamp":
+        body = costs.lookup(core, "isr", costs.isr_key("edge" if v.scheme == "interrupt" else "capture", "stamp"))
+        per_edge = None if body is None else (0 if (v.scheme != "interrupt" and tgt.capture_dma) else isr + body)
+        per_grid = grid
+    else:
+        per_edge = 0
+        if v.scheme == "interrupt":
+            body = costs.lookup(core, "isr", costs.isr_key("edge", "count"))
+            per_edge = None if body is None else isr + body
+        tick = 0.0 if (v.scheme == "counter" and tgt.counter_dma) else costs.lookup(core, "isr", costs.isr_key("tick", "count"))
+        per_grid = None if (grid is None or tick is None) else grid + (isr + tick if tick else 0)
+    if None in (per_input, per_grid, per_edge, base):
+        return None
+    return (round(per_edge), round(per_input), round(per_grid), round(base + filter_cycles(tgt, 64, sections)))
+
+
 def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
          sections: int, queue_len: int) -> Load:
-    """Estimated cycles (core profile figures and the calibrated op counts above) and RAM."""
+    """Estimated cycles and RAM: from the core's calibrated table (edgetally.planner.costs) where it
+    has one, else from the profile figures and the op counts above."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
     # the scale product, the sections (planned wide; the designer may then pick a cheaper
@@ -276,6 +317,13 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
         per_edge = isr + 3 * op if v.scheme == "interrupt" else 0        # the edge ISR counts
         cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
         in_bytes = 2 if tgt.counter_bits == 16 else 4
+    cal = _calibrated_load(v, tgt, sections)
+    if cal is not None:
+        per_edge, per_input, per_grid, per_output = cal
+        if v.front == "stamp":
+            cycles = stamp_rate * (per_edge + per_input) + grid_hz * per_grid
+        else:
+            cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
     cycles += out_hz * per_output
     ram = 4 * (10 + 2 * n) + 16 * sections + queue_len * in_bytes + (8 if v.order == "cubic" else 0)
     return Load(per_edge, per_input, per_grid, per_output, cycles / tgt.cpu_hz, ram)
