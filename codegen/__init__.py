@@ -16,7 +16,7 @@ from .spec import Spec, SpecError, load_spec, parse_spec
 _LAZY = {
     "Plan": ("planner.choose", "Plan"),
     "plan": ("planner.choose", "plan"),
-    "design": ("designer.assemble", "design"),
+    "design": ("check.choice", "design"),
     "Design": ("ir", "Design"),
 }
 

@@ -6,6 +6,7 @@ Exit status: 0 success; 1 a check failed or an internal error; 2 a bad spec or b
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
 import math
 import sys
@@ -159,12 +160,12 @@ def json_safe(obj):
 def cmd_plan(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
-    from ..planner.choose import plan
+    from ..check.choice import settle
 
-    pl = plan(spec, scheme=args.scheme)
+    pl = settle(spec, scheme=args.scheme)
     sims = None
     if args.simulate:
-        from ..planner.refine import simulate_options
+        from ..check.choice import simulate_options
 
         if sys.stderr.isatty():
             print("edgetally: simulating each feasible option ...", file=sys.stderr)
@@ -227,7 +228,7 @@ def _measured_plan(spec: Spec, pl, scheme):
 def cmd_emit(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
-    from ..designer.assemble import design as make_design
+    from ..check.choice import design as make_design
     from ..emit import emit
 
     d = make_design(spec, scheme=args.scheme)
@@ -282,7 +283,7 @@ def cmd_verify(args) -> int:
         raise UsageError("--points needs --sweep")
     spec = load_spec(args.spec)
     warn_spec(spec)
-    from ..designer.assemble import design as make_design
+    from ..check.choice import design as make_design
 
     d = make_design(spec, scheme=args.scheme)
     for kind in args.sweep:
@@ -348,19 +349,24 @@ def cmd_report(args) -> int:
     _check_seconds(args.seconds)
     spec = load_spec(args.spec)
     warn_spec(spec)
-    from ..designer.assemble import design as make_design
-    from ..planner.choose import plan
+    from ..check.choice import design_and_plan
 
-    pl = plan(spec, scheme=args.scheme)
-    return cli_quality.cmd_report(args, spec, make_design(spec, pl), pl)
+    d, pl = design_and_plan(spec, scheme=args.scheme)
+    return cli_quality.cmd_report(args, spec, d, pl)
 
 
 def cmd_widths(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
+    from ..check.choice import arith_name, design_and_plan
     from ..designer.widths import check_widths, parse_sets
 
-    rep = check_widths(spec, scheme=args.scheme, overrides=parse_sets(args.set), simulate=not args.no_simulate)
+    sets = parse_sets(args.set)
+    d, pl = design_and_plan(spec, scheme=args.scheme)
+    if spec.fixed.arith == "auto" and "arith" not in sets:
+        # the arithmetic edgetally settled on (by simulated loss), checked as the user would get it
+        spec = dataclasses.replace(spec, fixed=dataclasses.replace(spec.fixed, arith=arith_name(d)))
+    rep = check_widths(spec, scheme=args.scheme, overrides=sets, simulate=not args.no_simulate, chosen=pl)
     if args.json:
         print(json.dumps(json_safe(rep.to_dict()), indent=2))
     else:

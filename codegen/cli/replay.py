@@ -48,7 +48,7 @@ def run(args) -> int:
     if out.exists() and not out.is_dir():
         raise UsageError(f"-o {out}: exists and is not a folder")
     from ..check.replay import replay, replay_files, summary_lines
-    from ..designer.assemble import design as make_design
+    from ..check.choice import design as make_design
     from ..stimulus.recordings import RecordingError, load
 
     d = make_design(spec, scheme=args.scheme)

@@ -12,7 +12,7 @@ from ..dsp import cic
 from . import wordlength
 from ..planner import schemes
 from ..ir import Design
-from ..planner.choose import plan
+from ..planner.choose import Plan, plan
 from ..spec import Spec, SpecError
 
 
@@ -83,10 +83,11 @@ def _limit_cycles(d: Design, noise_fs2: float) -> list[dict]:
 
 
 def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None = None,
-                 simulate: bool = True, seconds: float = 0.3) -> WidthReport:
+                 simulate: bool = True, seconds: float = 0.3, chosen: Plan | None = None) -> WidthReport:
     """The width table and every check; ``simulate`` also runs the emitted C against the model and
-    the float reference (skipped when a register could overflow: such C would be undefined)."""
-    p = plan(spec, scheme)
+    the float reference (skipped when a register could overflow: such C would be undefined).
+    ``chosen``: the plan to check (default: the planner's)."""
+    p = chosen or plan(spec, scheme)
     d = assemble.design(spec, p, overrides=overrides)
     opts = assemble.width_options(spec, p, overrides)
     opt = next(o for o in opts if o.filters == d.filters)

@@ -1,0 +1,134 @@
+"""Choice by measurement where the planner's formulas are unsure.
+
+``settle(spec)`` plans as ``edgetally.plan`` does, then simulates briefly (the float reference of
+each option on SIM_SECONDS of the standard test, deterministic seed) every feasible option that is
+marked doubtful or predicted within CLOSE_DB of the chosen one, and chooses on the simulated
+figure: cheapest first, a costlier option wins only by more than the planner's tie margin, so no
+option is chosen whose simulated SINAD is below that of a cheaper contender. The plan's notes say
+which simulated figures decided.
+
+``design(spec)`` makes the settled plan's design and checks its filter arithmetic by simulation
+as well: where the cheaper arithmetic was picked on its predicted loss, the integer model's
+simulated loss against the float reference must also meet the spec's limit, else the next
+arithmetic is taken (and the note says why).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+from . import model, reference
+from ..designer import assemble
+from ..ir import Design
+from ..measure import metrics
+from ..planner import schemes
+from ..planner.choose import TIE_DB, Option, Plan, plan
+from ..spec import Spec
+from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
+
+CLOSE_DB = 3.0          # options predicted within this of the chosen one are simulated before choosing
+# A doubtful prediction (a grid faster than the stamps, count errors that form tones) was seen off by
+# up to about 15 dB in either direction on the bundled examples (plan --simulate); doubtful options
+# predicted further below the chosen one than that cannot win and are not simulated.
+DOUBT_DB = 15.0
+SIM_SECONDS = 0.2       # of the standard test, after its lead-in: enough tone periods for the SINAD meter
+
+
+def _sinad(design: Design, samples) -> float:
+    skip = int(round(LEAD_S * design.rates.out_hz))
+    return metrics.sinad_db(samples[skip:], design.rates.out_hz, schemes.TEST_TONE_HZ, schemes.BAND_LOW_HZ,
+                            design.audio_hz)
+
+
+def simulate_option(spec: Spec, o: Option, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
+    """SINAD of the float reference of plan option ``o`` on ``seconds`` of the standard test."""
+    # the float reference does not depend on the filter arithmetic: one (wide) is designed, not all
+    d = assemble.design(spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio),
+                        overrides={"arith": "wide"})
+    return _sinad(d, reference.run(d, make_inputs(d, seconds, seed)))
+
+
+def simulate_options(spec: Spec, plan_obj: Plan, seconds: float = 0.25, seed: int = DEFAULT_SEED
+                     ) -> dict[tuple[str, str], float]:
+    """SINAD of the float reference of every feasible option row of a plan (``plan --simulate``)."""
+    return {(o.scheme, o.variant): round(simulate_option(spec, o, seconds, seed), 2)
+            for o in plan_obj.options if o.feasible}
+
+
+def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> Plan:
+    """The plan, with the choice among doubtful or close options made on simulated SINAD."""
+    p = plan(spec, scheme)
+    chosen = next(o for o in p.options if o.kept)
+    top = max(o.predicted_sinad_db for o in p.options if o.feasible and not o.doubtful) if any(
+        o.feasible and not o.doubtful for o in p.options) else chosen.predicted_sinad_db
+    contenders = [o for o in p.options if o.feasible and
+                  (o is chosen or o.predicted_sinad_db >= top - (DOUBT_DB if o.doubtful else CLOSE_DB))]
+    if len(contenders) < 2:
+        return p
+    sims = {o: simulate_option(spec, o, seconds, seed) for o in contenders}
+    best = None
+    for o in sorted(contenders, key=lambda o: o.load):
+        if best is None or sims[o] > sims[best] + TIE_DB:
+            best = o
+    figures = ", ".join(f"{o.scheme} {o.variant} {sims[o]:.1f} dB (predicted {o.predicted_sinad_db:.1f}, "
+                        f"CPU {o.load:.1%})" for o in sorted(contenders, key=lambda o: o.load))
+    note = (f"chosen on simulated SINAD (float reference, {seconds:g} s of the standard test): {figures}; "
+            f"{best.scheme} {best.variant} " + ("confirms the formulas' choice" if best is chosen else
+                                                 f"replaces {chosen.scheme} {chosen.variant}"))
+    rows = []
+    for o in p.options:
+        if o in sims:
+            if o is best:
+                reason = f"CHOSEN: best simulated SINAD {sims[o]:.1f} dB (a costlier option must gain over {TIE_DB} dB)"
+            else:
+                reason = f"dropped: simulated SINAD {sims[o]:.1f} dB, not better by the tie margin"
+            o = dataclasses.replace(o, kept=o is best, reason=reason)
+        rows.append(o)
+    if best is chosen:
+        return dataclasses.replace(p, options=tuple(rows), notes=p.notes + (note,))
+    q = plan(spec, scheme=best.scheme, variant=best.variant, ratio=best.ratio)
+    notes = tuple(n for n in q.notes if not n.startswith("scheme forced")) + (note,)
+    if scheme is not None:
+        notes += (f"scheme forced to {scheme}",)
+    return dataclasses.replace(q, options=tuple(rows), notes=notes)
+
+
+def simulated_loss_db(design: Design, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
+    """Float reference SINAD minus the integer model's, on ``seconds`` of the standard test."""
+    x = make_inputs(design, seconds, seed)
+    return _sinad(design, reference.run(design, x)) - _sinad(design, model.run(design, x).out)
+
+
+def design(spec: Spec, scheme: str | None = None) -> Design:
+    """The design edgetally makes for ``spec``: the settled plan's, its arithmetic confirmed."""
+    return design_and_plan(spec, scheme)[0]
+
+
+def design_and_plan(spec: Spec, scheme: str | None = None, chosen: Plan | None = None,
+                    seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> tuple[Design, Plan]:
+    """The design of the settled plan (or of ``chosen``), its arithmetic confirmed by simulated loss."""
+    p = chosen or settle(spec, scheme, seconds, seed)
+    d = assemble.design(spec, p)
+    if spec.fixed.arith != "auto":
+        return d, p
+    tried = []
+    for opt in assemble.width_options(spec, p):
+        if not opt.ok:
+            continue
+        cand = d if opt.arith == arith_name(d) else assemble.design(spec, p, overrides={"arith": opt.arith})
+        loss = simulated_loss_db(cand, seconds, seed)
+        tried.append(f"{opt.arith} {loss:.2f} dB")
+        if loss <= spec.fixed.loss_limit_db:
+            if cand is not d:
+                p = dataclasses.replace(p, notes=p.notes + (
+                    f"filter arithmetic {opt.arith}: the simulated implementation loss of the cheaper arithmetic "
+                    f"exceeds {spec.fixed.loss_limit_db:g} dB ({'; '.join(tried)})",))
+            return cand, p
+    note = f"no filter arithmetic meets the {spec.fixed.loss_limit_db:g} dB loss limit in simulation ({'; '.join(tried)})"
+    return d, dataclasses.replace(p, notes=p.notes + (note,))
+
+
+def arith_name(d: Design) -> str:
+    """The name of the filter arithmetic of ``d`` (a key of edgetally.designer.wordlength.ARITHS)."""
+    f = d.filters
+    return "narrow" if (f.data_bits, f.acc_bits) == (16, 32) else "wide"
