@@ -34,8 +34,16 @@ def key(*parts: object) -> str:
 
 
 def _trim(d: Path) -> None:
-    files = sorted((f for f in d.iterdir() if f.is_file()), key=lambda f: f.stat().st_mtime)
-    for f in files[:max(0, len(files) - MAX_ENTRIES)]:
+    # Another process sharing the folder may remove a file between the listing and its stat.
+    dated = []
+    for f in d.iterdir():
+        try:
+            if f.is_file():
+                dated.append((f.stat().st_mtime, f))
+        except OSError:
+            pass
+    dated.sort(key=lambda item: item[0])
+    for _, f in dated[:max(0, len(dated) - MAX_ENTRIES)]:
         f.unlink(missing_ok=True)
 
 
