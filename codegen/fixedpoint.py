@@ -166,4 +166,5 @@ def c_definitions(prefix: str, names=None) -> str:
     chosen = [n for n in C_DEFINITIONS if names is None or n in names]
     text = "".join(C_DEFINITIONS[n] for n in chosen)
     return ("/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */\n"
-            + text.format(p=prefix, ub=CUBIC_U_BITS, tb=CUBIC_T_BITS, one=1 << CUBIC_U_BITS, tscale=1 << CUBIC_T_BITS, inv6=INV6, corr_shift=CUBIC_CORR_SHIFT))
+            + text.format(p=prefix, ub=CUBIC_U_BITS, tb=CUBIC_T_BITS, one=1 << CUBIC_U_BITS, tscale=1 << CUBIC_T_BITS,
+                          inv6=INV6, corr_shift=CUBIC_CORR_SHIFT))

@@ -5,4 +5,5 @@ from .deviations import DEVIATIONS, Deviation
 from .render import (Function, Vectors, api, banner, emit, input_type, internal_functions, isr_names,
                       unit_test)
 
-__all__ = ["DEVIATIONS", "Deviation", "Function", "Vectors", "api", "banner", "emit", "input_type", "internal_functions", "isr_names", "unit_test"]
+__all__ = ["DEVIATIONS", "Deviation", "Function", "Vectors", "api", "banner", "emit", "input_type", "internal_functions",
+           "isr_names", "unit_test"]

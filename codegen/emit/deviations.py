@@ -39,7 +39,8 @@ DEVIATIONS: tuple[Deviation, ...] = (
         "public constants of the header for the code that sets up the timers; the demodulator itself "
         "works in timer ticks and does not use them."),
     Deviation(
-        "8.9", "advisory", "the table `{p}_coef`", ("{p}.c",), ("static const int16_t {p}_coef[", "static const int32_t {p}_coef["),
+        "8.9", "advisory", "the table `{p}_coef`", ("{p}.c",),
+        ("static const int16_t {p}_coef[", "static const int32_t {p}_coef["),
         "the IIR coefficient table stays a named const object at file scope beside the design constants, "
         "so that map files (and edgetally's target size check) attribute its flash by name; it has "
         "internal linkage and one user, `{p}_post`."),
