@@ -329,7 +329,8 @@ def cmd_verify(args) -> int:
                     print(f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
                           f"first {t['isa_violations'][0]}")
         else:
-            print("  target runs: skipped (needs a cross compiler and an emulator: unicorn, pyelftools, simavr)")
+            print("  target runs: skipped (needs a cross compiler, e.g. Debian's gcc-arm-none-eabi, and the emulator: "
+                  "the package's target extra, pip install '.[target]')")
         for s in sw:
             cli_quality.print_sweep(s)
         if hs:
