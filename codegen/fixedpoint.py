@@ -141,15 +141,16 @@ static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t de
 }}
 """,
     "cubic_fraction": """\
-static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next,
-                                          unsigned shift, int64_t delta_limit)
+static inline uint32_t {p}_cubic_fraction(uint32_t e1, unsigned shift, const uint32_t iv[3], int64_t delta_limit)
 {{
-    /* phase fraction through four stamps (see edgetally.fixedpoint.cubic_fraction) */
+    /* phase fraction through four stamps (see edgetally.fixedpoint.cubic_fraction): at offset e1 into
+     * the interval iv[1] = d, with the intervals iv[0] = d_prev before it and iv[2] = d_next after it */
+    const uint32_t d = iv[1];
     const int64_t one = INT64_C({one});
     uint32_t u0 = {p}_ratio_floor(e1, shift, d) >> (shift - {ub}u);
     int64_t v = (int64_t)u0;
-    int64_t dl0 = {p}_sat((int64_t){p}_wrap_s32(d - d_prev), -delta_limit, delta_limit);
-    int64_t dl1 = {p}_sat((int64_t){p}_wrap_s32(d_next - d), -delta_limit, delta_limit);
+    int64_t dl0 = {p}_sat((int64_t){p}_wrap_s32(d - iv[0]), -delta_limit, delta_limit);
+    int64_t dl1 = {p}_sat((int64_t){p}_wrap_s32(iv[2] - d), -delta_limit, delta_limit);
     int64_t h = (((INT64_C(2) * dl0) + dl1) * one) + ((dl1 - dl0) * v);
     int64_t q = v * (one - v);
     int64_t corr = {p}_rshr(q * h * INT64_C({inv6}), {corr_shift}u);
