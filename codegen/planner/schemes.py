@@ -256,8 +256,9 @@ def filter_cycles(tgt: Target, acc_bits: int, sections: int, data_bits: int = 32
     """Cycles of the IIR sections per output sample: from the core's calibrated table for this
     arithmetic, or five products and their sums per section, as 32x32->64 multiply-accumulates
     (64-bit accumulators) or exact 32-bit products."""
-    if calibrated(tgt):
-        t = costs.table(tgt.core)["output"]["section"].get(costs.arith_key(data_bits, coef_width, acc_bits))
+    table = costs.table(tgt.core) if calibrated(tgt) else None
+    if table is not None:
+        t = table["output"]["section"].get(costs.arith_key(data_bits, coef_width, acc_bits))
         if t is not None:
             return round(t * sections)
     mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
@@ -286,7 +287,7 @@ def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, 
             per_edge = None if body is None else isr + body
         tick = 0.0 if (v.scheme == "counter" and tgt.counter_dma) else costs.lookup(core, "isr", costs.isr_key("tick", "count"))
         per_grid = None if (grid is None or tick is None) else grid + (isr + tick if tick else 0)
-    if None in (per_input, per_grid, per_edge, base):
+    if per_input is None or per_grid is None or per_edge is None or base is None:
         return None
     return (round(per_edge), round(per_input), round(per_grid), round(base + filter_cycles(tgt, 64, sections)))
 

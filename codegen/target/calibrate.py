@@ -115,7 +115,7 @@ def _fit(rows: list[tuple[dict[str, float], float]]) -> tuple[dict[str, float], 
     keys = sorted({k for r, _ in rows for k in r})
     a = np.array([[r.get(k, 0.0) / y for k in keys] for r, y in rows])
     coef, *_ = np.linalg.lstsq(a, np.ones(len(rows)), rcond=None)
-    return dict(zip(keys, (float(c) for c in coef))), float(np.max(np.abs(a @ coef - 1.0)))
+    return dict(zip(keys, (float(c) for c in coef), strict=True)), float(np.max(np.abs(a @ coef - 1.0)))
 
 
 def reduce(rows: list[tuple[dict, dict]]) -> dict:
@@ -133,7 +133,7 @@ def reduce(rows: list[tuple[dict, dict]]) -> dict:
     table: dict = {"isr": {key: _entry(v) for key, v in sorted(isr.items())}}
     front, dev_front = _fit([({"input:" + k["input"]: 1.0, "grid:" + k["grid"]: m["grid_per_input"]},
                               m["input"] + m["grid"] * m["grid_per_input"]) for k, m in rows])
-    n = defaultdict(int)
+    n: dict[str, int] = defaultdict(int)
     for k, _ in rows:
         n["input:" + k["input"]] += 1
         n["grid:" + k["grid"]] += 1
@@ -153,8 +153,11 @@ def reduce(rows: list[tuple[dict, dict]]) -> dict:
 def compiler_version(core: str) -> str:
     from .build import TARGETS, compiler
 
+    cc = compiler(core)
+    if cc is None:
+        return TARGETS[core].cc + " (not installed)"
     try:
-        text = subprocess.run([compiler(core), "--version"], capture_output=True, text=True, timeout=30).stdout
+        text = subprocess.run([cc, "--version"], capture_output=True, text=True, timeout=30).stdout
     except (OSError, subprocess.SubprocessError):
         return TARGETS[core].cc + " (version unknown)"
     return text.splitlines()[0] if text else TARGETS[core].cc
@@ -163,7 +166,9 @@ def compiler_version(core: str) -> str:
 def calibrate(examples: Path, cores: tuple[str, ...], say=print) -> dict:
     from concurrent.futures import ThreadPoolExecutor
 
-    out = {"generated": datetime.date.today().isoformat(), "opt": "-Os", "compilers": {}, "cores": {}}
+    compilers: dict[str, str] = {}
+    tables: dict[str, dict] = {}
+    out = {"generated": datetime.date.today().isoformat(), "opt": "-Os", "compilers": compilers, "cores": tables}
     for core in cores:
         designs, seen = [], set()
         for label, raw in probe_specs(examples, core):
@@ -176,10 +181,10 @@ def calibrate(examples: Path, cores: tuple[str, ...], say=print) -> dict:
         if not designs:
             raise RuntimeError(f"{core}: the probe specs give no design")
         with ThreadPoolExecutor(max_workers=2) as pool:
-            measured = list(pool.map(lambda ld: measure(ld[1], core), designs))
-        out["cores"][core] = reduce([(keys_of(d), m) for (_, d), m in zip(designs, measured)])
-        out["compilers"][core] = compiler_version(core)
-        say(f"{core}: output fit worst {out['cores'][core]['output']['max_rel_dev']:.1%}")
+            measured = list(pool.map(measure, [d for _, d in designs], [core] * len(designs)))
+        tables[core] = reduce([(keys_of(d), m) for (_, d), m in zip(designs, measured, strict=True)])
+        compilers[core] = compiler_version(core)
+        say(f"{core}: output fit worst {tables[core]['output']['max_rel_dev']:.1%}")
     return out
 
 
