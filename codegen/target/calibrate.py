@@ -3,7 +3,7 @@
     python -m edgetally.target.calibrate [--out PATH] [--cores CORE ...]
 
 Each probe is a spec (the bundled examples, each moved to every emulated core, crossed with every
-scheme and estimator the part allows, both filter arithmetics and with or without de-emphasis):
+scheme and estimator the part allows, every filter arithmetic and with or without de-emphasis):
 its design is emitted, cross-compiled at -Os and run in the emulator on the start of the standard
 test (edgetally.target.cycles.measure). Per core the figures are then reduced to the planner's keys
 (edgetally.planner.costs): the median of the probes for each ISR body, input and grid instant, and
@@ -25,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..designer.wordlength import ARITHS
 from ..planner import costs
 from ..spec import SpecError, parse_spec
 from ..stimulus.inputs import DEFAULT_SEED, make_inputs
@@ -40,7 +41,7 @@ def probe_specs(examples: Path, core: str) -> list[tuple[str, dict]]:
     out = []
     for f in sorted(examples.glob("*.toml")):
         raw = tomllib.loads(f.read_text())
-        for arith in ("narrow", "wide"):
+        for arith in ARITHS:
             for de in (0, 50):
                 r = json.loads(json.dumps(raw))
                 r["target"]["core"] = core
