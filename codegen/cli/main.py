@@ -1,6 +1,7 @@
 """The thin command line over the edgetally API: parse, call, print, map errors to exit codes.
 
 Exit status: 0 success; 1 a check failed or an internal error; 2 a bad spec or bad arguments.
+Global options (--debug) are accepted anywhere on the line, before or after the command.
 """
 
 from __future__ import annotations
@@ -15,7 +16,7 @@ from pathlib import Path
 from .. import __version__
 from . import quality as cli_quality
 from . import replay as cli_replay
-from ..spec import Spec, SpecError, load_spec
+from ..spec import Spec, SpecError, cut, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
 # when they run, so that a bad spec is refused without loading them.
@@ -36,13 +37,35 @@ def _add_scheme_args(p: argparse.ArgumentParser) -> None:
                    help="force how the MCU sees the edges (default: the planner's choice)")
 
 
+EXIT_CODES = """exit status:
+  0    done (verify, widths, replay, report: every check passed)
+  1    a check failed (the C differs from the model, a width does not fit, a hostile scenario
+       failed) or an internal error of edgetally (please report it; --debug shows the traceback)
+  2    a bad spec, argument or file: one line names the field or option, the value and what is
+       allowed
+  130  interrupted"""
+
+
+def _global_options(defaults: bool) -> argparse.ArgumentParser:
+    """The options every command accepts anywhere on the line. Only the top level sets defaults,
+    so that a subcommand's parser does not reset what was given before the command."""
+    g = argparse.ArgumentParser(add_help=False)
+    g.add_argument("--debug", action="store_true", default=False if defaults else argparse.SUPPRESS,
+                   help="show tracebacks on errors")
+    return g
+
+
 def _parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(
-        prog="edgetally",
+        prog="edgetally", parents=[_global_options(True)], epilog=EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
         description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.")
     ap.add_argument("--version", action="version", version=f"edgetally {__version__}")
-    ap.add_argument("--debug", action="store_true", help="show tracebacks on errors")
     sub = ap.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    common = dict(parents=[_global_options(False)], epilog=EXIT_CODES,
+                  formatter_class=argparse.RawDescriptionHelpFormatter)
+    _add_parser = sub.add_parser   # every command (replay's too) gets the global options and the exit codes
+    sub.add_parser = lambda name, **kw: _add_parser(name, **common, **kw)
 
     p = sub.add_parser("plan", help="show what was chosen and why")
     _add_scheme_args(p)
@@ -162,6 +185,9 @@ def cmd_plan(args) -> int:
     from ..planner.choose import plan
 
     pl = plan(spec, scheme=args.scheme)
+    from ..designer.assemble import design as make_design
+
+    make_design(spec, pl)   # what plan accepts, emit, verify and widths build: the [fixed] targets refuse here too
     sims = None
     if args.simulate:
         from ..planner.refine import simulate_options
@@ -276,11 +302,12 @@ def cmd_verify(args) -> int:
     _check_seconds(args.seconds)
     for opt, v in (("--loss-ms", args.loss_ms), ("--burst-ms", args.burst_ms)):
         if not (math.isfinite(v) and 0 < v <= 1000):
-            raise UsageError(f"{opt} {v:g}: must be a time in (0, 1000] ms")
+            raise SpecError(opt, v, "must be a time in (0, 1000] ms")
     points = cli_quality.parse_points(args.points)
     if points is not None and not args.sweep:
         raise UsageError("--points needs --sweep")
     spec = load_spec(args.spec)
+    check_run_args(args, spec)
     warn_spec(spec)
     from ..designer.assemble import design as make_design
 
@@ -327,7 +354,7 @@ def cmd_verify(args) -> int:
                 if t["isa_violations"]:
                     print(f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
                           f"first {t['isa_violations'][0]}")
-        else:
+        elif not args.no_target:
             print("  target runs: skipped (needs a cross compiler and an emulator: unicorn, pyelftools, simavr)")
         for s in sw:
             cli_quality.print_sweep(s)
@@ -339,14 +366,31 @@ def cmd_verify(args) -> int:
     return EXIT_OK if ok else EXIT_FAIL
 
 
+MIN_MEASURED_SAMPLES = 64   # output samples a SINAD figure is measured over, at the least
+MAX_SEED = (1 << 32) - 1    # numpy's seed: a non-negative integer; kept to 32 bits for the C harness
+
+
 def _check_seconds(seconds: float) -> None:
     if not (seconds > 0 and math.isfinite(seconds)) or seconds > 600:
-        raise UsageError(f"--seconds {seconds}: must be a number of seconds in (0, 600]")
+        raise SpecError("--seconds", seconds, "must be a number of seconds in (0, 600]")
+
+
+def check_run_args(args, spec: Spec) -> None:
+    """The test-signal options of verify and report, against the spec: a seed numpy accepts, and
+    a signal long enough to measure (MIN_MEASURED_SAMPLES output samples)."""
+    _check_seconds(args.seconds)
+    if args.seed is not None and not 0 <= args.seed <= MAX_SEED:
+        raise SpecError("--seed", args.seed, f"must be a whole number from 0 to {MAX_SEED}")
+    least = MIN_MEASURED_SAMPLES / spec.output.rate_hz
+    if args.seconds < least:
+        raise SpecError("--seconds", args.seconds, f"must be at least {least:.3g} s for this spec "
+                                                   f"({MIN_MEASURED_SAMPLES} output samples at {spec.output.rate_hz} Hz)")
 
 
 def cmd_report(args) -> int:
     _check_seconds(args.seconds)
     spec = load_spec(args.spec)
+    check_run_args(args, spec)
     warn_spec(spec)
     from ..designer.assemble import design as make_design
     from ..planner.choose import plan
@@ -400,10 +444,13 @@ def main(argv: list[str] | None = None) -> int:
     except SpecError as e:
         if args.debug:
             traceback.print_exc()
-        print(f"edgetally: spec error in {getattr(args, 'spec', '?')}: {e}", file=sys.stderr)
+        where = "argument error" if e.is_argument else f"spec error in {cut(str(getattr(args, 'spec', '?')))}"
+        print(f"edgetally: {where}: {e}", file=sys.stderr)
         return EXIT_SPEC
     except (UsageError, cli_quality.ArgError) as e:
-        print(f"edgetally: error: {e}", file=sys.stderr)
+        if args.debug:
+            traceback.print_exc()
+        print(f"edgetally: error: {' '.join(str(e).split())}", file=sys.stderr)
         return EXIT_SPEC
     except KeyboardInterrupt:
         print("edgetally: interrupted", file=sys.stderr)
