@@ -139,7 +139,7 @@ def _refuse_targets(spec: Spec, best: WidthOption) -> None:
     fx = spec.fixed
     if best.loss_db > fx.loss_limit_db:
         raise SpecError("fixed.loss_limit_db", fx.loss_limit_db,
-                        f"cannot be met: the widest arithmetic loses {best.loss_db:.2f} dB; allow more loss")
+                        f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB; allow more loss")
     raise SpecError("fixed.response_tol_db", fx.response_tol_db,
                     f"cannot be met: the quantised filters are {best.response_error_db:.3f} dB off; allow more")
 
