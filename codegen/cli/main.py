@@ -15,6 +15,7 @@ from pathlib import Path
 
 from .. import __version__
 from . import quality as cli_quality
+from .folder import FORCE_HELP, FolderError, check_folder, write_set
 from . import replay as cli_replay
 from ..spec import Spec, SpecError, cut, load_spec
 
@@ -80,9 +81,10 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("emit", help="write the C header and source (and the Design as JSON)")
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
-    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--force", action="store_true", help=FORCE_HELP)
     p.add_argument("--no-test", action="store_true",
-                   help="leave out the desktop unit test (<name>_test.c, vectors, Makefile, CMakeLists.txt)")
+                   help="leave out the desktop unit test (the <name>_test/ folder: <name>_test.c, vectors, "
+                        "Makefile, CMakeLists.txt)")
 
     p = sub.add_parser("widths", help="show the word-length table and overflow margins, or check your own widths")
     _add_scheme_args(p)
@@ -115,7 +117,7 @@ def _parser() -> argparse.ArgumentParser:
                                       "sweeps, hostile conditions, budget")
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
-    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--force", action="store_true", help=FORCE_HELP)
     p.add_argument("--seconds", type=float, default=1.0, help="length of the standard test signal (default 1)")
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signals (default fixed)")
     p.add_argument("--no-target", action="store_true", help="leave out the emulated target runs")
@@ -253,6 +255,9 @@ def _measured_plan(spec: Spec, pl, scheme):
 def cmd_emit(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
+    from ..emit import file_names
+
+    check_folder(Path(args.out), file_names(spec.name, test=not args.no_test), args.force)
     from ..designer.assemble import design as make_design
     from ..emit import emit
 
@@ -264,20 +269,8 @@ def cmd_emit(args) -> int:
         from ..check.vectors import test_vectors
 
         files.update(unit_test(d, test_vectors(d)))
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"-o {out}: exists and is not a folder")
-    clashes = [n for n, text in files.items()
-               if (out / n).exists() and (out / n).read_text(encoding="utf-8", errors="replace") != text]
-    if clashes and not args.force:
-        raise UsageError(f"-o {out}: {', '.join(clashes)} exist with other content; use --force to overwrite")
-    out.mkdir(parents=True, exist_ok=True)
-    for n, text in files.items():
-        path = out / n
-        state = "unchanged" if path.exists() and path.read_text(encoding="utf-8", errors="replace") == text else "written"
-        if state == "written":
-            path.write_text(text, encoding="utf-8")
-        print(f"{state}: {path}")
+    for o in write_set(Path(args.out), {n: text.encode("utf-8") for n, text in files.items()}, args.force):
+        print(f"{o.state}: {o.path}")
     return EXIT_OK
 
 
@@ -447,7 +440,7 @@ def main(argv: list[str] | None = None) -> int:
         where = "argument error" if e.is_argument else f"spec error in {cut(str(getattr(args, 'spec', '?')))}"
         print(f"edgetally: {where}: {e}", file=sys.stderr)
         return EXIT_SPEC
-    except (UsageError, cli_quality.ArgError) as e:
+    except (UsageError, cli_quality.ArgError, FolderError) as e:
         if args.debug:
             traceback.print_exc()
         print(f"edgetally: error: {' '.join(str(e).split())}", file=sys.stderr)

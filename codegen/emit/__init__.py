@@ -1,7 +1,8 @@
 """Design -> C source text (jinja2 templates in edgetally.c_templates): the public functions of the
 emitted C (``api``), the header and source (``emit``) and the desktop unit test (``unit_test``)."""
 
-from .render import (Function, Vectors, api, banner, emit, input_type, internal_functions, isr_names,
-                      unit_test)
+from .render import (Function, Vectors, api, banner, emit, file_names, input_type, internal_functions, isr_names,
+                      test_dir, unit_test)
 
-__all__ = ["Function", "Vectors", "api", "banner", "emit", "input_type", "internal_functions", "isr_names", "unit_test"]
+__all__ = ["Function", "Vectors", "api", "banner", "emit", "file_names", "input_type", "internal_functions",
+           "isr_names", "test_dir", "unit_test"]
