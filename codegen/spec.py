@@ -31,9 +31,18 @@ _REPR.maxlevel, _REPR.maxlist, _REPR.maxdict, _REPR.maxtuple = 2, 4, 3, 4
 _REPR.maxstring, _REPR.maxother, _REPR.maxlong = SHOW_CHARS, SHOW_CHARS, SHOW_CHARS
 
 
-def cut(text: str) -> str:
-    """``text`` cut to about SHOW_CHARS characters."""
-    return text if len(text) <= SHOW_CHARS else text[:SHOW_CHARS - 3] + "..."
+PATH_CHARS = 300        # a file path is shown whole up to this length (its end names the file)
+
+
+def cut(text: str, limit: int = SHOW_CHARS) -> str:
+    """``text`` cut to about ``limit`` characters."""
+    return text if len(text) <= limit else text[:limit - 3] + "..."
+
+
+def cut_path(path) -> str:
+    """A path as an error line shows it: whole up to PATH_CHARS, else its end."""
+    text = str(path)
+    return text if len(text) <= PATH_CHARS else "..." + text[-(PATH_CHARS - 3):]
 
 
 def show(value) -> str:
@@ -54,7 +63,8 @@ class SpecError(ValueError):
         self.field = field_name
         self.value = value
         self.allowed = allowed
-        super().__init__(f"{cut(field_name)} = {show(value)}: {' '.join(allowed.split())}")
+        shown = repr(cut_path(value)) if field_name in ("(file)", "(toml)") else show(value)
+        super().__init__(f"{cut(field_name)} = {shown}: {' '.join(allowed.split())}")
 
     @property
     def is_argument(self) -> bool:

@@ -11,8 +11,9 @@ mix, and never over a file edgetally did not write.
   before or after the whole set. A run that dies harder (SIGKILL, power loss) between the journal
   and its last rename is completed by the next run into the folder (roll forward), which also
   removes temporary files left before a journal was written.
-- A file is edgetally's when the folder's manifest (``MANIFEST``, written by the same commit)
-  lists it, or when its first lines carry edgetally's banner. ``--force`` replaces only those.
+- A file is edgetally's when its content is what the folder's manifest (``MANIFEST``, written by
+  the same commit: path and SHA-256 of each file written) records, or when its first lines carry
+  edgetally's banner. ``--force`` replaces only those.
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ from __future__ import annotations
 import contextlib
 import errno
 import fcntl
+import hashlib
 import json
 import os
 import signal
@@ -27,7 +29,7 @@ import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..spec import cut
+from ..spec import cut, cut_path
 
 LOCK = ".edgetally.lock"
 JOURNAL = ".edgetally-journal"
@@ -50,7 +52,7 @@ class Outcome:
 
 
 def _say(path: Path) -> str:
-    return cut(str(path))
+    return cut_path(path)
 
 
 def _first_existing(path: Path) -> Path:
@@ -62,23 +64,28 @@ def _first_existing(path: Path) -> Path:
     return p
 
 
-def _manifest(out: Path) -> set[str]:
+def _digest(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def _manifest(out: Path) -> dict[str, str]:
     try:
-        names = json.loads((out / MANIFEST).read_text(encoding="utf-8"))
+        rec = json.loads((out / MANIFEST).read_text(encoding="utf-8"))
     except (OSError, ValueError):
-        return set()
-    return {n for n in names if isinstance(n, str)} if isinstance(names, list) else set()
+        return {}
+    return {k: v for k, v in rec.items() if isinstance(v, str)} if isinstance(rec, dict) else {}
 
 
 def is_ours(out: Path, name: str) -> bool:
-    """True when edgetally wrote ``out/name`` (the manifest lists it, or its banner says so)."""
-    if name in _manifest(out):
-        return True
+    """True when edgetally wrote ``out/name``: the manifest records its content, or its banner
+    says so."""
     try:
-        with open(out / name, "rb") as f:
-            head = f.read(BANNER_BYTES).lower()
+        data = (out / name).read_bytes()
     except OSError:
         return False
+    if _manifest(out).get(name) == _digest(data):
+        return True
+    head = data[:BANNER_BYTES].lower()
     return any(m in head for m in BANNER_MARKS) or (name.endswith(".json") and b'"tool_version"' in head
                                                     and b'"spec_hash"' in head)
 
@@ -102,12 +109,13 @@ def check_folder(out: Path, names, force: bool, contents: dict[str, bytes] | Non
         for parent in list(Path(name).parents)[:-1]:
             sub = out / parent
             if sub.is_symlink() or (os.path.lexists(sub) and not sub.is_dir()):
-                raise FolderError(f"{opt}: {_say(sub)} must be a folder of edgetally's outputs, and is a file or link")
+                raise FolderError(f"{opt}: {cut(parent.as_posix())} must be a folder of edgetally's outputs, and is "
+                                  "a file or a link; move it away")
         if path.is_symlink():
-            raise FolderError(f"{opt}: {_say(path)} is a symbolic link; edgetally writes whole files and will not "
+            raise FolderError(f"{opt}: {cut(name)} is a symbolic link; edgetally writes whole files and will not "
                               "replace a link or write through it; remove it")
         if path.is_dir():
-            raise FolderError(f"{opt}: {_say(path)} is a folder named like an output file; move it away")
+            raise FolderError(f"{opt}: {cut(name)} is a folder named like an output file; move it away")
         if not path.exists():
             continue
         if not is_ours(out, name):
@@ -173,11 +181,12 @@ def _umask() -> int:
     return m
 
 
-def _commit(out: Path, moves: list[tuple[Path, Path]], names: set[str]) -> None:
+def _commit(out: Path, moves: list[tuple[Path, Path]], digests: dict[str, str]) -> None:
     for tmp, final in moves:
         if tmp.exists():
             os.replace(tmp, final)
-    _write_atomic(out / MANIFEST, (json.dumps(sorted(names | _manifest(out)), indent=0) + "\n").encode())
+    rec = {**_manifest(out), **digests}
+    _write_atomic(out / MANIFEST, (json.dumps(rec, indent=1, sort_keys=True) + "\n").encode())
     (out / JOURNAL).unlink(missing_ok=True)
 
 
@@ -189,11 +198,11 @@ def recover(out: Path) -> None:
         try:
             rec = json.loads(journal.read_text(encoding="utf-8"))
             moves = [(out / t, out / f) for t, f in rec["moves"]]
-            names = set(rec["names"])
+            digests = dict(rec["digests"])
         except (OSError, ValueError, KeyError, TypeError):
             raise FolderError(f"-o {_say(out)}: {JOURNAL} is damaged; remove it and emit again") from None
         with _signals_held():
-            _commit(out, moves, names)
+            _commit(out, moves, digests)
     for tmp in list(out.glob(TEMP_PREFIX + "*")) + list(out.glob("*/" + TEMP_PREFIX + "*")):
         tmp.unlink(missing_ok=True)
 
@@ -224,6 +233,7 @@ def write_set(out: Path, files: dict[str, bytes], force: bool) -> list[Outcome]:
             raise
         rel = [[os.path.relpath(t, out), os.path.relpath(f, out)] for t, f in moves]
         with _signals_held():
-            _write_atomic(out / JOURNAL, json.dumps({"moves": rel, "names": sorted(files)}).encode())
-            _commit(out, moves, set(files))
+            digests = {n: _digest(data) for n, data in files.items()}
+            _write_atomic(out / JOURNAL, json.dumps({"moves": rel, "digests": digests}).encode())
+            _commit(out, moves, digests)
     return [Outcome(out / n, "unchanged" if n in same else "written") for n in files]

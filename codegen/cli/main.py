@@ -17,7 +17,7 @@ from .. import __version__
 from . import quality as cli_quality
 from .folder import FORCE_HELP, FolderError, check_folder, write_set
 from . import replay as cli_replay
-from ..spec import Spec, SpecError, cut, load_spec
+from ..spec import Spec, SpecError, cut_path, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
 # when they run, so that a bad spec is refused without loading them.
@@ -437,7 +437,7 @@ def main(argv: list[str] | None = None) -> int:
     except SpecError as e:
         if args.debug:
             traceback.print_exc()
-        where = "argument error" if e.is_argument else f"spec error in {cut(str(getattr(args, 'spec', '?')))}"
+        where = "argument error" if e.is_argument else f"spec error in {cut_path(getattr(args, 'spec', '?'))}"
         print(f"edgetally: {where}: {e}", file=sys.stderr)
         return EXIT_SPEC
     except (UsageError, cli_quality.ArgError, FolderError) as e:
