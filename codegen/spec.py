@@ -64,7 +64,8 @@ class SpecError(ValueError):
         self.value = value
         self.allowed = allowed
         shown = repr(cut_path(value)) if field_name in ("(file)", "(toml)") else show(value)
-        super().__init__(f"{cut(field_name)} = {shown}: {' '.join(allowed.split())}")
+        name = "".join(c if c.isprintable() else repr(c)[1:-1] for c in cut(field_name))
+        super().__init__(f"{name} = {shown}: {' '.join(allowed.split())}")
 
     @property
     def is_argument(self) -> bool:

@@ -17,7 +17,7 @@ from .. import __version__
 from . import quality as cli_quality
 from .folder import FORCE_HELP, FolderError, check_folder, write_set
 from . import replay as cli_replay
-from ..spec import Spec, SpecError, cut_path, load_spec
+from ..spec import MIN_AUDIO_HZ, Spec, SpecError, cut_path, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
 # when they run, so that a bad spec is refused without loading them.
@@ -47,17 +47,24 @@ EXIT_CODES = """exit status:
   130  interrupted"""
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse's parser, refusing on one line like every other refusal (exit 2)."""
+
+    def error(self, message: str):
+        self.exit(EXIT_SPEC, f"edgetally: argument error: {' '.join(message.split())} (see {self.prog} --help)\n")
+
+
 def _global_options(defaults: bool) -> argparse.ArgumentParser:
     """The options every command accepts anywhere on the line. Only the top level sets defaults,
     so that a subcommand's parser does not reset what was given before the command."""
-    g = argparse.ArgumentParser(add_help=False)
+    g = _Parser(add_help=False)
     g.add_argument("--debug", action="store_true", default=False if defaults else argparse.SUPPRESS,
                    help="show tracebacks on errors")
     return g
 
 
 def _parser() -> argparse.ArgumentParser:
-    ap = argparse.ArgumentParser(
+    ap = _Parser(
         prog="edgetally", parents=[_global_options(True)], epilog=EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
         description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.")
@@ -360,6 +367,7 @@ def cmd_verify(args) -> int:
 
 
 MIN_MEASURED_SAMPLES = 64   # output samples a SINAD figure is measured over, at the least
+MIN_BAND_BINS = 8           # spectrum bins in the measured band, at the least
 MAX_SEED = (1 << 32) - 1    # numpy's seed: a non-negative integer; kept to 32 bits for the C harness
 
 
@@ -374,10 +382,12 @@ def check_run_args(args, spec: Spec) -> None:
     _check_seconds(args.seconds)
     if args.seed is not None and not 0 <= args.seed <= MAX_SEED:
         raise SpecError("--seed", args.seed, f"must be a whole number from 0 to {MAX_SEED}")
-    least = MIN_MEASURED_SAMPLES / spec.output.rate_hz
+    # MIN_MEASURED_SAMPLES output samples, and MIN_BAND_BINS spectrum bins between the SINAD band's
+    # lower edge (MIN_AUDIO_HZ) and the audio band's top, or the noise in the band is not measured
+    least = max(MIN_MEASURED_SAMPLES / spec.output.rate_hz, MIN_BAND_BINS / (spec.signal.audio_hz - MIN_AUDIO_HZ))
     if args.seconds < least:
-        raise SpecError("--seconds", args.seconds, f"must be at least {least:.3g} s for this spec "
-                                                   f"({MIN_MEASURED_SAMPLES} output samples at {spec.output.rate_hz} Hz)")
+        raise SpecError("--seconds", args.seconds, f"must be at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} "
+                                                   f"output samples and {MIN_BAND_BINS} spectrum bins in the band)")
 
 
 def cmd_report(args) -> int:
