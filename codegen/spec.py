@@ -10,6 +10,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import re
+import reprlib
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,16 +24,53 @@ C_KEYWORDS = frozenset(
     _Noreturn _Static_assert _Thread_local bool true false NULL""".split()
 )
 MAX_NAME = 24
+SHOW_CHARS = 60          # an error line echoes at most this much of the bad value (or field name)
+
+_REPR = reprlib.Repr()
+_REPR.maxlevel, _REPR.maxlist, _REPR.maxdict, _REPR.maxtuple = 2, 4, 3, 4
+_REPR.maxstring, _REPR.maxother, _REPR.maxlong = SHOW_CHARS, SHOW_CHARS, SHOW_CHARS
+
+
+PATH_CHARS = 300        # a file path is shown whole up to this length (its end names the file)
+
+
+def cut(text: str, limit: int = SHOW_CHARS) -> str:
+    """``text`` cut to about ``limit`` characters."""
+    return text if len(text) <= limit else text[:limit - 3] + "..."
+
+
+def cut_path(path) -> str:
+    """A path as an error line shows it: whole up to PATH_CHARS, else its end."""
+    text = str(path)
+    return text if len(text) <= PATH_CHARS else "..." + text[-(PATH_CHARS - 3):]
+
+
+def show(value) -> str:
+    """``value`` as an error line shows it: its repr, cut to about SHOW_CHARS characters, nested
+    lists and tables shown two levels deep, a huge integer by its length (its digits are never
+    formed: Python refuses to print integers of more than a few thousand digits)."""
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 128:
+        return f"<an integer of about {int(value.bit_length() * math.log10(2)) + 1} digits>"
+    return cut(_REPR.repr(value))
 
 
 class SpecError(ValueError):
-    """A spec field that cannot be accepted: which field, what was there, what is allowed."""
+    """A spec field (or, when ``field`` starts with "-", a command-line option) that cannot be
+    accepted: which field, what was there, what is allowed. Its message is one line: the field and
+    the value are cut to a readable length."""
 
     def __init__(self, field_name: str, value, allowed: str):
         self.field = field_name
         self.value = value
         self.allowed = allowed
-        super().__init__(f"{field_name} = {value!r}: {allowed}")
+        shown = repr(cut_path(value)) if field_name in ("(file)", "(toml)") else show(value)
+        name = "".join(c if c.isprintable() else repr(c)[1:-1] for c in cut(field_name))
+        super().__init__(f"{name} = {shown}: {' '.join(allowed.split())}")
+
+    @property
+    def is_argument(self) -> bool:
+        """True when the bad value came from the command line, not from the spec file."""
+        return self.field.startswith("-")
 
 
 @dataclass(frozen=True)
@@ -123,7 +161,45 @@ _SECTIONS = {
 _TOP = {"name"} | set(_SECTIONS)
 
 
-def _number(tbl: dict, sec: str, key: str, *, default=None, positive=True, allow_zero=False) -> float:
+UINT32_MAX = (1 << 32) - 1
+# The standard test measures SINAD from this frequency up (edgetally.planner.schemes.BAND_LOW_HZ;
+# below is DC, which carries the tuning offset): a band that ends there cannot be measured.
+MIN_AUDIO_HZ = 20.0
+FULL_SCALE_SPAN = 4096   # the IF is at most this many full scales (see _physics)
+
+# The finite range of every number, from what the design code and the emitted C can hold. A value
+# outside is refused here, before any design code runs; cross-field rules follow in _physics.
+LIMITS: dict[str, tuple[float, float, str]] = {
+    # the timer must run at four ticks per IF cycle or more (below) and fits a UINT32_C constant
+    "signal.if_hz": (1.0, UINT32_MAX / 8, "Hz: a timer at 4 ticks per cycle of twice the IF must fit 32 bits"),
+    "signal.deviation_hz": (1e-3, UINT32_MAX / 8, "Hz"),
+    "signal.audio_hz": (1e-3, UINT32_MAX / 8, "Hz"),
+    "signal.deemphasis_us": (0.0, 1e6, "microseconds (0: none)"),
+    # a rate is a UINT32_C constant of the header; above 1 MHz the output filters' poles and the
+    # per-sample budget leave no sensible design on an MCU (common practice, no source)
+    "output.rate_hz": (1, 1_000_000, "samples per second"),
+    "output.full_scale_hz": (1e-3, UINT32_MAX / 8, "Hz"),
+    # 32.768 kHz (a watch crystal) is about the slowest clock an MCU runs on; 5 GHz is above any
+    # MCU (common practice, no source)
+    "target.cpu_hz": (32768.0, 5e9, "Hz (32.768 kHz to 5 GHz)"),
+    "target.timer_hz": (1, UINT32_MAX, "Hz: the header's UINT32_C timer constant holds at most 2**32 - 1"),
+    "target.isr_cycles": (0, 100_000, "cycles"),
+    "target.irq_jitter_cycles": (0, 100_000, "cycles"),
+    "target.cpu_budget": (1e-6, 1.0, "a fraction of the CPU in (0, 1]"),
+    # below 0.05 dB the measured loss of a short simulation is within its own scatter
+    "fixed.loss_limit_db": (0.05, 40.0, "dB"),
+    "fixed.response_tol_db": (1e-3, 6.0, "dB"),
+    "fixed.droop_limit_db": (0.0, 20.0, "dB (0: never compensate)"),
+}
+
+
+def _range(fname: str, v) -> None:
+    lo, hi, unit = LIMITS[fname]
+    if not lo <= v <= hi:   # exact for integers of any size (no conversion to float)
+        raise SpecError(fname, v, f"must be from {lo:g} to {hi:g} {unit}")
+
+
+def _number(tbl: dict, sec: str, key: str, *, default=None) -> float:
     fname = f"{sec}.{key}"
     if key not in tbl:
         if default is None:
@@ -132,28 +208,28 @@ def _number(tbl: dict, sec: str, key: str, *, default=None, positive=True, allow
     v = tbl[key]
     if isinstance(v, bool) or not isinstance(v, (int, float)):
         raise SpecError(fname, v, "must be a number")
-    if not math.isfinite(v):
+    if isinstance(v, float) and not math.isfinite(v):
         raise SpecError(fname, v, "must be a finite number")
-    if positive and (v < 0 or (v == 0 and not allow_zero)):
-        raise SpecError(fname, v, "must be greater than zero" if not allow_zero else "must be zero or more")
+    _range(fname, v)
     return float(v)
 
 
-def _integer(tbl: dict, sec: str, key: str, *, default=None, choices=None, minimum=None) -> int:
+def _integer(tbl: dict, sec: str, key: str, *, default=None, choices=None) -> int:
     fname = f"{sec}.{key}"
     if key not in tbl:
         if default is None:
             raise SpecError(fname, None, "is required (a whole number)")
         return default
     v = tbl[key]
-    if isinstance(v, bool) or not isinstance(v, (int, float)) or (isinstance(v, float) and not v.is_integer()):
+    if (isinstance(v, bool) or not isinstance(v, (int, float))
+            or (isinstance(v, float) and not (math.isfinite(v) and v.is_integer()))):
         raise SpecError(fname, v, "must be a whole number")
-    v = int(v)
-    if choices is not None and v not in choices:
-        raise SpecError(fname, v, "must be one of " + ", ".join(str(c) for c in choices))
-    if minimum is not None and v < minimum:
-        raise SpecError(fname, v, f"must be at least {minimum}")
-    return v
+    if choices is not None:
+        if v not in choices:
+            raise SpecError(fname, v, "must be one of " + ", ".join(str(c) for c in choices))
+    else:
+        _range(fname, v)
+    return int(v)
 
 
 def _flag(tbl: dict, key: str, default: bool) -> bool:
@@ -169,8 +245,8 @@ PRESCALERS = (1, 2, 4, 8)
 def _prescalers(tbl: dict, default: tuple[int, ...]) -> tuple[int, ...]:
     v = tbl.get("capture_prescalers", list(default))
     if (not isinstance(v, list) or not v
-            or any(isinstance(k, bool) or k not in PRESCALERS for k in v) or len(set(v)) != len(v)):
-        raise SpecError("target.capture_prescalers", v, "must be a list of distinct values from 1, 2, 4, 8")
+            or any(type(k) is not int or k not in PRESCALERS for k in v) or len(set(v)) != len(v)):
+        raise SpecError("target.capture_prescalers", v, "must be a list of distinct whole numbers from 1, 2, 4, 8")
     return tuple(sorted(v))
 
 
@@ -219,7 +295,7 @@ def parse_spec(raw: dict) -> Spec:
         if_hz=_number(s, "signal", "if_hz"),
         deviation_hz=_number(s, "signal", "deviation_hz"),
         audio_hz=_number(s, "signal", "audio_hz"),
-        deemphasis_us=_number(s, "signal", "deemphasis_us", default=0.0, allow_zero=True),
+        deemphasis_us=_number(s, "signal", "deemphasis_us", default=0.0),
     )
     o = _section(raw, "output")
     fmt = o.get("format", "s16")
@@ -227,19 +303,19 @@ def parse_spec(raw: dict) -> Spec:
         raise SpecError("output.format", fmt, 'must be "s16" (signed 16-bit PCM) or "u8" .. "u16" '
                                               "(unsigned code with mid-scale offset)")
     out = Output(
-        rate_hz=_integer(o, "output", "rate_hz", minimum=1),
+        rate_hz=_integer(o, "output", "rate_hz"),
         format=fmt,
         full_scale_hz=_number(o, "output", "full_scale_hz", default=sig.deviation_hz),
     )
     t = _section(raw, "target")
     core = t.get("core")
-    if core not in CORES:
+    if not isinstance(core, str) or core not in CORES:
         raise SpecError("target.core", core, "must be one of " + ", ".join(sorted(CORES)))
     prof = CORES[core]
     tgt = Target(
         core=core,
         cpu_hz=_number(t, "target", "cpu_hz"),
-        timer_hz=_integer(t, "target", "timer_hz", minimum=1),
+        timer_hz=_integer(t, "target", "timer_hz"),
         timer_bits=_integer(t, "target", "timer_bits", default=32, choices=(16, 32)),
         counter_bits=_integer(t, "target", "counter_bits", default=16, choices=(16, 32)),
         has_capture=_flag(t, "has_capture", prof.has_capture),
@@ -250,12 +326,10 @@ def parse_spec(raw: dict) -> Spec:
         counter_dma=_flag(t, "counter_dma", False),
         hw_divide=_flag(t, "hw_divide", prof.hw_divide),
         mul64=_flag(t, "mul64", prof.mul64),
-        isr_cycles=_integer(t, "target", "isr_cycles", default=prof.isr_cycles, minimum=0),
-        irq_jitter_cycles=_integer(t, "target", "irq_jitter_cycles", default=prof.irq_jitter_cycles, minimum=0),
+        isr_cycles=_integer(t, "target", "isr_cycles", default=prof.isr_cycles),
+        irq_jitter_cycles=_integer(t, "target", "irq_jitter_cycles", default=prof.irq_jitter_cycles),
         cpu_budget=_number(t, "target", "cpu_budget", default=0.5),
     )
-    if tgt.cpu_budget > 1:
-        raise SpecError("target.cpu_budget", tgt.cpu_budget, "must be a fraction in (0, 1]")
 
     fx = _fixed(raw)
     _physics(sig, out, tgt, warnings)
@@ -276,7 +350,7 @@ def _fixed(raw: dict) -> Fixed:
         response_tol_db=_number(f, "fixed", "response_tol_db", default=0.05),
         scaling=f.get("scaling", "l1"),
         arith=f.get("arith", "auto"),
-        droop_limit_db=_number(f, "fixed", "droop_limit_db", default=0.0, allow_zero=True),
+        droop_limit_db=_number(f, "fixed", "droop_limit_db", default=0.0),
     )
     if fx.scaling != "l1" and fx.arith == "narrow":
         raise SpecError("fixed.scaling", fx.scaling, 'the narrow arithmetic has 32-bit accumulators and needs "l1"')
@@ -293,6 +367,9 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
         # Common practice, no source: an IF of two to four times the peak deviation is usual.
         warnings.append(f"signal.if_hz {f0:g} Hz is under twice the peak deviation ({df:g} Hz); "
                         "two to four times is usual, and the lowest edge rate is small")
+    if sig.audio_hz <= MIN_AUDIO_HZ:
+        raise SpecError("signal.audio_hz", sig.audio_hz,
+                        f"must be above {MIN_AUDIO_HZ:g} Hz, where the standard test's measurement band starts")
     if out.rate_hz <= 2 * sig.audio_hz:
         raise SpecError("output.rate_hz", out.rate_hz,
                         f"must exceed twice signal.audio_hz ({2 * sig.audio_hz:g} Hz)")
@@ -323,6 +400,14 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
     if tgt.timer_hz % out.rate_hz:
         raise SpecError("output.rate_hz", out.rate_hz,
                         f"must divide target.timer_hz ({tgt.timer_hz}) exactly, so the sample grid locks to the timer")
+    # The output's full scale is a frequency swing about the IF: a swing of the IF or more would
+    # take the frequency through zero, and one far below the IF leaves the scale stage no bits
+    # for the swing from the IF down to zero (the data word holds about 2**12 full scales at the
+    # least, 16-bit data with headroom for the step limit).
+    if not f0 / FULL_SCALE_SPAN <= out.full_scale_hz < f0:
+        raise SpecError("output.full_scale_hz", out.full_scale_hz,
+                        f"must be below signal.if_hz ({f0:g} Hz) and at least 1/{FULL_SCALE_SPAN} of it "
+                        f"({f0 / FULL_SCALE_SPAN:.4g} Hz)")
     if out.full_scale_hz < 0.5 * df:
         warnings.append(f"output.full_scale_hz {out.full_scale_hz:g} Hz is under half the peak deviation; "
                         "loud passages will saturate")
@@ -341,4 +426,6 @@ def load_spec(path: str | Path) -> Spec:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
         raise SpecError("(toml)", str(p), f"is not valid TOML: {e}") from None
+    except RecursionError:
+        raise SpecError("(toml)", str(p), "nests arrays or tables too deeply to read") from None
     return parse_spec(raw)

@@ -21,8 +21,9 @@ import edgetally
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 ORCHARD = EXAMPLES / "orchard_link.toml"
 CAMPUS = EXAMPLES / "campus_fm.toml"
-ORCHARD_FILES = {"orchard.h", "orchard.c", "orchard_port.c", "orchard_design.json", "orchard_test.c", "orchard_vectors.h",
-                 "Makefile", "CMakeLists.txt"}
+# the unit test sits in a subfolder of its own, so its build files cannot meet the user's
+ORCHARD_FILES = {"orchard.h", "orchard.c", "orchard_port.c", "orchard_design.json", "orchard_test/orchard_test.c",
+                 "orchard_test/orchard_vectors.h", "orchard_test/Makefile", "orchard_test/CMakeLists.txt"}
 
 
 def _cli(*args) -> subprocess.CompletedProcess:
@@ -31,7 +32,10 @@ def _cli(*args) -> subprocess.CompletedProcess:
 
 
 def _tree(folder: Path) -> dict[str, bytes]:
-    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+    """Every file under ``folder`` by its relative path, without edgetally's hidden bookkeeping
+    (the lock file and the manifest)."""
+    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*"))
+            if p.is_file() and not p.name.startswith(".")}
 
 
 @pytest.fixture(scope="module")
@@ -72,7 +76,7 @@ def runs(tmp_path_factory):
 def test_emit_writes_header_source_and_design(runs):
     r, folder = runs["emit-a"], runs["folders"]["a"]
     assert r.returncode == 0, r.stderr
-    assert {p.name for p in folder.iterdir()} == ORCHARD_FILES
+    assert set(_tree(folder)) == ORCHARD_FILES
     assert sorted(r.stdout.splitlines()) == sorted(f"written: {folder / n}" for n in ORCHARD_FILES)
     design = json.loads((folder / "orchard_design.json").read_text(encoding="utf-8"))
     assert design["name"] == "orchard"
@@ -81,7 +85,7 @@ def test_emit_writes_header_source_and_design(runs):
 def test_emit_creates_missing_nested_folder(runs):
     r, folder = runs["emit-b"], runs["folders"]["b"]
     assert r.returncode == 0, r.stderr
-    assert {p.name for p in folder.iterdir()} == ORCHARD_FILES
+    assert set(_tree(folder)) == ORCHARD_FILES
 
 
 def test_emit_is_deterministic(runs):

@@ -1,4 +1,4 @@
-"""The desktop unit test that emit writes beside the C: it passes with make and with CMake in a
+"""The desktop unit test that emit writes in its own subfolder beside the C: it passes with make and with CMake in a
 fresh folder, and fails with the failing index when one expected value is altered."""
 
 import re
@@ -12,10 +12,13 @@ from conftest import EXAMPLES
 
 
 def _emit(tmp_path, example):
+    """Emit into ``tmp_path``; the unit test's own folder (the one subfolder emit makes)."""
     r = subprocess.run([sys.executable, "-m", "edgetally", "emit", str(EXAMPLES / example), "-o", str(tmp_path)],
                        capture_output=True, text=True)
     assert r.returncode == 0, r.stderr
-    return tmp_path
+    (folder,) = [p for p in tmp_path.iterdir() if p.is_dir()]
+    assert folder.name.endswith("_test") and (folder / "Makefile").exists()
+    return folder
 
 
 @pytest.mark.parametrize("example", ["tiny_irq.toml", "bench_counter.toml"])

@@ -1,6 +1,7 @@
 """The thin command line over the edgetally API: parse, call, print, map errors to exit codes.
 
 Exit status: 0 success; 1 a check failed or an internal error; 2 a bad spec or bad arguments.
+Global options (--debug) are accepted anywhere on the line, before or after the command.
 """
 
 from __future__ import annotations
@@ -15,8 +16,9 @@ from pathlib import Path
 
 from .. import __version__
 from . import quality as cli_quality
+from .folder import FORCE_HELP, FolderError, check_folder, write_set
 from . import replay as cli_replay
-from ..spec import Spec, SpecError, load_spec
+from ..spec import MIN_AUDIO_HZ, Spec, SpecError, cut_path, load_spec
 
 # The commands import the planner, the designer and the host build (scipy, jinja2, cffi) only
 # when they run, so that a bad spec is refused without loading them.
@@ -37,13 +39,42 @@ def _add_scheme_args(p: argparse.ArgumentParser) -> None:
                    help="force how the MCU sees the edges (default: the planner's choice)")
 
 
+EXIT_CODES = """exit status:
+  0    done (verify, widths, replay, report: every check passed)
+  1    a check failed (the C differs from the model, a width does not fit, a hostile scenario
+       failed) or an internal error of edgetally (please report it; --debug shows the traceback)
+  2    a bad spec, argument or file: one line names the field or option, the value and what is
+       allowed
+  130  interrupted"""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse's parser, refusing on one line like every other refusal (exit 2)."""
+
+    def error(self, message: str):
+        self.exit(EXIT_SPEC, f"edgetally: argument error: {' '.join(message.split())} (see {self.prog} --help)\n")
+
+
+def _global_options(defaults: bool) -> argparse.ArgumentParser:
+    """The options every command accepts anywhere on the line. Only the top level sets defaults,
+    so that a subcommand's parser does not reset what was given before the command."""
+    g = _Parser(add_help=False)
+    g.add_argument("--debug", action="store_true", default=False if defaults else argparse.SUPPRESS,
+                   help="show tracebacks on errors")
+    return g
+
+
 def _parser() -> argparse.ArgumentParser:
-    ap = argparse.ArgumentParser(
-        prog="edgetally",
+    ap = _Parser(
+        prog="edgetally", parents=[_global_options(True)], epilog=EXIT_CODES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
         description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.")
     ap.add_argument("--version", action="version", version=f"edgetally {__version__}")
-    ap.add_argument("--debug", action="store_true", help="show tracebacks on errors")
     sub = ap.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    common = dict(parents=[_global_options(False)], epilog=EXIT_CODES,
+                  formatter_class=argparse.RawDescriptionHelpFormatter)
+    _add_parser = sub.add_parser   # every command (replay's too) gets the global options and the exit codes
+    sub.add_parser = lambda name, **kw: _add_parser(name, **common, **kw)
 
     p = sub.add_parser("plan", help="show what was chosen and why")
     _add_scheme_args(p)
@@ -58,9 +89,10 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("emit", help="write the C header and source (and the Design as JSON)")
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
-    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--force", action="store_true", help=FORCE_HELP)
     p.add_argument("--no-test", action="store_true",
-                   help="leave out the desktop unit test (<name>_test.c, vectors, Makefile, CMakeLists.txt)")
+                   help="leave out the desktop unit test (the <name>_test/ folder: <name>_test.c, vectors, "
+                        "Makefile, CMakeLists.txt)")
 
     p = sub.add_parser("widths", help="show the word-length table and overflow margins, or check your own widths")
     _add_scheme_args(p)
@@ -93,7 +125,7 @@ def _parser() -> argparse.ArgumentParser:
                                       "sweeps, hostile conditions, budget")
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
-    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--force", action="store_true", help=FORCE_HELP)
     p.add_argument("--seconds", type=float, default=1.0, help="length of the standard test signal (default 1)")
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signals (default fixed)")
     p.add_argument("--no-target", action="store_true", help="leave out the emulated target runs")
@@ -164,6 +196,9 @@ def cmd_plan(args) -> int:
     from ..check.choice import settle
 
     pl = settle(spec, scheme=args.scheme)
+    from ..designer.assemble import design as make_design
+
+    make_design(spec, pl)   # what plan accepts, emit, verify and widths build: the [fixed] targets refuse here too
     sims = None
     if args.simulate:
         from ..check.choice import simulate_options
@@ -229,6 +264,9 @@ def _measured_plan(spec: Spec, pl, scheme):
 def cmd_emit(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
+    from ..emit import file_names
+
+    check_folder(Path(args.out), file_names(spec.name, test=not args.no_test), args.force)
     from ..check.choice import design as make_design
     from ..emit import emit
 
@@ -240,20 +278,8 @@ def cmd_emit(args) -> int:
         from ..check.vectors import test_vectors
 
         files.update(unit_test(d, test_vectors(d)))
-    out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"-o {out}: exists and is not a folder")
-    clashes = [n for n, text in files.items()
-               if (out / n).exists() and (out / n).read_text(encoding="utf-8", errors="replace") != text]
-    if clashes and not args.force:
-        raise UsageError(f"-o {out}: {', '.join(clashes)} exist with other content; use --force to overwrite")
-    out.mkdir(parents=True, exist_ok=True)
-    for n, text in files.items():
-        path = out / n
-        state = "unchanged" if path.exists() and path.read_text(encoding="utf-8", errors="replace") == text else "written"
-        if state == "written":
-            path.write_text(text, encoding="utf-8")
-        print(f"{state}: {path}")
+    for o in write_set(Path(args.out), {n: text.encode("utf-8") for n, text in files.items()}, args.force):
+        print(f"{o.state}: {o.path}")
     return EXIT_OK
 
 
@@ -278,11 +304,12 @@ def cmd_verify(args) -> int:
     _check_seconds(args.seconds)
     for opt, v in (("--loss-ms", args.loss_ms), ("--burst-ms", args.burst_ms)):
         if not (math.isfinite(v) and 0 < v <= 1000):
-            raise UsageError(f"{opt} {v:g}: must be a time in (0, 1000] ms")
+            raise SpecError(opt, v, "must be a time in (0, 1000] ms")
     points = cli_quality.parse_points(args.points)
     if points is not None and not args.sweep:
         raise UsageError("--points needs --sweep")
     spec = load_spec(args.spec)
+    check_run_args(args, spec)
     warn_spec(spec)
     from ..check.choice import design as make_design
 
@@ -329,7 +356,7 @@ def cmd_verify(args) -> int:
                 if t["isa_violations"]:
                     print(f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
                           f"first {t['isa_violations'][0]}")
-        else:
+        elif not args.no_target:
             print("  target runs: skipped (needs a cross compiler, e.g. Debian's gcc-arm-none-eabi, and the emulator: "
                   "the package's target extra, pip install '.[target]')")
         for s in sw:
@@ -342,14 +369,34 @@ def cmd_verify(args) -> int:
     return EXIT_OK if ok else EXIT_FAIL
 
 
+MIN_MEASURED_SAMPLES = 64   # output samples a SINAD figure is measured over, at the least
+MIN_BAND_BINS = 8           # spectrum bins in the measured band, at the least
+MAX_SEED = (1 << 32) - 1    # numpy's seed: a non-negative integer; kept to 32 bits for the C harness
+
+
 def _check_seconds(seconds: float) -> None:
     if not (seconds > 0 and math.isfinite(seconds)) or seconds > 600:
-        raise UsageError(f"--seconds {seconds}: must be a number of seconds in (0, 600]")
+        raise SpecError("--seconds", seconds, "must be a number of seconds in (0, 600]")
+
+
+def check_run_args(args, spec: Spec) -> None:
+    """The test-signal options of verify and report, against the spec: a seed numpy accepts, and
+    a signal long enough to measure (MIN_MEASURED_SAMPLES output samples)."""
+    _check_seconds(args.seconds)
+    if args.seed is not None and not 0 <= args.seed <= MAX_SEED:
+        raise SpecError("--seed", args.seed, f"must be a whole number from 0 to {MAX_SEED}")
+    # MIN_MEASURED_SAMPLES output samples, and MIN_BAND_BINS spectrum bins between the SINAD band's
+    # lower edge (MIN_AUDIO_HZ) and the audio band's top, or the noise in the band is not measured
+    least = max(MIN_MEASURED_SAMPLES / spec.output.rate_hz, MIN_BAND_BINS / (spec.signal.audio_hz - MIN_AUDIO_HZ))
+    if args.seconds < least:
+        raise SpecError("--seconds", args.seconds, f"must be at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} "
+                                                   f"output samples and {MIN_BAND_BINS} spectrum bins in the band)")
 
 
 def cmd_report(args) -> int:
     _check_seconds(args.seconds)
     spec = load_spec(args.spec)
+    check_run_args(args, spec)
     warn_spec(spec)
     from ..check.choice import design_and_plan
 
@@ -408,10 +455,13 @@ def main(argv: list[str] | None = None) -> int:
     except SpecError as e:
         if args.debug:
             traceback.print_exc()
-        print(f"edgetally: spec error in {getattr(args, 'spec', '?')}: {e}", file=sys.stderr)
+        where = "argument error" if e.is_argument else f"spec error in {cut_path(getattr(args, 'spec', '?'))}"
+        print(f"edgetally: {where}: {e}", file=sys.stderr)
         return EXIT_SPEC
-    except (UsageError, cli_quality.ArgError) as e:
-        print(f"edgetally: error: {e}", file=sys.stderr)
+    except (UsageError, cli_quality.ArgError, FolderError) as e:
+        if args.debug:
+            traceback.print_exc()
+        print(f"edgetally: error: {' '.join(str(e).split())}", file=sys.stderr)
         return EXIT_SPEC
     except KeyboardInterrupt:
         print("edgetally: interrupted", file=sys.stderr)

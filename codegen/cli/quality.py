@@ -6,6 +6,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from .folder import check_folder, write_set
 from .progress import Progress
 
 
@@ -89,22 +90,17 @@ def print_scenarios(results) -> None:
 def cmd_report(args, spec, design, plan_obj) -> int:
     """Make the report (edgetally.report_make), write its files, print one summary line."""
     from ..report import make as report_make
+    from ..report import page as report_page
     from ..stimulus.inputs import DEFAULT_SEED
 
     out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise ArgError(f"-o {out}: exists and is not a folder")
+    check_folder(out, report_page.file_names(design), args.force)   # before the long computation
     seed = DEFAULT_SEED if args.seed is None else args.seed
     with Progress(report_make.steps(design), f"report '{design.name}'", sys.stderr.isatty()) as bar:
         made = report_make.make(spec, plan_obj, design, seconds=args.seconds, seed=seed, targets=not args.no_target,
                                 progress=bar)
-    clashes = [n for n, data in made.files.items() if (out / n).exists() and (out / n).read_bytes() != data]
-    if clashes and not args.force:
-        raise ArgError(f"-o {out}: {', '.join(clashes)} exist with other content; use --force to overwrite")
-    out.mkdir(parents=True, exist_ok=True)
-    for n, data in made.files.items():
-        (out / n).write_bytes(data)
-        print(f"written: {out / n}")
+    for o in write_set(out, made.files, args.force):
+        print(f"{o.state}: {o.path}")
     res, failed = made.verify, made.failed_scenarios
     print(f"report '{design.name}': emitted C {'bit-exact' if res.bit_exact else 'NOT bit-exact'}, "
           f"SINAD {res.sinad_db:.2f} dB, sweeps {'bit-exact' if made.sweeps_bit_exact else 'NOT bit-exact'}, "

@@ -8,6 +8,8 @@ import json
 import math
 from pathlib import Path
 
+from .folder import FORCE_HELP, check_folder, write_set
+
 FORMATS = ("vcd", "csv", "bin", "wav", "sigmf")     # edgetally.stimulus.recordings.FORMATS
 SCHEMES = ("timestamp", "interrupt", "counter")
 
@@ -32,7 +34,7 @@ def add_parser(subparsers) -> None:
                    help="bin: bits per word (default the timer's or counter's width; wider words are unwrapped values)")
     p.add_argument("--json", action="store_true", help="print the summary as one JSON object")
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder for the WAV and the page (made if missing)")
-    p.add_argument("--force", action="store_true", help="overwrite files whose content differs")
+    p.add_argument("--force", action="store_true", help=FORCE_HELP)
 
 
 def run(args) -> int:
@@ -45,8 +47,7 @@ def run(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
     out = Path(args.out)
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"-o {out}: exists and is not a folder")
+    check_folder(out, (f"{spec.name}_replay.wav", f"{spec.name}_replay.html"), args.force)
     from ..check.replay import replay, replay_files, summary_lines
     from ..check.choice import design as make_design
     from ..stimulus.recordings import RecordingError, load
@@ -58,12 +59,7 @@ def run(args) -> int:
         raise UsageError(str(e)) from None
     res = replay(d, rec)
     files = replay_files(d, rec, res)
-    clashes = [n for n, b in files.items() if (out / n).exists() and (out / n).read_bytes() != b]
-    if clashes and not args.force:
-        raise UsageError(f"-o {out}: {', '.join(clashes)} exist with other content; use --force to overwrite")
-    out.mkdir(parents=True, exist_ok=True)
-    for n, b in files.items():
-        (out / n).write_bytes(b)
+    write_set(out, files, args.force)
     if args.json:
         print(json.dumps(json_safe({**res.to_dict(), "files": [str(out / n) for n in files]}), indent=2))
     else:

@@ -134,6 +134,16 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     return sorted(opts, key=lambda o: o.cycles_per_output)
 
 
+def _refuse_targets(spec: Spec, best: WidthOption) -> None:
+    """SpecError naming the [fixed] target that no word lengths meet (``best``: the widest try)."""
+    fx = spec.fixed
+    if best.loss_db > fx.loss_limit_db:
+        raise SpecError("fixed.loss_limit_db", fx.loss_limit_db,
+                        f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB; allow more loss")
+    raise SpecError("fixed.response_tol_db", fx.response_tol_db,
+                    f"cannot be met: the quantised filters are {best.response_error_db:.3f} dB off; allow more")
+
+
 def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:
     """The complete integer design for ``spec`` (planned here, with ``scheme`` forced if given,
     unless a plan is given). ``overrides`` fixes output-chain word lengths (keys of OVERRIDABLE)."""
@@ -146,8 +156,15 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     good = [o for o in opts if o.ok]
     pick = good[0] if good else next((o for o in reversed(opts) if o.filters is not None), None)
     if pick is None or pick.filters is None:
-        raise SpecError("fixed", spec.fixed.arith, "no word lengths give a stable quantised filter: " + opts[0].reason)
+        raise SpecError("fixed.arith", spec.fixed.arith, "no word lengths give a stable quantised filter: " + opts[0].reason)
+    if not good and not overrides:
+        # the [fixed] targets bind every command as they bind `widths` (the user's own word
+        # lengths, given as overrides, are what `widths` checks and may fail)
+        _refuse_targets(spec, pick)
     f, q_in = pick.filters, pick.q_in
+    if q_in < 0:
+        raise SpecError("output.full_scale_hz", out.full_scale_hz,
+                        "is too small a fraction of the IF for the output chain's data word; raise it")
     unit, y_max = _units(p)
     centre = round(Fraction(sig.if_hz) / unit)
     gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB

@@ -213,17 +213,35 @@ class Vectors:
     block: int = 256
 
 
+def test_dir(name: str) -> str:
+    """The subfolder of the desktop unit test, beside the C: its own folder, so that its Makefile
+    and CMakeLists.txt never meet the user's build files."""
+    return f"{name}_test"
+
+
+def file_names(name: str, test: bool = True, design_json: bool = True) -> tuple[str, ...]:
+    """Every path (relative to the output folder) emit writes for a design called ``name``: the
+    C (``emit``), the Design as JSON, and with ``test`` the unit test's folder (``unit_test``)."""
+    names = [f"{name}.h", f"{name}.c", f"{name}_port.c"] + ([f"{name}_design.json"] if design_json else [])
+    if test:
+        t = test_dir(name)
+        names += [f"{t}/{name}_test.c", f"{t}/{name}_vectors.h", f"{t}/Makefile", f"{t}/CMakeLists.txt"]
+    return tuple(names)
+
+
 def unit_test(design: Design, vectors: Vectors) -> dict[str, str]:
-    """The desktop unit test around the emitted C: <name>_test.c, <name>_vectors.h, a Makefile
-    (``make test``) and a CMakeLists.txt (``ctest``)."""
+    """The desktop unit test around the emitted C, in its own subfolder (``test_dir``):
+    <name>_test.c, <name>_vectors.h, a Makefile (``make test``) and a CMakeLists.txt (``ctest``),
+    which build the C of the folder above."""
     env = _env()
     p = design.name
     ctx = dict(d=design, p=p, P=p.upper(), banner=banner(design), vectors=vectors)
+    t = test_dir(p)
     return {
-        f"{p}_test.c": env.get_template("unit_test.c.j2").render(ctx),
-        f"{p}_vectors.h": env.get_template("vectors.h.j2").render(ctx),
-        "Makefile": env.get_template("Makefile.j2").render(ctx),
-        "CMakeLists.txt": env.get_template("CMakeLists.txt.j2").render(ctx),
+        f"{t}/{p}_test.c": env.get_template("unit_test.c.j2").render(ctx),
+        f"{t}/{p}_vectors.h": env.get_template("vectors.h.j2").render(ctx),
+        f"{t}/Makefile": env.get_template("Makefile.j2").render(ctx),
+        f"{t}/CMakeLists.txt": env.get_template("CMakeLists.txt.j2").render(ctx),
     }
 
 

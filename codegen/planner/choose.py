@@ -104,7 +104,7 @@ def _checked_filters(spec: Spec) -> list:
 
 def _queue_len(per_out: float) -> int:
     """Inputs queued between two services: four output periods' worth, a power of two, >= 16."""
-    return max(16, 1 << math.ceil(math.log2(4 * per_out)))
+    return max(16, 1 << max(0, math.ceil(math.log2(4 * per_out))))
 
 
 def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: int):

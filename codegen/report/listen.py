@@ -150,6 +150,11 @@ def run_c(design: Design, sig, seconds: float, seed: int, host: hostbuild.HostDe
     return out[int(round(LEAD_S * design.rates.out_hz)):]
 
 
+def clip_names(design: Design) -> tuple[str, str, str]:
+    """The WAV files of the three listening clips: the standard tone, two tones, the sweep."""
+    return tuple(f"{design.name}_{kind}.wav" for kind in ("tone", "two_tone", "sweep"))
+
+
 def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
           host: hostbuild.HostDemod | None = None) -> tuple[Clip, ...]:
     """The three listening clips of ``seconds`` each, from the emitted C."""
@@ -157,12 +162,13 @@ def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
     rng = np.random.default_rng(seed)
     p, top = design.name, band_top_hz(design)
     tt = two_tone_signal(design, rng)
+    tone_wav, two_tone_wav, sweep_wav = clip_names(design)
     made = [
-        (f"{p}_tone.wav", f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
+        (tone_wav, f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
                           "deviation", standard_signal(design, rng)),
-        (f"{p}_two_tone.wav", "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
+        (two_tone_wav, "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
          + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation", tt),
-        (f"{p}_sweep.wav", f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "
+        (sweep_wav, f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "
                            f"{seconds:g} s at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
          sweep_signal(design, seconds, rng)),
     ]

@@ -424,6 +424,11 @@ def report_name(design: Design) -> str:
     return f"{design.name}_report.html"
 
 
+def file_names(design: Design) -> tuple[str, ...]:
+    """The names report_files gives its files, known before anything is computed."""
+    return (report_name(design), *listen.clip_names(design))
+
+
 def report_files(spec: Spec, plan: Plan, design: Design, result: VerifyResult, sweeps: tuple = (),
                  hostile: tuple = (), seconds: float = 2.0, seed: int = DEFAULT_SEED, host=None) -> dict[str, bytes]:
     """Every file of the report: the page and its WAV files, {file name: bytes}. Runs the three
