@@ -156,7 +156,7 @@ def test_plan_json_is_one_object(runs):
     obj = json.loads(r.stdout)  # fails on anything but one JSON document
     assert isinstance(obj, dict)
     assert {"scheme", "ratio", "grid_hz", "options"} <= set(obj)
-    assert obj["scheme"] == "timestamp"
+    assert obj["scheme"] == "timestamp"  # orchard_link: capture, linear (the settled choice)
     assert isinstance(obj["options"], list) and obj["options"]
     # The grid is the output rate times the CIC ratio (orchard: 8000 Hz output).
     assert obj["grid_hz"] == 8000 * obj["ratio"]

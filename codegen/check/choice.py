@@ -3,8 +3,9 @@
 ``settle(spec)`` plans as ``edgetally.plan`` does, then simulates briefly (the float reference of
 each option on SIM_SECONDS of the standard test, deterministic seed) every feasible option that is
 marked doubtful or predicted within CLOSE_DB of the chosen one, and chooses on the simulated
-figure: cheapest first, a costlier option wins only by more than the planner's tie margin, so no
-option is chosen whose simulated SINAD is below that of a cheaper contender. The plan's notes say
+figure: cheapest first, a costlier option wins only by more than the planner's tie margin (between options
+equal in cost within the cycle tables' accuracy, the better simulated figure wins), so no option is
+chosen whose simulated SINAD is below that of a clearly cheaper contender. The plan's notes say
 which simulated figures decided.
 
 ``design(spec)`` makes the settled plan's design and checks its filter arithmetic by simulation
@@ -31,6 +32,9 @@ CLOSE_DB = 3.0          # options predicted within this of the chosen one are si
 # up to about 15 dB in either direction on the bundled examples (plan --simulate); doubtful options
 # predicted further below the chosen one than that cannot win and are not simulated.
 DOUBT_DB = 15.0
+# The calibrated cycle tables hold the planned loads within a few per cent of the emulated ones
+# (tests/test_cost_tables.py bounds them at 10 %): options closer in load than this are equal in cost.
+COST_TIE = 0.03
 SIM_SECONDS = 0.2       # of the standard test, after its lead-in: enough tone periods for the SINAD meter
 
 
@@ -68,7 +72,10 @@ def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, 
     sims = {o: simulate_option(spec, o, seconds, seed) for o in contenders}
     best = None
     for o in sorted(contenders, key=lambda o: o.load):
-        if best is None or sims[o] > sims[best] + TIE_DB:
+        # loads within COST_TIE of each other cost the same as far as the cycle tables can tell:
+        # between those the better simulated SINAD wins; a costlier option must gain over TIE_DB
+        same_cost = best is not None and o.load <= best.load * (1 + COST_TIE)
+        if best is None or sims[o] > sims[best] + (0.0 if same_cost else TIE_DB):
             best = o
     figures = ", ".join(f"{o.scheme} {o.variant} {sims[o]:.1f} dB (predicted {o.predicted_sinad_db:.1f}, "
                         f"CPU {o.load:.1%})" for o in sorted(contenders, key=lambda o: o.load))
