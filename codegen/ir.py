@@ -13,6 +13,8 @@ import types
 import typing
 from dataclasses import dataclass
 
+from .standard import StandardTest, standard_test
+
 
 class Topology(enum.Enum):
     """How the MCU sees the edges: the one typed value every consumer branches on (derived from the
@@ -248,6 +250,11 @@ class Design:
         if self.scheme == "interrupt":
             return Topology.EDGE_STAMP if self.front.kind == "stamp" else Topology.EDGE_COUNT
         return Topology.COUNTER
+
+    @property
+    def test(self) -> StandardTest:
+        """The standard test for this design's audio band (``edgetally.standard``)."""
+        return standard_test(self.audio_hz)
 
     @property
     def stamps(self) -> bool:

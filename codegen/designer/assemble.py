@@ -18,9 +18,9 @@ from ..dsp import iir
 from ..planner import schemes
 from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
 from ..planner.choose import REG_BITS, Plan, plan
+from .. import standard
 from ..spec import Spec, SpecError
 
-DC_CORNER_HZ = 2.0      # offset tracker corner: far below any audio band (common practice, no source)
 SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)
 OVERRIDABLE = {"arith": str, "data_bits": int, "coef_bits": int, "coef_width": int, "acc_bits": int, "scaling": str}
 
@@ -112,7 +112,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
         err = wordlength.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
-        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
+        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, standard.band_lo_hz(spec.signal.audio_hz),
                                      spec.signal.audio_hz)
         loss = 10 * math.log10(1 + noise / signal_fs2)
         needed = f.coef_bits
@@ -153,7 +153,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     mult = round(gain * (1 << shift))
-    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
+    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
     cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,

@@ -217,7 +217,7 @@ def run_scenario(design: Design, name: str, host=None, options: Options = Option
     fit_from = n_end + int(round((pred + GUARD_S) * design.rates.out_hz))
     basis = recovery.step_basis(y.size, n_end, design.scale.dc_shift)
     if not case.step:
-        basis = np.column_stack([basis, recovery.tone_basis(y.size, schemes.TEST_TONE_HZ, design.rates.out_hz)[:, 1:]])
+        basis = np.column_stack([basis, recovery.tone_basis(y.size, design.test.tone_hz, design.rates.out_hz)[:, 1:]])
     e, rms = recovery.residual(y, basis, min(fit_from, y.size - 16))
     thr = max(recovery.THRESHOLD_FS, recovery.NOISE_SIGMAS * rms)
     if thr > thr0:

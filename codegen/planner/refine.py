@@ -5,8 +5,7 @@ from __future__ import annotations
 
 from ..check import reference
 from ..measure import metrics
-from . import schemes
-from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
+from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
 
 def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_SEED) -> dict[tuple[str, str], float]:
@@ -22,7 +21,8 @@ def simulate_options(spec, plan_obj, seconds: float = 0.25, seed: int = DEFAULT_
         d = make_design(spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio))
         inputs = make_inputs(d, seconds, seed)
         ref = reference.run(d, inputs)
-        skip = int(round(LEAD_S * d.rates.out_hz))
-        out[(o.scheme, o.variant)] = round(metrics.sinad_db(ref[skip:], d.rates.out_hz, schemes.TEST_TONE_HZ,
-                                                            schemes.BAND_LOW_HZ, d.audio_hz), 2)
+        test = d.test
+        skip = int(round(test.lead_s * d.rates.out_hz))
+        out[(o.scheme, o.variant)] = round(metrics.sinad_db(ref[skip:], d.rates.out_hz, test.tone_hz,
+                                                            test.band_lo_hz, test.band_hi_hz), 2)
     return out

@@ -158,7 +158,7 @@ def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
     p, top = design.name, band_top_hz(design)
     tt = two_tone_signal(design, rng)
     made = [
-        (f"{p}_tone.wav", f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
+        (f"{p}_tone.wav", f"standard test: {design.test.tone_hz:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
                           "deviation", standard_signal(design, rng)),
         (f"{p}_two_tone.wav", "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
          + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation", tt),
