@@ -56,6 +56,7 @@ class VerifyResult:
     c_seconds: float
     model_seconds: float
     widths: dict
+    squelch: dict = None                      # the design's squelch and, when measured, its figures on the noisy IF
     target_bit_exact: bool | None = None     # None: not run (no cross compiler or emulator)
     target: dict = None                       # per core: bit_exact, cycles per event, sizes
 
@@ -111,9 +112,10 @@ def test_seconds(design: Design, seconds: float | None) -> float:
 
 
 def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEED, cnr_db: float | None = None,
-           progress: Callable[[str], None] | None = None, targets: bool = False) -> VerifyResult:
+           progress: Callable[[str], None] | None = None, targets: bool = False, squelch: bool = False) -> VerifyResult:
     """Run the whole check. ``progress`` (optional) is told each step as it starts; ``targets``
-    adds the cross-compiled runs in the emulator (target_check)."""
+    adds the cross-compiled runs in the emulator (target_check); ``squelch`` measures the noise
+    squelch's switching CNRs on the simulated noisy IF (measure.squelch)."""
     say = progress or (lambda _msg: None)
     seconds = test_seconds(design, seconds)
     say("simulating the FM test signal")
@@ -133,6 +135,12 @@ def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEE
         from ..target.check import target_check
 
         tgt = target_check(design, seed)
+    sq = {"design": asdict(design.squelch)}
+    if squelch:
+        say("measuring the squelch on the simulated noisy IF")
+        from ..measure.squelch import figures
+
+        sq["measured"] = figures(design, seed).to_dict()
     say("running the floating-point reference")
     ref = reference.run(design, stream)
 
@@ -160,5 +168,5 @@ def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEE
         saturations=m.saturations, clips=m.clips,
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 3),
         c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=design.word_lengths,
-        target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None, target=tgt,
+        squelch=sq, target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None, target=tgt,
     )

@@ -78,6 +78,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--no-target", action="store_true",
                    help="skip the cross-compiled runs in the Thumb emulator (done when arm-none-eabi-gcc and "
                         "unicorn are installed)")
+    p.add_argument("--no-squelch", action="store_true",
+                   help="skip measuring the noise squelch's switching CNRs on the simulated noisy IF")
     p.add_argument("--sweep", action="append", default=[], choices=SWEEP_KINDS,
                    help="also sweep one quantity, every point checked bit for bit: IF carrier-to-noise ratio "
                         "(cnr, dB), tone frequency (tone, Hz), peak deviation (deviation, Hz) or carrier offset "
@@ -295,7 +297,8 @@ def cmd_verify(args) -> int:
     from ..check.verify import TooShort
 
     try:
-        res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target)
+        res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target,
+                     squelch=not args.no_squelch)
     except TooShort as e:
         raise UsageError(f"--seconds {args.seconds:g}: {e}") from None
     host = None
@@ -325,6 +328,8 @@ def cmd_verify(args) -> int:
         if res.quant_gap_db > 3:
             print(f"  quantisation alone would allow {res.predicted_quant_sinad_db:.1f} dB: this design falls "
                   f"{res.quant_gap_db:.1f} dB short of it")
+        for line in cli_quality.squelch_lines(res.squelch):
+            print("  " + line)
         print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
         if res.target:

@@ -33,6 +33,8 @@ class SweepPoint:
     predicted_db: float | None = None  # the prediction this sweep is compared with, if any
     offset_hz: float | None = None    # the offset output at the end, in Hz
     flags: dict = field(default_factory=dict)   # gaps, clamps, saturations, clips of the C run
+    squelch_open: float = 1.0         # share of the measured samples the squelch passed (the figures
+                                      # are of the demodulated audio, as the squelch would pass it)
 
 
 @dataclass(frozen=True)
@@ -102,7 +104,9 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
     fs = design.rates.out_hz
     skip = int(round(LEAD_S * fs))
     band = (design.test.band_lo_hz, design.audio_hz)
-    y = design.output.fraction(got[skip:])
+    # the demodulator's audio as the squelch would pass it (equal to the C's wherever it is open):
+    # the sweep shows the chain's quality; ``squelch_open`` says how much of it the squelch passed
+    y = design.output.fraction(want.unmuted[skip:])
     a = metrics.tone_analysis(y, fs, tone_hz, *band, harmonics=HARMONICS)
     flt = metrics.sinad_db(design.output.fraction(ref[skip:]), fs, tone_hz, *band)
     return SweepPoint(
@@ -110,7 +114,8 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
         snr_db=round(a.snr_db, 2), thd_db=round(a.thd_db, 2), level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),
         predicted_db=None if predicted is None else round(float(predicted), 2),
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 2),
-        flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")})
+        flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")},
+        squelch_open=round(float(np.mean(want.squelch_open[skip:])), 3) if want.squelch_open[skip:].size else 0.0)
 
 
 def _inputs(design: Design, sig: signals.FmSignal, seed: int, times: np.ndarray | None = None) -> np.ndarray:

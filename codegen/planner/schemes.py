@@ -156,10 +156,10 @@ def _unit_band_noise(grid_hz: float, out_hz: float, r: int, n: int, band_hz: flo
     return 2.0 * float(np.trapezoid(total * post, f))
 
 
-def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
-            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
-            post_sos=()) -> Prediction:
-    """Predicted SINAD of the band's standard test (``edgetally.standard``)."""
+def grid_error_vars(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
+                    irq_jitter_cycles: int, grid_hz: float, band_hz: float) -> tuple[float, float, float]:
+    """Per grid instant, the phase error variances (cycles^2) of the counting itself while the band's
+    standard test plays: (quantisation, interpolation residual, interrupt latency jitter)."""
     test = standard.standard_test(band_hz)
     tone_hz = test.tone_hz
     dev = test.level * full_scale_hz
@@ -185,6 +185,19 @@ def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, 
         else:
             sig_curv = (amp * theta ** 4 / 24) ** 2 * CUBIC_SHAPE_VAR / 2
         sig_curv *= max(1.0, grid_hz / ((2.0 / 3.0) * if_hz / v.prescale))
+    return sig_quant, sig_curv, sig_jit
+
+
+def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
+            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
+            post_sos=()) -> Prediction:
+    """Predicted SINAD of the band's standard test (``edgetally.standard``)."""
+    test = standard.standard_test(band_hz)
+    tone_hz = test.tone_hz
+    dev = test.level * full_scale_hz
+    sig_quant, sig_curv, sig_jit = grid_error_vars(v, if_hz=if_hz, full_scale_hz=full_scale_hz, timer_hz=timer_hz,
+                                                   cpu_hz=cpu_hz, irq_jitter_cycles=irq_jitter_cycles,
+                                                   grid_hz=grid_hz, band_hz=band_hz)
     tone = np.array([tone_hz])
     s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(tone_hz / out_hz, n, r) / 10) \
         * float(_post_gain2(post_sos, tone, out_hz)[0])
