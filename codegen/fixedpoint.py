@@ -102,6 +102,13 @@ def cubic_fraction(e1, d, d_prev, d_next, shift: int, delta_limit: int):
     return ratio_floor(num, shift - CUBIC_T_BITS, d)
 
 
+def squelch_level(lvl, a, shift: int, cap: int):
+    """The noise squelch's level after one CIC output period: min(lvl - (lvl >> shift) + a, cap) on
+    unsigned 64-bit values (lvl <= cap and a < 2**32, so nothing wraps; see the certificate)."""
+    v = lvl - (lvl >> shift) + a
+    return cap if v > cap else v
+
+
 # C renderings of the same operations. ``{p}`` is replaced by the design's name prefix.
 C_DEFINITIONS = {
     "wrap_s32": """\
@@ -138,6 +145,14 @@ static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t de
 {{
     /* floor(num * 2^shift / den), 0 <= num < den; the design keeps num << shift in 32 bits */
     return (uint32_t)(num << shift) / den;
+}}
+""",
+    "squelch_level": """\
+static inline uint64_t {p}_squelch_level(uint64_t lvl, uint32_t a, unsigned shift, uint64_t cap)
+{{
+    /* min(lvl - (lvl >> shift) + a, cap): the squelch's one-pole average of the noise measure */
+    uint64_t v = lvl - (lvl >> shift) + (uint64_t)a;
+    return (v > cap) ? cap : v;
 }}
 """,
     "cubic_fraction": """\

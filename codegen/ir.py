@@ -13,6 +13,8 @@ import types
 import typing
 from dataclasses import dataclass
 
+from .standard import StandardTest, standard_test
+
 
 class Topology(enum.Enum):
     """How the MCU sees the edges: the one typed value every consumer branches on (derived from the
@@ -184,6 +186,29 @@ def output_bits(fmt: str) -> int:
 
 
 @dataclass(frozen=True)
+class Squelch:
+    """The noise squelch (designed in ``designer.squelch``, whose docstring gives the model). Per grid
+    instant e = |x[k] - 2 x[k-1] + x[k-2]| of the CIC input, or ``penalty`` for a muted instant; their
+    sum a over each CIC output period feeds lvl = min(lvl - (lvl >> shift) + a, cap). Closed while
+    lvl > close_level until lvl < open_level; closed means every output sample is mid-scale. Starts
+    closed with lvl = cap."""
+
+    cnr_db: float          # the spec's signal.squelch_cnr_db: open at and above this IF CNR (Carson band)
+    shift: int             # the level averages 2**shift output samples
+    penalty: int           # e of a muted grid instant
+    open_level: int
+    close_level: int
+    cap: int
+    open_cnr_db: float     # the model's CNR at open_level (at or below cnr_db)
+    close_cnr_db: float    # the model's CNR at close_level
+    floor_limited: bool    # the counting noise floor, not cnr_db, set the levels
+    edge_tone_db: float    # a full-deviation tone at the band edge alone, against close_level (dB)
+    open_ms: float         # bound on the time to open on a carrier at cnr_db (from closed and capped)
+    reopen_ms: float       # bound on the time to open on the clean standard test (from closed and capped)
+    blind: bool = False    # one-bit counts: the detector cannot tell noise from a carrier; always open
+
+
+@dataclass(frozen=True)
 class Register:
     """One line of the overflow certificate: the worst |value| any input the spec allows can give
     (inputs are clamped at the front end, so "any edge pattern" is covered), against the width."""
@@ -237,6 +262,7 @@ class Design:
     audio_hz: float
     queue_len: int         # stamps the capture ISR can queue between two services
     budget: Budget
+    squelch: Squelch
     certificate: tuple[Register, ...] = ()
 
     # --- derived facts: each defined once here, read by emit, the checks, the measurements ---
@@ -248,6 +274,11 @@ class Design:
         if self.scheme == "interrupt":
             return Topology.EDGE_STAMP if self.front.kind == "stamp" else Topology.EDGE_COUNT
         return Topology.COUNTER
+
+    @property
+    def test(self) -> StandardTest:
+        """The standard test for this design's audio band (``edgetally.standard``)."""
+        return standard_test(self.audio_hz)
 
     @property
     def stamps(self) -> bool:

@@ -73,12 +73,17 @@ class SpecError(ValueError):
         return self.field.startswith("-")
 
 
+SQUELCH_CNR_DB = 8.0               # a little below the FM threshold near 10 dB CNR (DESIGN.md, Haykin)
+SQUELCH_CNR_RANGE = (0.0, 40.0)    # dB: from deep below threshold to far above it
+
+
 @dataclass(frozen=True)
 class Signal:
     if_hz: float
     deviation_hz: float
     audio_hz: float
     deemphasis_us: float = 0.0
+    squelch_cnr_db: float = 8.0   # the noise squelch opens at and above this IF CNR in the Carson band
 
 
 @dataclass(frozen=True)
@@ -151,7 +156,7 @@ class Spec:
 # --- field readers -----------------------------------------------------------------------------
 
 _SECTIONS = {
-    "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us"},
+    "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us", "squelch_cnr_db"},
     "output": {"rate_hz", "format", "full_scale_hz"},
     "fixed": {"loss_limit_db", "response_tol_db", "scaling", "arith", "droop_limit_db"},
     "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "counter_bits", "has_capture", "has_edge_irq",
@@ -175,6 +180,7 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "signal.deviation_hz": (1e-3, UINT32_MAX / 8, "Hz"),
     "signal.audio_hz": (1e-3, UINT32_MAX / 8, "Hz"),
     "signal.deemphasis_us": (0.0, 1e6, "microseconds (0: none)"),
+    "signal.squelch_cnr_db": (SQUELCH_CNR_RANGE[0], SQUELCH_CNR_RANGE[1], "dB of IF carrier-to-noise ratio"),
     # a rate is a UINT32_C constant of the header; above 1 MHz the output filters' poles and the
     # per-sample budget leave no sensible design on an MCU (common practice, no source)
     "output.rate_hz": (1, 1_000_000, "samples per second"),
@@ -296,7 +302,11 @@ def parse_spec(raw: dict) -> Spec:
         deviation_hz=_number(s, "signal", "deviation_hz"),
         audio_hz=_number(s, "signal", "audio_hz"),
         deemphasis_us=_number(s, "signal", "deemphasis_us", default=0.0),
+        squelch_cnr_db=_number(s, "signal", "squelch_cnr_db", default=SQUELCH_CNR_DB),
     )
+    if not SQUELCH_CNR_RANGE[0] <= sig.squelch_cnr_db <= SQUELCH_CNR_RANGE[1]:
+        raise SpecError("signal.squelch_cnr_db", sig.squelch_cnr_db,
+                        f"must lie in [{SQUELCH_CNR_RANGE[0]:g}, {SQUELCH_CNR_RANGE[1]:g}] dB")
     o = _section(raw, "output")
     fmt = o.get("format", "s16")
     if not isinstance(fmt, str) or not re.fullmatch(r"s16|u([89]|1[0-6])", fmt):

@@ -28,11 +28,11 @@ import numpy as np
 import pytest
 from scipy import signal
 
+from edgetally import standard
 from edgetally.dsp import cic, iir
 from edgetally.designer import wordlength
 from edgetally.measure import metrics
 from edgetally.check import model
-from edgetally.planner import schemes
 from edgetally.fixedpoint import rshr, sat, wrap_s32
 from edgetally.ir import Filters, Section
 
@@ -176,10 +176,10 @@ def noise_run(designs):
     ref = signal.sosfilt(np.array(wordlength.quantised_rows(f, sc.q)), u - dc)
     bits = 16 if d.output.format == "s16" else int(d.output.format[1:])
     got = (out.astype(np.float64) - d.output.mid) / 2.0 ** (bits - 1)
-    measured = metrics.band_power(got - ref, fs, schemes.BAND_LOW_HZ, d.audio_hz)
-    predicted = wordlength.roundoff_noise(f, sc.q, bits, fs, schemes.BAND_LOW_HZ, d.audio_hz)
+    measured = metrics.band_power(got - ref, fs, standard.BAND_LOW_HZ, d.audio_hz)
+    predicted = wordlength.roundoff_noise(f, sc.q, bits, fs, standard.BAND_LOW_HZ, d.audio_hz)
     # the error is roundoff, not a gain or delay mistake: far below the signal
-    assert measured < 1e-4 * metrics.band_power(ref, fs, schemes.BAND_LOW_HZ, d.audio_hz)
+    assert measured < 1e-4 * metrics.band_power(ref, fs, standard.BAND_LOW_HZ, d.audio_hz)
     return measured, predicted, d
 
 

@@ -9,6 +9,7 @@ import dataclasses
 import numpy as np
 import pytest
 
+from edgetally import standard
 from edgetally.check import hostbuild
 from edgetally.measure import hostile
 from edgetally.check import model
@@ -87,7 +88,7 @@ def test_timer_wrap_output_is_independent_of_the_start_value(hosts):
     key = "tiny_irq:auto"
     d = ALL_DESIGNS[key]
     rng = np.random.default_rng(3)
-    sig = signals.test_tone(d.if_hz, d.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+    sig = signals.test_tone(d.if_hz, d.full_scale_hz, schemes.TEST_LEVEL, standard.PREFERRED_TONE_HZ, rng)
     times = signals.edge_times(sig, 0.15)
     base = hardware_inputs(d, times, 0.15, np.random.default_rng(9), start=0)
     want = model.run(d, base).out

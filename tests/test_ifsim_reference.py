@@ -28,6 +28,7 @@ from scipy import signal as ssig
 from scipy import special
 
 import edgetally
+from edgetally import standard
 from edgetally.stimulus import ifnoise
 from edgetally.measure import metrics
 from edgetally.check import reference
@@ -282,13 +283,13 @@ def chain():
 
 def _measure(d, dev, band_w, noise_bw, cnr_db, seed) -> float:
     rng = np.random.default_rng(seed)
-    sig = signals.test_tone(d.if_hz, d.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+    sig = signals.test_tone(d.if_hz, d.full_scale_hz, schemes.TEST_LEVEL, standard.PREFERRED_TONE_HZ, rng)
     assert sig.peak_deviation() == pytest.approx(dev)
     times = ifnoise.noisy_edge_times(sig, LEAD_S + SPAN_S, cnr_db, noise_bw, rng)
     stamps = signals.capture(times[::d.front.prescale], d.rates.timer_hz, d.front.timer_bits)
     out = reference.run(d, stamps)
     skip = int(round(LEAD_S * d.rates.out_hz))
-    return metrics.sinad_db(out[skip:], d.rates.out_hz, schemes.TEST_TONE_HZ, schemes.BAND_LOW_HZ, band_w)
+    return metrics.sinad_db(out[skip:], d.rates.out_hz, standard.PREFERRED_TONE_HZ, standard.BAND_LOW_HZ, band_w)
 
 
 def band_correction_db(d, band_w: float, noise_bw: float) -> float:
@@ -310,15 +311,15 @@ def band_correction_db(d, band_w: float, noise_bw: float) -> float:
         return cic_mag * np.abs(np.sinc(np.asarray(f, dtype=float) / fg))
 
     sos = np.array([list(s.float_sos) for s in d.filters.sections])
-    f = np.linspace(schemes.BAND_LOW_HZ, band_w, 4001)
+    f = np.linspace(standard.BAND_LOW_HZ, band_w, 4001)
     _, h_out = ssig.sosfreqz(sos, worN=f, fs=fo)
     folded = np.zeros_like(f)
     for k in range(-int(fg / fo) - 2, int(fg / fo) + 3):
         fk = f + k * fo
         folded += pre(fk) ** 2 * fk ** 2 * (np.abs(fk) <= noise_bw / 2)
     noise = np.trapezoid(np.abs(h_out) ** 2 * folded, f)
-    _, h_tone = ssig.sosfreqz(sos, worN=[schemes.TEST_TONE_HZ], fs=fo)
-    tone_gain = abs(h_tone[0]) ** 2 * pre(schemes.TEST_TONE_HZ) ** 2
+    _, h_tone = ssig.sosfreqz(sos, worN=[standard.PREFERRED_TONE_HZ], fs=fo)
+    tone_gain = abs(h_tone[0]) ** 2 * pre(standard.PREFERRED_TONE_HZ) ** 2
     return float(-10 * np.log10(noise / (tone_gain * band_w ** 3 / 3)))
 
 

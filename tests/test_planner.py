@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 import edgetally
+from edgetally import standard
 from edgetally.measure import metrics
 from edgetally.check import reference
 from edgetally.planner import schemes
@@ -31,7 +32,7 @@ def _float_sinad_avg(design, seconds=0.3):
     for seed in SEEDS:
         ref = reference.run(design, make_inputs(design, seconds, seed))
         skip = int(round(LEAD_S * design.rates.out_hz))
-        sinad = metrics.sinad_db(ref[skip:], design.rates.out_hz, schemes.TEST_TONE_HZ, schemes.BAND_LOW_HZ,
+        sinad = metrics.sinad_db(ref[skip:], design.rates.out_hz, standard.PREFERRED_TONE_HZ, standard.BAND_LOW_HZ,
                                  design.audio_hz)
         noise.append(10 ** (-sinad / 10))
     return -10 * np.log10(np.mean(noise))
@@ -75,8 +76,8 @@ def test_counter_noise_matches_first_order_delta_sigma():
         k = np.arange(counts.size)
         ideal = sig.phase(k / fs)                                        # exact phase at each read
         err_hz = (np.diff(counts) - np.diff(ideal)) * fs                  # step error in Hz
-        noise.append(metrics.band_power(err_hz, fs, schemes.BAND_LOW_HZ, band))
-    formula = 2 * np.pi ** 2 / 9 * (band ** 3 - schemes.BAND_LOW_HZ ** 3) / fs
+        noise.append(metrics.band_power(err_hz, fs, standard.BAND_LOW_HZ, band))
+    formula = 2 * np.pi ** 2 / 9 * (band ** 3 - standard.BAND_LOW_HZ ** 3) / fs
     assert abs(10 * np.log10(np.mean(noise) / formula)) <= 3.0
 
 

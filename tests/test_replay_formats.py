@@ -5,6 +5,7 @@ readers make are the ones the hardware would make (checked with exact integer ar
 import numpy as np
 import pytest
 
+from edgetally import standard
 from edgetally.check.replay import replay
 from edgetally.stimulus import recordings, signals as fm
 from edgetally.stimulus.inputs import make_inputs
@@ -144,7 +145,6 @@ def test_steady_tone_found_with_its_sinad(tmp_path):
     import math
 
     from edgetally.measure import metrics
-    from edgetally.planner import schemes
 
     d = ALL_DESIGNS["orchard_link:timestamp"]
     sec = 0.3 + recordings.settle_s(d)
@@ -153,5 +153,5 @@ def test_steady_tone_found_with_its_sinad(tmp_path):
     res = _check(d, recordings.load(d, tmp_path / "tone.vcd", signal="if_pin"))
     assert abs(res.tone_hz - 1000.0) < 0.01
     settled = d.output.fraction(res.out[int(math.ceil(res.settle_s * d.rates.out_hz)):])
-    want = metrics.sinad_db(settled, d.rates.out_hz, 1000.0, schemes.BAND_LOW_HZ, d.audio_hz)
+    want = metrics.sinad_db(settled, d.rates.out_hz, 1000.0, standard.BAND_LOW_HZ, d.audio_hz)
     assert want > 40 and abs(res.sinad_db - want) < 0.1

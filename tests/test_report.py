@@ -18,6 +18,7 @@ from scipy import integrate, signal
 from scipy.io import wavfile
 
 import edgetally
+from edgetally import standard
 from edgetally.report import listen
 from edgetally.report import page as report
 from edgetally.planner import schemes
@@ -200,12 +201,12 @@ def test_tone_wav_peaks_at_the_test_tone_with_the_designed_level(made, ex):
     d, fs, x = _read(made[ex], "tone")
     x = x.astype(float)
     f, p = signal.periodogram(x, fs=fs, window="hann")
-    assert abs(f[np.argmax(p)] - schemes.TEST_TONE_HZ) <= fs / x.size
+    assert abs(f[np.argmax(p)] - standard.PREFERRED_TONE_HZ) <= fs / x.size
     f, p = signal.periodogram(x, fs=fs, window="flattop", scaling="spectrum")
     amp = np.sqrt(2 * np.max(p))
     r, n = d.cic.ratio, d.cic.order
-    _, hc = signal.freqz(np.ones(r) / r, worN=[schemes.TEST_TONE_HZ], fs=d.rates.grid_hz)
-    _, hs = signal.sosfreqz(np.array([list(s.float_sos) for s in d.filters.sections]), worN=[schemes.TEST_TONE_HZ],
+    _, hc = signal.freqz(np.ones(r) / r, worN=[standard.PREFERRED_TONE_HZ], fs=d.rates.grid_hz)
+    _, hs = signal.sosfreqz(np.array([list(s.float_sos) for s in d.filters.sections]), worN=[standard.PREFERRED_TONE_HZ],
                             fs=fs)
     expected = schemes.TEST_LEVEL * 2 ** 15 * abs(hc[0]) ** n * abs(hs[0])
     assert abs(20 * np.log10(amp / expected)) <= 0.1

@@ -22,10 +22,9 @@ from . import model, reference
 from ..designer import assemble
 from ..ir import Design
 from ..measure import metrics
-from ..planner import schemes
 from ..planner.choose import TIE_DB, Option, Plan, plan
 from ..spec import Spec
-from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs
+from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
 CLOSE_DB = 3.0          # options predicted within this of the chosen one are simulated before choosing
 # A doubtful prediction (a grid faster than the stamps, count errors that form tones) was seen off by
@@ -39,9 +38,14 @@ SIM_SECONDS = 0.2       # of the standard test, after its lead-in: enough tone p
 
 
 def _sinad(design: Design, samples) -> float:
-    skip = int(round(LEAD_S * design.rates.out_hz))
-    return metrics.sinad_db(samples[skip:], design.rates.out_hz, schemes.TEST_TONE_HZ, schemes.BAND_LOW_HZ,
-                            design.audio_hz)
+    test = design.test
+    skip = int(round(test.lead_s * design.rates.out_hz))
+    return metrics.sinad_db(samples[skip:], design.rates.out_hz, test.tone_hz, test.band_lo_hz, test.band_hi_hz)
+
+
+def _seconds(design: Design, seconds: float) -> float:
+    """``seconds``, or the standard test's shortest measurable record for a low band."""
+    return max(seconds, design.test.min_seconds)
 
 
 def simulate_option(spec: Spec, o: Option, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
@@ -49,7 +53,7 @@ def simulate_option(spec: Spec, o: Option, seconds: float = SIM_SECONDS, seed: i
     # the float reference does not depend on the filter arithmetic: one (wide) is designed, not all
     d = assemble.design(spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio),
                         overrides={"arith": "wide"})
-    return _sinad(d, reference.run(d, make_inputs(d, seconds, seed)))
+    return _sinad(d, reference.run(d, make_inputs(d, _seconds(d, seconds), seed)))
 
 
 def simulate_options(spec: Spec, plan_obj: Plan, seconds: float = 0.25, seed: int = DEFAULT_SEED
@@ -102,7 +106,7 @@ def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, 
 
 def simulated_loss_db(design: Design, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
     """Float reference SINAD minus the integer model's, on ``seconds`` of the standard test."""
-    x = make_inputs(design, seconds, seed)
+    x = make_inputs(design, _seconds(design, seconds), seed)
     return _sinad(design, reference.run(design, x)) - _sinad(design, model.run(design, x).out)
 
 

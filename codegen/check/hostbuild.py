@@ -88,14 +88,17 @@ class HostDemod:
     def counters(self, st) -> dict:
         return {"gaps": int(self._fn("gap_count")(st)), "clamps": int(self._fn("clamp_count")(st)),
                 "overruns": int(self._fn("overrun_count")(st)), "carrier": bool(self._fn("carrier_present")(st)),
+                "squelch_open": bool(self._fn("squelch_open")(st)),
                 "saturations": int(self._fn("saturation_count")(st)), "clips": int(self._fn("clip_count")(st)),
                 "offset": int(self._fn("offset")(st))}
 
     def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024,
-                lost=None) -> tuple[np.ndarray, dict]:
+                lost=None, clock=None) -> tuple[np.ndarray, dict]:
         """Feed the inputs (stamps or counts) in blocks of ``block`` through <name>_process,
         collecting every output; before each index in ``lost`` (inputs lost there, as after a DMA
-        overrun) a block ends and <name>_inputs_lost is called. Returns (outputs, final counters)."""
+        overrun) a block ends and <name>_inputs_lost is called. ``clock`` (stamp designs): (k, now)
+        pairs, <name>_advance(now) called after the first k inputs (model.clocked mirrors it).
+        Returns (outputs, final counters)."""
         ffi = self.ffi
         st = self.new_state()
         proc = self._fn("process")
@@ -106,8 +109,21 @@ class HostDemod:
         chunks = []
         ctype = f"{self.design.name}_input_t *"
         lost_set = {int(i) for i in (lost if lost is not None else ())}
-        breaks = sorted(lost_set | set(range(0, inputs.size, block)))
+        calls: dict[int, list[int]] = {}
+        for k, now in (clock if clock is not None else ()):
+            calls.setdefault(int(k), []).append(int(now))
+        breaks = sorted(lost_set | set(range(0, inputs.size, block)) | {k for k in calls if k < inputs.size})
+
+        def advance(k: int) -> None:
+            for now in calls.get(k, ()):
+                while True:
+                    n = self._fn("advance")(st, now, out_ptr, out_cap)
+                    chunks.append(out[:n].copy())
+                    if n < out_cap:
+                        break
+
         for start, stop in zip(breaks, breaks[1:] + [inputs.size], strict=True):
+            advance(start)
             if start in lost_set:
                 self._fn("inputs_lost")(st)
             blk = inputs[start:stop]
@@ -116,6 +132,8 @@ class HostDemod:
             while done < blk.size:
                 done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
                 chunks.append(out[:produced[0]].copy())
+        if inputs.size:
+            advance(inputs.size)
         return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)
 
     def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64,

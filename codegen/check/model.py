@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, wrap_bits, wrap_s32
+from ..fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, squelch_level, wrap_bits, wrap_s32
 
 
 @dataclass(frozen=True)
@@ -27,6 +27,8 @@ class ModelRun:
     saturations: int         # internal data nodes that saturated
     clips: int               # output samples clipped to the output range
     steps: np.ndarray        # the phase step per grid instant (CIC input), int64
+    squelch_open: np.ndarray = None   # per output sample: the squelch passed it (else it is mid-scale)
+    unmuted: np.ndarray = None        # the output samples as they would be with the squelch open
 
 
 def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:
@@ -57,16 +59,16 @@ def in_range(step: np.ndarray, low: int, high: int) -> np.ndarray:
     return (step >= low) & (step <= high)
 
 
-def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
+def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarray, int, int, np.ndarray]:
     """The CIC input x[k] for every grid instant the stamps complete, with the gap and
-    out-of-range counts. ``lost``: indices of stamps that follow lost stamps (see ``run``)."""
+    out-of-range counts and which instants were muted. ``lost``: indices of stamps that follow lost stamps (see ``run``)."""
     fr = design.front
     t = unwrap(stamps, fr.timer_bits, fr.max_delta)
     cubic = fr.order == "cubic"
     first = 1 if cubic else 0                              # the grid starts at this stamp
     last = t.size - 2 if cubic else t.size - 1             # instants before this stamp are complete
     if last <= first:
-        return np.zeros(0, dtype=np.int64), 0, 0
+        return np.zeros(0, dtype=np.int64), 0, 0, np.zeros(0, dtype=bool)
     count = (t[last] - t[first] - 1) // fr.grid_ticks      # instants strictly before t[last]
     g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
     i = np.searchsorted(t, g, side="right")                # the stamp after each instant
@@ -101,7 +103,7 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     muted = gap | resync | ~ok
     clamps = int(np.count_nonzero(~ok & ~gap & ~resync))
     x = np.where(muted, fr.x_centre, step)
-    return x.astype(np.int64), int(np.count_nonzero(gap | resync)), clamps
+    return x.astype(np.int64), int(np.count_nonzero(gap | resync)), clamps, muted
 
 
 def zero_run_gaps(d: np.ndarray, gap_run: int) -> np.ndarray:
@@ -112,19 +114,42 @@ def zero_run_gaps(d: np.ndarray, gap_run: int) -> np.ndarray:
     return (d == 0) & (k - last_nonzero > gap_run)
 
 
-def count_steps(design: Design, counts: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
-    """The CIC input for each count read after the first, with the gap and out-of-range counts.
+def count_steps(design: Design, counts: np.ndarray, lost=None) -> tuple[np.ndarray, int, int, np.ndarray]:
+    """The CIC input for each count read after the first, with the gap and out-of-range counts and
+    which instants were muted.
     ``lost``: indices of counts that follow lost counts (their difference spans the loss)."""
     fr = design.front
     c = np.asarray(counts, dtype=np.int64)
     if c.size < 2:
-        return np.zeros(0, dtype=np.int64), 0, 0
+        return np.zeros(0, dtype=np.int64), 0, 0, np.zeros(0, dtype=bool)
     d = wrap_bits(np.diff(c), fr.counter_bits)
     gap = zero_run_gaps(d, fr.gap_run) | lost_flags(c.size, lost)[1:]
     ok = in_range(d, fr.diff_low, fr.diff_limit)
     clamps = int(np.count_nonzero(~ok & ~gap))
     x = np.where(gap | ~ok, fr.x_centre, d << fr.step_shift)
-    return x.astype(np.int64), int(np.count_nonzero(gap)), clamps
+    return x.astype(np.int64), int(np.count_nonzero(gap)), clamps, gap | ~ok
+
+
+def squelch_gates(design: Design, x: np.ndarray, muted: np.ndarray) -> np.ndarray:
+    """Whether the noise squelch is open after each CIC output (the warm-up ones included), from the
+    CIC input and its muted instants (see ``ir.Squelch``)."""
+    sq, r = design.squelch, design.cic.ratio
+    c = design.front.x_centre
+    xs = np.concatenate(([c, c], np.asarray(x, dtype=np.int64)))
+    h = wrap_s32(xs[2:] - 2 * xs[1:-1] + xs[:-2])
+    e = np.where(muted, sq.penalty, np.abs(h))
+    n = e.size // r
+    sums = wrap_bits(e[:n * r].reshape(n, r).sum(axis=1), 32)
+    gates = np.zeros(n, dtype=bool)
+    lvl, is_open = sq.cap, False
+    for j, a in enumerate(sums.tolist()):
+        lvl = squelch_level(lvl, a, sq.shift, sq.cap)
+        if is_open:
+            is_open = not lvl > sq.close_level
+        else:
+            is_open = lvl < sq.open_level
+        gates[j] = is_open
+    return gates
 
 
 def cic_decimate(design: Design, x: np.ndarray) -> np.ndarray:
@@ -173,8 +198,8 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
     return out.astype(np.int16 if of.ctype == "int16_t" else np.uint16), sats, clips
 
 
-def front_steps(design: Design, inputs: np.ndarray, lost=None) -> tuple[np.ndarray, int, int]:
-    """The front end of the design's kind: stamps or counts -> CIC input."""
+def front_steps(design: Design, inputs: np.ndarray, lost=None) -> tuple[np.ndarray, int, int, np.ndarray]:
+    """The front end of the design's kind: stamps or counts -> CIC input (with the muted instants)."""
     if design.front.kind == "stamp":
         return phase_steps(design, inputs, lost)
     return count_steps(design, inputs, lost)
@@ -184,9 +209,12 @@ def run(design: Design, inputs: np.ndarray, lost=None) -> ModelRun:
     """Everything the emitted C produces for this input sequence (capture stamps, or counts read
     at each grid instant), computed independently. ``lost`` lists the indices of inputs before
     which inputs were lost (the C is told by <name>_inputs_lost(), or finds its queue full)."""
-    x, gaps, clamps = front_steps(design, inputs, lost)
+    x, gaps, clamps, muted = front_steps(design, inputs, lost)
     out, sats, clips = post_chain(design, cic_decimate(design, x))
-    return ModelRun(out=out, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x)
+    gates = squelch_gates(design, x, muted)[design.cic.order:][:out.size]
+    muted = np.where(gates, out, design.output.mid).astype(out.dtype)
+    return ModelRun(out=muted, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x, squelch_open=gates,
+                    unmuted=out)
 
 
 def service_due(done: int, service_every: int, stall: tuple[int, int] | None = None) -> bool:
@@ -214,3 +242,36 @@ def lost_after(keep: np.ndarray) -> np.ndarray:
     """Indices, in the kept stream, of the inputs that follow dropped ones."""
     starts = np.flatnonzero(keep & np.concatenate(([False], ~keep[:-1])))
     return (np.cumsum(keep) - 1)[starts]
+
+
+def clocked(design: Design, inputs: np.ndarray, calls, lost=None) -> tuple[np.ndarray, list[int]]:
+    """What the C's time-driven entry <name>_advance(now) does to a stamp stream, as a stream for
+    ``run``: ``calls`` lists (k, now), a call made after the first k inputs with the timer's value
+    ``now`` (calls in order of k). While the last stamp (real or virtual) lies more than gap_ticks
+    and less than half the timer's range before now, a call adds a virtual stamp max_delta after it,
+    or at now when that is nearer; the input after each virtual stamp follows a loss. Returns the
+    stream and the indices (in it) of the inputs that follow losses (``lost`` remapped, plus those)."""
+    fr = design.front
+    mask, half = (1 << fr.timer_bits) - 1, 1 << (fr.timer_bits - 1)
+    x = np.asarray(inputs, dtype=np.int64)
+    virtual: list[tuple[int, int]] = []          # (original index it precedes, value)
+    last, last_k = None, 0
+    for k, now in calls:
+        if k > last_k or last is None:
+            last = int(x[k - 1]) if k > 0 else None
+            last_k = k
+        while last is not None:
+            e = (int(now) - last) & mask
+            if e <= fr.gap_ticks or e >= half:
+                break
+            last = (last + fr.max_delta) & mask if e > fr.max_delta else int(now) & mask
+            virtual.append((k, last))
+    if not virtual:
+        return x, sorted(int(i) for i in (lost if lost is not None else ()))
+    at = np.array([k for k, _ in virtual], dtype=np.int64)
+    out = np.insert(x, at, [v for _, v in virtual])
+    new_pos = np.arange(x.size) + np.searchsorted(at, np.arange(x.size), side="right")
+    v_pos = at + np.arange(at.size)                            # where each virtual stamp landed
+    after = {int(p) + 1 for p in v_pos if p + 1 < out.size}
+    after |= {int(new_pos[i]) for i in (lost if lost is not None else ())}
+    return out.astype(x.dtype), sorted(after)

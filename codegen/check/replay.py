@@ -8,7 +8,7 @@ the same inputs and edgetally.check.compare.compare judges every sample and the 
 The summary: the recording's length, inputs and edges; the carrier-lost time (grid instants with
 no carrier, the C's gap counter, over the grid rate) and the muted steps; the offset output in Hz
 (full-scale deviation / 2**q per LSB); and, when the output holds a steady tone, its frequency and
-SINAD. A steady tone: the strongest line of the settled output in [BAND_LOW_HZ, audio band] (Hann
+SINAD. A steady tone: the strongest line of the settled output in [the standard test's band_lo, audio band] (Hann
 spectrum, frequency refined by maximising the least-squares tone power within one bin) whose SINAD
 is at least STEADY_SINAD_DB; below that no single line dominates and no SINAD is given (10 dB:
 common practice, no source; the usual receiver sensitivity figure is taken at 12 dB SINAD).
@@ -29,7 +29,6 @@ from . import hostbuild, model
 from .compare import compare
 from ..ir import Design
 from ..measure import metrics
-from ..planner import schemes
 from ..stimulus.recordings import Recording, settle_s
 
 STEADY_SINAD_DB = 10.0
@@ -112,7 +111,7 @@ def steady_tone(design: Design, samples: np.ndarray) -> tuple[float | None, floa
 
     x = design.output.fraction(samples)
     fs = design.rates.out_hz
-    lo, hi = schemes.BAND_LOW_HZ, design.audio_hz
+    lo, hi = design.test.band_lo_hz, design.audio_hz
     if x.size < 256 or not np.any(x != x[0]):
         return None, None
     w = np.hanning(x.size)
@@ -185,7 +184,7 @@ def summary_lines(design: Design, res: ReplayResult) -> list[str]:
              f"  offset output at the end: {res.offset_hz:+.1f} Hz from the IF ({design.if_hz:g} Hz)"]
     if res.tone_hz is not None:
         lines.append(f"  steady tone {res.tone_hz:.1f} Hz: SINAD {res.sinad_db:.1f} dB "
-                     f"({schemes.BAND_LOW_HZ:g} Hz to {design.audio_hz:g} Hz, after {res.settle_s * 1e3:.3g} ms settling)")
+                     f"({design.test.band_lo_hz:g} Hz to {design.audio_hz:g} Hz, after {res.settle_s * 1e3:.3g} ms settling)")
     else:
         lines.append("  no steady tone in the output: no SINAD")
     return lines

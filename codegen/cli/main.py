@@ -14,7 +14,7 @@ import sys
 import traceback
 from pathlib import Path
 
-from .. import __version__
+from .. import __version__, standard
 from . import quality as cli_quality
 from .folder import FORCE_HELP, FolderError, check_folder, write_set
 from . import replay as cli_replay
@@ -105,11 +105,14 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("verify", help="compile the C, compare it bit for bit with the model, measure quality")
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
-    p.add_argument("--seconds", type=float, default=1.0, help="test signal length in seconds (default 1)")
+    p.add_argument("--seconds", type=float, default=None,
+                   help="measured length of the standard test in seconds (default 1, longer for bands under 60 Hz)")
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signal (default fixed)")
     p.add_argument("--no-target", action="store_true",
                    help="skip the cross-compiled runs in the Thumb emulator (done when arm-none-eabi-gcc and "
                         "unicorn are installed)")
+    p.add_argument("--no-squelch", action="store_true",
+                   help="skip measuring the noise squelch's switching CNRs on the simulated noisy IF")
     p.add_argument("--sweep", action="append", default=[], choices=SWEEP_KINDS,
                    help="also sweep one quantity, every point checked bit for bit: IF carrier-to-noise ratio "
                         "(cnr, dB), tone frequency (tone, Hz), peak deviation (deviation, Hz) or carrier offset "
@@ -126,7 +129,8 @@ def _parser() -> argparse.ArgumentParser:
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
     p.add_argument("--force", action="store_true", help=FORCE_HELP)
-    p.add_argument("--seconds", type=float, default=1.0, help="length of the standard test signal (default 1)")
+    p.add_argument("--seconds", type=float, default=None,
+                   help="length of the standard test signal (default 1, longer for bands under 60 Hz)")
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signals (default fixed)")
     p.add_argument("--no-target", action="store_true", help="leave out the emulated target runs")
     cli_replay.add_parser(sub)
@@ -160,7 +164,7 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
                      f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}")
     pr, ld = pl.prediction, pl.load
     lines += ["",
-              f"predicted SINAD {pr.sinad_db:.1f} dB (1 kHz tone at 70 % deviation, {spec.signal.audio_hz:g} Hz band): "
+              f"predicted SINAD {pr.sinad_db:.1f} dB ({standard.tone_hz(spec.signal.audio_hz):g} Hz tone at {standard.LEVEL:.0%} deviation, {spec.signal.audio_hz:g} Hz band): "
               f"quantisation {_db(pr.quant_sinad_db)}, interpolation {_db(pr.curvature_sinad_db)}, "
               f"jitter {_db(pr.jitter_sinad_db)}, 16-bit output {_db(pr.output_sinad_db)}",
               f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_edge} cycles/edge in ISRs, "
@@ -319,7 +323,13 @@ def cmd_verify(args) -> int:
     tty = sys.stderr.isatty() and not args.json
     progress = (lambda m: print(f"edgetally: {m} ...", file=sys.stderr)) if tty else None
     seed = DEFAULT_SEED if args.seed is None else args.seed
-    res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target)
+    from ..check.verify import TooShort
+
+    try:
+        res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target,
+                     squelch=not args.no_squelch)
+    except TooShort as e:
+        raise UsageError(f"--seconds {args.seconds:g}: {e}") from None
     host = None
     if args.sweep or args.scenario:
         from ..check.hostbuild import build
@@ -336,14 +346,19 @@ def cmd_verify(args) -> int:
         print(f"edgetally verify '{res.name}' ({res.scheme}, {res.variant}), {res.seconds:g} s of signal, "
               f"seed {res.seed}, {res.inputs} inputs")
         print(f"  emitted C vs integer model: {verdict} over {res.samples} output samples")
-        print(f"  SINAD (1 kHz, 70 % deviation, {spec.signal.audio_hz:g} Hz band): C {res.sinad_db:.2f} dB, "
-              f"float reference {res.float_sinad_db:.2f} dB, predicted {res.predicted_sinad_db:.2f} dB")
+        print(f"  standard test: {d.test.describe()}, after {res.lead_s:g} s settling")
+        print(f"  SINAD: C {res.sinad_db:.2f} dB, float reference {res.float_sinad_db:.2f} dB, "
+              f"predicted {res.predicted_sinad_db:.2f} dB{'?' if res.prediction_doubt else ''}")
+        if res.prediction_doubt:
+            print(f"  the prediction may be several dB off: {res.prediction_doubt}")
         print(f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: quantisation "
               f"{_db(res.predicted_quant_sinad_db)} dB, interpolation {_db(res.predicted_curvature_sinad_db)} dB, "
               f"jitter {_db(res.predicted_jitter_sinad_db)} dB")
         if res.quant_gap_db > 3:
             print(f"  quantisation alone would allow {res.predicted_quant_sinad_db:.1f} dB: this design falls "
                   f"{res.quant_gap_db:.1f} dB short of it")
+        for line in cli_quality.squelch_lines(res.squelch):
+            print("  " + line)
         print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
         if res.target:
@@ -374,7 +389,9 @@ MIN_BAND_BINS = 8           # spectrum bins in the measured band, at the least
 MAX_SEED = (1 << 32) - 1    # numpy's seed: a non-negative integer; kept to 32 bits for the C harness
 
 
-def _check_seconds(seconds: float) -> None:
+def _check_seconds(seconds: float | None) -> None:
+    if seconds is None:
+        return
     if not (seconds > 0 and math.isfinite(seconds)) or seconds > 600:
         raise SpecError("--seconds", seconds, "must be a number of seconds in (0, 600]")
 
@@ -388,7 +405,7 @@ def check_run_args(args, spec: Spec) -> None:
     # MIN_MEASURED_SAMPLES output samples, and MIN_BAND_BINS spectrum bins between the SINAD band's
     # lower edge (MIN_AUDIO_HZ) and the audio band's top, or the noise in the band is not measured
     least = max(MIN_MEASURED_SAMPLES / spec.output.rate_hz, MIN_BAND_BINS / (spec.signal.audio_hz - MIN_AUDIO_HZ))
-    if args.seconds < least:
+    if args.seconds is not None and args.seconds < least:
         raise SpecError("--seconds", args.seconds, f"must be at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} "
                                                    f"output samples and {MIN_BAND_BINS} spectrum bins in the band)")
 
@@ -400,7 +417,13 @@ def cmd_report(args) -> int:
     warn_spec(spec)
     from ..check.choice import design_and_plan
 
+    from ..check.verify import TooShort, test_seconds
+
     d, pl = design_and_plan(spec, scheme=args.scheme)
+    try:
+        test_seconds(d, args.seconds)
+    except TooShort as e:
+        raise UsageError(f"--seconds {args.seconds:g}: {e}") from None
     return cli_quality.cmd_report(args, spec, d, pl)
 
 

@@ -16,11 +16,12 @@ from ..dsp import cic
 from . import wordlength
 from ..dsp import iir
 from ..planner import schemes
-from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, output_bits
+from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, Squelch, output_bits
+from .squelch import design_squelch, squelch_registers
 from ..planner.choose import REG_BITS, Plan, plan
+from .. import standard
 from ..spec import Spec, SpecError
 
-DC_CORNER_HZ = 2.0      # offset tracker corner: far below any audio band (common practice, no source)
 SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)
 OVERRIDABLE = {"arith": str, "data_bits": int, "coef_bits": int, "coef_width": int, "acc_bits": int, "scaling": str}
 
@@ -112,7 +113,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
         err = wordlength.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
-        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
+        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, standard.band_lo_hz(spec.signal.audio_hz),
                                      spec.signal.audio_hz)
         loss = 10 * math.log10(1 + noise / signal_fs2)
         needed = f.coef_bits
@@ -144,6 +145,26 @@ def _refuse_targets(spec: Spec, best: WidthOption) -> None:
                     f"cannot be met: the quantised filters are {best.response_error_db:.3f} dB off; allow more")
 
 
+def _squelch(spec: Spec, p: Plan) -> Squelch:
+    """The noise squelch for this plan (designer.squelch): the counting floor from the planner's model."""
+    sig, out, tgt = spec.signal, spec.output, spec.target
+    fr = p.front
+    v = schemes.Variant(p.scheme, fr.kind, fr.prescale, getattr(fr, "order", "linear"))
+    floor = sum(schemes.grid_error_vars(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
+                                        cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles,
+                                        grid_hz=p.grid_hz, band_hz=sig.audio_hz))
+    if fr.kind == "stamp":
+        weight = schemes.CUBIC_WEIGHT if fr.order == "cubic" else schemes.LINEAR_WEIGHT
+        edge_hz, bits = sig.if_hz / fr.prescale, fr.phase_shift
+    else:
+        weight, edge_hz, bits = 1.0, math.inf, fr.step_shift
+    return design_squelch(cnr_db=sig.squelch_cnr_db, grid_hz=p.grid_hz, out_hz=out.rate_hz, ratio=p.ratio,
+                          deviation_hz=sig.deviation_hz, audio_hz=sig.audio_hz, full_scale_hz=out.full_scale_hz,
+                          edge_hz=edge_hz, weight=weight, floor_var=floor, units_per_cycle=2.0 ** bits / fr.prescale,
+                          x_limit=fr.x_limit, std_tone_hz=standard.tone_hz(sig.audio_hz), std_level=standard.LEVEL,
+                          counts=fr.kind == "count", blind=fr.kind == "count" and fr.diff_limit <= 1)
+
+
 def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:
     """The complete integer design for ``spec`` (planned here, with ``scheme`` forced if given,
     unless a plan is given). ``overrides`` fixes output-chain word lengths (keys of OVERRIDABLE)."""
@@ -170,11 +191,13 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     mult = round(gain * (1 << shift))
-    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
+    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
     cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
                              dc_shift=dc_shift, f=f)
+    sq = _squelch(spec, p)
+    cert = cert + squelch_registers(sq, x_limit=p.front.x_limit, ratio=p.ratio)
     per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
@@ -184,7 +207,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
         cic=Cic(order=p.order, ratio=p.ratio, in_bits=p.cic_in_bits, width=REG_BITS),
         scale=scale, filters=f, output=_out_format(spec, f.sections[-1].q_out),
         if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, audio_hz=sig.audio_hz,
-        queue_len=p.queue_len,
+        queue_len=p.queue_len, squelch=sq,
         budget=Budget(core=tgt.core, cpu_hz=tgt.cpu_hz, dma=tgt.capture_dma if p.front.kind == "stamp" else tgt.counter_dma,
                       edge_hz_max=sig.if_hz + sig.deviation_hz, cycles_per_edge=p.load.per_edge,
                       cycles_per_input=p.load.per_input, cycles_per_grid=p.load.per_grid,

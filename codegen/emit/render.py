@@ -43,6 +43,12 @@ def api(design: Design) -> list[Function]:
                  "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
     ]
     topo = design.topology
+    if design.stamps:
+        fns.append(Function(f"size_t {p}_advance({st}, {inp} now, {p}_sample_t *out, size_t cap)",
+                            "Service loop, once per output period (at least every half timer range): the "
+                            "free-running timer's value, read before the last process()/service() call; "
+                            "writes muted samples for the grid instants that passed with no edges, so the "
+                            "output rate holds through a signal loss. Returns the samples written (<= cap)."))
     if topo is Topology.CAPTURE:
         fns.append(Function(f"void {p}_capture_isr({st}, {inp} stamp)",
                             "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full)."))
@@ -57,6 +63,8 @@ def api(design: Design) -> list[Function]:
                             "Grid timer interrupt: queue the IF-clocked counter's value."))
     fns += [
         Function(f"bool {p}_carrier_present(const {st})", "True while edges arrive at a plausible rate."),
+        Function(f"bool {p}_squelch_open(const {st})",
+                 "True while the noise squelch passes the audio (closed: the samples are mid-scale)."),
         Function(f"int32_t {p}_offset(const {st})",
                  "The tuning offset: DC of the frequency estimate, in the units the header gives."),
         Function(f"uint32_t {p}_saturation_count(const {st})", "Internal data nodes that saturated so far."),
@@ -95,7 +103,7 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
 
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
-    ops = ["wrap_s32", "rshr", "sat"]
+    ops = ["wrap_s32", "rshr", "sat", "squelch_level"]
     if design.stamps:
         ops.append("ratio_floor")
         if design.cubic:

@@ -14,7 +14,8 @@ from ..check import model
 from . import recovery
 from ..planner import schemes
 from ..stimulus import signals
-from ..ir import Design
+from ..fixedpoint import wrap_bits
+from ..ir import Design, Topology
 
 
 @dataclass(frozen=True)
@@ -58,6 +59,7 @@ SERVICE_FRACTION = 2      # ISR designs: the service loop runs every queue_len /
 STALL_QUEUES = 3          # ... and stalls for this many queues' worth of inputs (inputs-lost)
 TRACE_POINTS = 400
 MUTE_FS = 0.02            # "muted": within 2 % of full scale (common practice, no source)
+RATE_SLACK_S = 0.01       # the output rate through a loss: within a sample per 10 ms (issue 12)
 
 
 @dataclass(frozen=True)
@@ -80,6 +82,22 @@ class _Case:
     stall: tuple | None = None    # ISR designs: drive the ISR and a late service loop instead
     all_inputs: np.ndarray | None = None
     step: bool = False            # the undisturbed model is a step, not the tone
+    clock: list | None = None     # stamp designs: (k, now, t) calls of <name>_advance (see _clock)
+    span_s: tuple | None = None   # (start, end) of the disturbance in seconds, when the clock runs
+
+
+def _clock(design: Design, times: np.ndarray, total: float, start: int) -> list:
+    """The calls of <name>_advance a service loop makes once per output period: (inputs passed in
+    before it, the timer's value read then, the time). An input is passed in once its stamp exists:
+    at its edge for capture, after the interrupt's latest latency for an edge interrupt."""
+    fr, b = design.front, design.budget
+    stamped = times[::fr.prescale]
+    if design.topology is Topology.EDGE_STAMP:
+        stamped = stamped + (b.isr_cycles // 2 + b.irq_jitter_cycles) / b.cpu_hz
+    t = np.arange(1, int(total * design.rates.out_hz) + 1) / design.rates.out_hz
+    k = np.searchsorted(stamped, t, side="right")
+    now = wrap_bits(np.floor(t * design.rates.timer_hz).astype(np.int64) + start, fr.timer_bits)
+    return [(int(a), int(b_), float(c)) for a, b_, c in zip(k, now, t)]
 
 
 def _edges(design: Design, seconds: float, rng: np.random.Generator) -> np.ndarray:
@@ -108,6 +126,12 @@ def _case_loss(design: Design, opt: Options, post: float) -> _Case:
     times = _edges(design, total, rng)
     kept = times[(times < t0) | (times >= t0 + dur)]
     e = recovery.input_span_fs(design)
+    if design.stamps:      # the service loop's clock keeps the output rate (<name>_advance)
+        start = int(np.random.default_rng(opt.seed + 1).integers(0, 1 << design.front.timer_bits))
+        return _Case(_hardware(design, kept, total, opt.seed, start), [], _first_input_at(design, kept, t0),
+                     _first_input_at(design, kept, t0 + dur),
+                     f"no edges for {opt.loss_ms:g} ms (the service loop calls advance every output period)", e,
+                     clock=_clock(design, kept, total, start), span_s=(t0, t0 + dur))
     return _Case(_hardware(design, kept, total, opt.seed), [], _first_input_at(design, kept, t0),
                  _first_input_at(design, kept, t0 + dur), f"no edges for {opt.loss_ms:g} ms", e)
 
@@ -202,26 +226,50 @@ def run_scenario(design: Design, name: str, host=None, options: Options = Option
     case0 = CASES[name](design, options, 0.0)
     thr0 = recovery.THRESHOLD_FS
     pred = recovery.predicted_recovery_s(design, case0.error_fs, thr0)
-    case = CASES[name](design, options, pred + GUARD_S + FIT_S)
-    want = model.run(design, case.inputs, lost=case.lost)
-    if case.stall:
+    reopen = design.squelch.reopen_ms / 1000
+    case = CASES[name](design, options, max(pred, reopen) + GUARD_S + FIT_S)
+    if case.clock is not None:
+        stream, lost = model.clocked(design, case.inputs, [c[:2] for c in case.clock], case.lost)
+        want = model.run(design, stream, lost=lost)
+    else:
+        want = model.run(design, case.inputs, lost=case.lost)
+    if case.clock is not None:
+        got, counters = host.process(case.inputs, lost=case.lost, clock=[c[:2] for c in case.clock])
+    elif case.stall:
         (stall, every) = case.stall
         got, counters = host.process_isr(case.all_inputs, service_every=every, stall=stall)
     else:
         got, counters = host.process(case.inputs, lost=case.lost)
     bit_exact = (got.size == want.out.size and bool(np.array_equal(got, want.out))
                  and counters["gaps"] == want.gaps and counters["clamps"] == want.clamps)
-    before = lambda j: model.run(design, case.inputs[:j], lost=[i for i in case.lost if i < j]).out.size  # noqa: E731
-    n_start, n_end = before(case.start), before(case.end)
+    def before(j: int, t_max: float | None = None) -> int:
+        """Outputs made before input j (and, with the clock, by its calls before t_max)."""
+        lost_j = [i for i in case.lost if i < j]
+        if case.clock is None:
+            return model.run(design, case.inputs[:j], lost=lost_j).out.size
+        calls = [c[:2] for c in case.clock if c[0] <= j and c[2] < t_max]
+        return model.run(design, *model.clocked(design, case.inputs[:j], calls, lost_j)).out.size
+
+    if case.span_s is not None:
+        n_start, n_end = before(case.start, case.span_s[0]), before(case.end, case.span_s[1])
+    else:
+        n_start, n_end = before(case.start), before(case.end)
+    # a disturbance that closed the squelch ends when it has reopened (at most reopen_ms after the
+    # disturbance, from the capped level; see designer.squelch)
+    closed = not bool(np.all(want.squelch_open[n_start:]))
+    if closed:
+        pred = max(pred, reopen)
     y = design.output.fraction(got)
     fit_from = n_end + int(round((pred + GUARD_S) * design.rates.out_hz))
     basis = recovery.step_basis(y.size, n_end, design.scale.dc_shift)
     if not case.step:
-        basis = np.column_stack([basis, recovery.tone_basis(y.size, schemes.TEST_TONE_HZ, design.rates.out_hz)[:, 1:]])
+        basis = np.column_stack([basis, recovery.tone_basis(y.size, design.test.tone_hz, design.rates.out_hz)[:, 1:]])
     e, rms = recovery.residual(y, basis, min(fit_from, y.size - 16))
     thr = max(recovery.THRESHOLD_FS, recovery.NOISE_SIGMAS * rms)
     if thr > thr0:
         pred = recovery.predicted_recovery_s(design, case.error_fs, thr)
+        if closed:
+            pred = max(pred, reopen)
     rec = recovery.measured_recovery(e, n_end, thr, design.rates.out_hz)
     ok, note = _output_check(design, name, y, n_start, n_end, counters, case)
     lo = max(0, n_start - int(0.01 * design.rates.out_hz))
@@ -249,7 +297,16 @@ def _output_check(design: Design, name: str, y, n_start: int, n_end: int, counte
     n = n_end - n_start
     # the chain's memory of the tone: after it a muted output must be within MUTE_FS of silence
     mem = round(recovery.predicted_recovery_s(design, peak, MUTE_FS) * design.rates.out_hz)
-    if name == "signal-loss" and n < 4:
+    if case.clock is not None:
+        # the output rate through the loss: a sample per output period, within one per 10 ms
+        want_n = (case.span_s[1] - case.span_s[0]) * design.rates.out_hz
+        slack = max(1, math.ceil((case.span_s[1] - case.span_s[0]) / RATE_SLACK_S))
+        quiet = float(np.max(np.abs(y[n_start + min(mem, n):n_end]), initial=0.0))
+        ok = ok and abs(n - want_n) <= slack and (n <= mem or quiet <= MUTE_FS)
+        note = (f"{n} samples while no edges came ({want_n:.0f} at the output rate, the service loop's clock "
+                f"driving the grid); |out| <= {quiet:.4f} FS from {min(mem, n) / design.rates.out_hz * 1000:.2f} ms "
+                f"into it; peak {worst:.3f} FS")
+    elif name == "signal-loss" and n < 4:
         note = (f"held: {n} samples while no edges came (a stamp design makes no grid instants without "
                 f"edges), then resynced; peak {worst:.3f} FS")
     elif not case.step and n > mem:

@@ -15,7 +15,6 @@ from . import metrics
 from ..check import model
 from ..check import reference
 from . import response
-from ..planner import schemes
 from ..stimulus import signals
 from ..ir import Design
 
@@ -34,6 +33,8 @@ class SweepPoint:
     predicted_db: float | None = None  # the prediction this sweep is compared with, if any
     offset_hz: float | None = None    # the offset output at the end, in Hz
     flags: dict = field(default_factory=dict)   # gaps, clamps, saturations, clips of the C run
+    squelch_open: float = 1.0         # share of the measured samples the squelch passed (the figures
+                                      # are of the demodulated audio, as the squelch would pass it)
 
 
 @dataclass(frozen=True)
@@ -64,7 +65,7 @@ def default_points(design: Design, kind: str) -> list[float]:
     if kind == "cnr":
         return [0.0, 3.0, 6.0, 8.0, 10.0, 12.0, 15.0, 20.0, 25.0, 30.0, 40.0, 50.0]
     if kind == "tone":
-        lo = max(100.0, schemes.BAND_LOW_HZ * 5)
+        lo = min(max(100.0, design.test.band_lo_hz * 5), design.test.tone_hz)
         return [float(round(v)) for v in np.geomspace(lo, 0.95 * band, 12)]
     if kind == "deviation":
         return [float(round(v * fs_hz, 1)) for v in (0.05, 0.1, 0.2, 0.3, 0.5, 0.7, 0.9, 1.0, 1.1, 1.25, 1.5)]
@@ -102,8 +103,10 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
     ref = reference.run(design, inputs)
     fs = design.rates.out_hz
     skip = int(round(LEAD_S * fs))
-    band = (schemes.BAND_LOW_HZ, design.audio_hz)
-    y = design.output.fraction(got[skip:])
+    band = (design.test.band_lo_hz, design.audio_hz)
+    # the demodulator's audio as the squelch would pass it (equal to the C's wherever it is open):
+    # the sweep shows the chain's quality; ``squelch_open`` says how much of it the squelch passed
+    y = design.output.fraction(want.unmuted[skip:])
     a = metrics.tone_analysis(y, fs, tone_hz, *band, harmonics=HARMONICS)
     flt = metrics.sinad_db(design.output.fraction(ref[skip:]), fs, tone_hz, *band)
     return SweepPoint(
@@ -111,7 +114,8 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
         snr_db=round(a.snr_db, 2), thd_db=round(a.thd_db, 2), level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),
         predicted_db=None if predicted is None else round(float(predicted), 2),
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 2),
-        flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")})
+        flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")},
+        squelch_open=round(float(np.mean(want.squelch_open[skip:])), 3) if want.squelch_open[skip:].size else 0.0)
 
 
 def _inputs(design: Design, sig: signals.FmSignal, seed: int, times: np.ndarray | None = None) -> np.ndarray:
@@ -133,10 +137,10 @@ def _tone(design: Design, tone_hz: float, dev_hz: float, seed: int, offset_hz: f
 def chain_noise_gain_db(design: Design, tone_hz: float) -> float:
     """How much more SNR than the textbook formula this chain gives: the formula assumes the
     discriminator's f**2-shaped noise is counted flat over [0, W]; the chain weights it by its
-    response (relative to the tone's gain) over the measured band [BAND_LOW_HZ, W]. Positive when
+    response (relative to the tone's gain) over the measured band [band_lo, W] of the standard test. Positive when
     the filters (de-emphasis above all) take noise away."""
     w = design.audio_hz
-    f = np.linspace(schemes.BAND_LOW_HZ, w, 4001)
+    f = np.linspace(design.test.band_lo_hz, w, 4001)
     q_db, _ = response.chain_response(design, np.append(f, tone_hz))
     g2 = 10 ** ((q_db[:-1] - q_db[-1]) / 10)
     shaped = np.trapezoid(f ** 2 * g2, f) if hasattr(np, "trapezoid") else np.trapz(f ** 2 * g2, f)  # type: ignore[attr-defined]
@@ -154,7 +158,7 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
     check_points(design, kind, points)
     xs = list(points) if points is not None else default_points(design, kind)
     host = host or hostbuild.build(design)
-    tone, level = schemes.TEST_TONE_HZ, schemes.TEST_LEVEL
+    tone, level = design.test.tone_hz, design.test.level
     dev = level * design.full_scale_hz
     out, curves, notes = [], {}, []
     if kind == "tone":

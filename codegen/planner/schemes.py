@@ -56,11 +56,10 @@ from . import costs
 from ..dsp import cic
 from ..cores import CORES
 from ..ir import Design, variant_label
+from .. import standard
 from ..spec import Target
 
-TEST_TONE_HZ = 1000.0
-TEST_LEVEL = 0.7           # fraction of full-scale deviation for the standard test tone
-BAND_LOW_HZ = 20.0         # SINAD band starts here: below is DC, which carries the tuning offset
+TEST_LEVEL = standard.LEVEL   # fraction of full-scale deviation of the standard test tone (edgetally.standard)
 
 
 def _cubic_weight() -> float:
@@ -139,7 +138,7 @@ def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, ba
 
     After decimation by R the output PSD at fo is the sum of the CIC-shaped input PSD over the R
     images fo + m * out_hz, m = 0..R-1 (one period of the grid-rate spectrum); the band power is
-    twice the integral over [BAND_LOW_HZ, band_hz] (two-sided PSD). The power is linear in sigma2:
+    twice the integral over [band_lo, band_hz] of the band's standard test (two-sided PSD). The power is linear in sigma2:
     the shaped integral for sigma2 = 1 is computed once per chain (the planner asks for it about a
     hundred times per plan)."""
     key = tuple(tuple(float(v) for v in row) for sos in post_sos for row in np.atleast_2d(sos))
@@ -148,7 +147,7 @@ def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, ba
 
 @functools.lru_cache(maxsize=512)
 def _unit_band_noise(grid_hz: float, out_hz: float, r: int, n: int, band_hz: float, rows: tuple) -> float:
-    f = np.linspace(BAND_LOW_HZ, band_hz, 2001)
+    f = np.linspace(standard.band_lo_hz(band_hz), band_hz, 2001)
     total = np.zeros_like(f)
     for m in range(r):
         fa = f + m * out_hz
@@ -158,11 +157,13 @@ def _unit_band_noise(grid_hz: float, out_hz: float, r: int, n: int, band_hz: flo
     return 2.0 * float(np.trapezoid(total * post, f))
 
 
-def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
-            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
-            post_sos=()) -> Prediction:
-    """Predicted SINAD of the standard test (1 kHz tone at 70 % of full-scale deviation)."""
-    dev = TEST_LEVEL * full_scale_hz
+def grid_error_vars(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
+                    irq_jitter_cycles: int, grid_hz: float, band_hz: float) -> tuple[float, float, float]:
+    """Per grid instant, the phase error variances (cycles^2) of the counting itself while the band's
+    standard test plays: (quantisation, interpolation residual, interrupt latency jitter)."""
+    test = standard.standard_test(band_hz)
+    tone_hz = test.tone_hz
+    dev = test.level * full_scale_hz
     ef2 = if_hz ** 2 + 0.5 * dev ** 2                        # E[f^2] for a sinusoidal deviation
     sig_quant = sig_curv = sig_jit = 0.0
     if v.front == "count":
@@ -178,18 +179,31 @@ def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, 
         # or theta^4 / 24 (cubic), theta = 2 pi fm k / f0 the tone's phase advance per stamp
         # interval, times the shape u(1 - u) or u(u + 1)(u - 1)(u - 2) over the interval; its
         # variance over u uniform in [0, 1) and over the tone's cycle (mean square 1/2).
-        theta = 2 * math.pi * TEST_TONE_HZ * v.prescale / if_hz
-        amp = dev / (2 * math.pi * TEST_TONE_HZ)
+        theta = 2 * math.pi * tone_hz * v.prescale / if_hz
+        amp = dev / (2 * math.pi * tone_hz)
         if v.order == "linear":
             sig_curv = (amp * theta ** 2 / 2) ** 2 * LINEAR_SHAPE_VAR / 2
         else:
             sig_curv = (amp * theta ** 4 / 24) ** 2 * CUBIC_SHAPE_VAR / 2
         sig_curv *= max(1.0, grid_hz / ((2.0 / 3.0) * if_hz / v.prescale))
-    tone = np.array([TEST_TONE_HZ])
-    s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(TEST_TONE_HZ / out_hz, n, r) / 10) \
+    return sig_quant, sig_curv, sig_jit
+
+
+def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
+            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
+            post_sos=()) -> Prediction:
+    """Predicted SINAD of the band's standard test (``edgetally.standard``)."""
+    test = standard.standard_test(band_hz)
+    tone_hz = test.tone_hz
+    dev = test.level * full_scale_hz
+    sig_quant, sig_curv, sig_jit = grid_error_vars(v, if_hz=if_hz, full_scale_hz=full_scale_hz, timer_hz=timer_hz,
+                                                   cpu_hz=cpu_hz, irq_jitter_cycles=irq_jitter_cycles,
+                                                   grid_hz=grid_hz, band_hz=band_hz)
+    tone = np.array([tone_hz])
+    s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(tone_hz / out_hz, n, r) / 10) \
         * float(_post_gain2(post_sos, tone, out_hz)[0])
     lsb = full_scale_hz / 32768.0
-    n_out = lsb ** 2 / 12.0 * (band_hz - BAND_LOW_HZ) / (out_hz / 2)
+    n_out = lsb ** 2 / 12.0 * (band_hz - test.band_lo_hz) / (out_hz / 2)
     parts = [_band_noise(s2, grid_hz, out_hz, r, n, band_hz, post_sos) if s2 else 0.0
              for s2 in (sig_quant, sig_curv, sig_jit)]
 

@@ -164,7 +164,7 @@ def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
     tt = two_tone_signal(design, rng)
     tone_wav, two_tone_wav, sweep_wav = clip_names(design)
     made = [
-        (tone_wav, f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
+        (tone_wav, f"standard test: {design.test.tone_hz:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
                           "deviation", standard_signal(design, rng)),
         (two_tone_wav, "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
          + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation", tt),

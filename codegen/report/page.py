@@ -18,7 +18,6 @@ import numpy as np
 from ..dsp import cic
 from . import listen
 from . import plots as report_plots
-from ..planner import schemes
 from ..measure.response import chain_response
 from ..ir import Design, Topology
 from ..planner.choose import Plan
@@ -105,7 +104,7 @@ def _verdict(ctx: ReportContext) -> str:
     else:
         lines.append(f"Emitted C vs integer model: {_yes(False, no='MISMATCH')}: {v.mismatches} samples differ "
                      f"(first at {_e(v.first_mismatch)}).")
-    lines.append(f"SINAD ({schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} deviation, "
+    lines.append(f"SINAD ({ctx.design.test.tone_hz:g} Hz tone at {ctx.design.test.level:.0%} deviation, "
                  f"{_e(f'{ctx.design.audio_hz:g}')} Hz band): fixed point (C) {v.sinad_db:.1f} dB, "
                  f"float reference {v.float_sinad_db:.1f} dB, predicted {v.predicted_sinad_db:.1f} dB; "
                  f"implementation loss {v.implementation_loss_db:.2f} dB.")
@@ -155,7 +154,7 @@ def _plan_section(ctx: ReportContext) -> str:
         cls.append("chosen" if o.kept else "")
     pr, ld = p.prediction, p.load
     body = [_table(head, rows, cls),
-            f"<p>Predicted SINAD {pr.sinad_db:.1f} dB ({schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} "
+            f"<p>Predicted SINAD {pr.sinad_db:.1f} dB ({ctx.design.test.tone_hz:g} Hz tone at {ctx.design.test.level:.0%} "
             f"deviation, {_e(f'{spec.signal.audio_hz:g}')} Hz band): quantisation {_db(pr.quant_sinad_db)}, "
             f"interpolation {_db(pr.curvature_sinad_db)}, jitter {_db(pr.jitter_sinad_db)}, 16-bit output "
             f"{_db(pr.output_sinad_db)} dB.</p>",

@@ -9,7 +9,6 @@ import io
 
 import numpy as np
 
-from ..planner import schemes
 from ..ir import Design
 from ..measure.response import FLOOR_DB, chain_response, floor_db
 
@@ -77,7 +76,7 @@ def spectrum_plot(d: Design, samples: np.ndarray) -> str:
     f, db = tone_spectrum(d, samples)
     fig, ax = figure(9, 3.6)
     ax.plot(f, db, color="#1f4e9c", lw=0.8)
-    ax.axvline(schemes.TEST_TONE_HZ, color="#b36b00", ls=":", lw=1, label=f"test tone {schemes.TEST_TONE_HZ:g} Hz")
+    ax.axvline(d.test.tone_hz, color="#b36b00", ls=":", lw=1, label=f"test tone {d.test.tone_hz:g} Hz")
     ax.axvline(d.audio_hz, color="#999999", ls=":", lw=1, label=f"band edge {d.audio_hz:g} Hz")
     ax.set_xlim(0, f[-1])
     ax.set_ylim(max(FLOOR_DB, float(np.percentile(db, 1)) - 10), 5)

@@ -1,10 +1,11 @@
 """The inputs of every simulated run: the standard test tone, and what the design's hardware makes of
 IF edge times (capture stamps, software stamps read by an edge interrupt, or counts read on the grid).
 
-The standard test: a 1 kHz tone at 70 % of full-scale deviation with random start phase and
-modulation phase (``seed``), exact edge times, the timer's quantisation and wrap with a random
-counter start value. The first LEAD_S seconds let the filters settle; checks compare them bit for
-bit but leave them out of quality figures. Used by verify, the sweeps, the hostile scenarios, the
+The standard test: the band's test tone and level (``edgetally.standard``: 1 kHz at 70 % of
+full-scale deviation when the band allows) with random start phase and modulation phase
+(``seed``), exact edge times, the timer's quantisation and wrap with a random counter start value.
+The first ``design.test.lead_s`` seconds (LEAD_S for bands of 200 Hz and more) let the filters
+settle; checks compare them bit for bit but leave them out of quality figures. Used by verify, the sweeps, the hostile scenarios, the
 listening clips, the emitted unit test and the target runs alike.
 """
 
@@ -12,22 +13,22 @@ from __future__ import annotations
 
 import numpy as np
 
+from .. import standard
 from ..ir import Design, Topology
-from ..planner import schemes
 from . import signals
 
-LEAD_S = 0.1
+LEAD_S = standard.MIN_LEAD_S
 DEFAULT_SEED = 20261202
 
 
 def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None = None,
                 sig: signals.FmSignal | None = None) -> np.ndarray:
-    """What the design's hardware delivers for LEAD_S + seconds of the standard test tone (or of
+    """What the design's hardware delivers for lead + seconds of the standard test tone (or of
     ``sig``): capture stamps, software stamps from an edge interrupt, or counts per grid instant."""
     rng = np.random.default_rng(seed)
     if sig is None:
         sig = standard_signal(design, rng)
-    duration = LEAD_S + seconds
+    duration = design.test.lead_s + seconds
     times = signals.edge_times(sig, duration)
     if cnr_db is not None:
         times = signals.add_jitter(times, sig, cnr_db, rng)
@@ -36,7 +37,8 @@ def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None 
 
 def standard_signal(design: Design, rng: np.random.Generator) -> signals.FmSignal:
     """The standard test tone for this design (its start and modulation phases drawn from rng)."""
-    return signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
+    test = design.test
+    return signals.test_tone(design.if_hz, design.full_scale_hz, test.level, test.tone_hz, rng)
 
 
 def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.random.Generator,
