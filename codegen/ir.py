@@ -265,6 +265,16 @@ class Design:
         return self.stamps and self.front.order == "cubic"
 
     @property
+    def recip(self):
+        """The plan of the stamp front's division-free quotients (``fixedpoint.recip_plan``): every
+        stamp interval up to the gap limit, at the phase shift; None for count fronts."""
+        if not self.stamps:
+            return None
+        from .fixedpoint import recip_plan
+
+        return recip_plan(self.front.gap_ticks.bit_length(), self.front.phase_shift)
+
+    @property
     def input_bits(self) -> int:
         """Width of one input: the timer's (stamps) or the counter's (counts)."""
         return self.front.timer_bits if self.stamps else self.front.counter_bits

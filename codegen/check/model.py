@@ -15,7 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, wrap_bits, wrap_s32
+from ..fixedpoint import (cubic_fraction, interval_fraction, interval_reciprocal, rshr, sat, section_step, wrap_bits,
+                          wrap_s32)
 
 
 @dataclass(frozen=True)
@@ -88,11 +89,13 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     resync = ~gap & (prev_gap | lost_between)
     safe_d = np.where(gap, 1, d)
     e1 = np.where(gap, 0, g - t1)
+    plan = design.recip
+    k, dn, r = interval_reciprocal(safe_d, plan)          # the C computes it once per interval
     if cubic:
         frac = cubic_fraction(e1, safe_d, np.where(gap, 1, t1 - t[i - 2]), np.where(gap, 1, t[i + 1] - t[i]),
-                              fr.phase_shift, fr.delta_limit)
+                              fr.delta_limit, k, dn, r, plan)
     else:
-        frac = ratio_floor(e1, fr.phase_shift, safe_d)
+        frac = interval_fraction(e1, k, dn, r, plan)
     p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
     p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
     step = wrap_s32(np.diff(np.concatenate(([p_start], p))))

@@ -237,7 +237,13 @@ class Load:
 # instruction classes), on the four examples, both ARM cores, rounded; within about 25 % of those
 # figures. `plan --measured` replaces them by the measured figures for one design.
 STAMP_INPUT_OPS = {"linear": 72, "cubic": 80}      # unwrap, bracket test, loop and queue bookkeeping
-STAMP_GRID_OPS = {"linear": 60, "cubic": 250}      # interpolation (besides its divisions), clamp
+STAMP_GRID_OPS = {"linear": 60, "cubic": 110}      # interpolation (besides its multiplies), clamp
+# The division-free quotients (edgetally.fixedpoint): a reciprocal per stamp interval (seed, two
+# Newton steps, its correction), charged per grid instant (at most one interval starts per instant
+# that uses it), then per quotient a multiply-shift and its correction; the cubic's 32-bit
+# correction adds four products. (ops, 32-bit multiplies).
+RECIP_COST = (30, 5)
+QUOTIENT_COST = {"linear": (10, 2), "cubic": (20, 8)}
 COUNT_INPUT_OPS = 40                               # difference, zero run, clamp
 GRID_OPS_PER_STAGE = 8                             # each CIC integrator and comb, per grid instant
 OUTPUT_OPS = 60                                    # combs' share, scale, offset tracker, output word
@@ -262,8 +268,9 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
     cic = GRID_OPS_PER_STAGE * n * op
     if v.front == "stamp":
         per_input = STAMP_INPUT_OPS[v.order] * op
-        divs, macs = (2, 2) if v.order == "cubic" else (1, 0)
-        per_grid = divs * tgt.div32_cycles + macs * tgt.mac64_cycles + STAMP_GRID_OPS[v.order] * op + cic
+        ops = RECIP_COST[0] + QUOTIENT_COST[v.order][0] + STAMP_GRID_OPS[v.order]
+        muls = RECIP_COST[1] + QUOTIENT_COST[v.order][1]
+        per_grid = ops * op + muls * CORES[tgt.core].mul32_cycles + cic
         if v.scheme == "interrupt":
             per_edge = isr + 12 * op                                     # read timer, queue the stamp
         else:
