@@ -115,6 +115,8 @@ class RecipPlan:
     fix_up: int
     fix_linear: int           # quotient corrections with lbits = 0 (the linear fraction)
     fix_cubic: int            # and with lbits = CUBIC_T_BITS (the cubic's corrected fraction)
+    error_max: int = 0        # the largest |2**32 - d r| a Newton step reads (an int32)
+    product_max: int = 0      # the largest |(r >> a) (e >> b)| a Newton step forms (an int32)
 
 
 def _select(cond, a, b):
@@ -215,6 +217,7 @@ def recip_plan(bits: int, shift: int) -> RecipPlan:
     seeds = tuple(int(v) for v in np.round((1 << 32) / np.sqrt(lo_b * hi_b.astype(np.float64))))
     r = np.asarray(seeds, dtype=np.int64)[(d - d_lo) >> ts]
     steps: list[tuple[int, int]] = []
+    error_max = product_max = 0
     while True:
         err = r - exact
         if int(np.max(np.abs(err))) <= RECIP_MAX_FIX:
@@ -237,12 +240,15 @@ def recip_plan(bits: int, shift: int) -> RecipPlan:
         if best is None:
             raise ValueError(f"no 32-bit Newton step for the reciprocal of {d_lo}..{d_hi}")
         steps.append(best[1:3])
+        error_max = max(error_max, int(np.max(np.abs(e))))
+        product_max = max(product_max, int(np.max(np.abs((r >> best[1]) * (e >> best[2])))))
         r = best[3]
     err = r - exact
     fix_down, fix_up = max(0, int(np.max(err))), max(0, -int(np.min(err)))
     fix_linear = -(-(d_hi + 1) // (1 << (32 - shift)))
     fix_cubic = -(-(d_hi + (1 << CUBIC_T_BITS)) // (1 << (32 - shift)))
-    plan = RecipPlan(d_lo, d_hi, shift, ts, seeds, tuple(steps), fix_down, fix_up, fix_linear, fix_cubic)
+    plan = RecipPlan(d_lo, d_hi, shift, ts, seeds, tuple(steps), fix_down, fix_up, fix_linear, fix_cubic,
+                     error_max, product_max)
     if not np.array_equal(reciprocal(d, plan), exact):     # the whole chain, as the C runs it
         raise ValueError(f"the reciprocal plan of {d_lo}..{d_hi} is not exact")
     return plan

@@ -13,6 +13,7 @@ from fractions import Fraction
 
 from .. import __version__
 from ..dsp import cic
+from ..fixedpoint import recip_plan
 from . import wordlength
 from ..dsp import iir
 from ..planner import schemes
@@ -81,6 +82,14 @@ def _droop(spec: Spec, p: Plan) -> tuple[int, int] | None:
     if lim and cic.droop_db(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio) > lim:
         return p.order, p.ratio
     return None
+
+
+def _front_words(front) -> list:
+    """The stamp front's 32-bit intermediates for the certificate (none for count fronts)."""
+    if front.kind != "stamp":
+        return []
+    recip = recip_plan(front.gap_ticks.bit_length(), front.phase_shift)
+    return wordlength.stamp_words(recip, front.delta_limit if front.order == "cubic" else 0)
 
 
 def _out_format(spec: Spec, q_last: int) -> OutputFormat:
@@ -157,7 +166,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
     cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
-                             dc_shift=dc_shift, f=f)
+                             dc_shift=dc_shift, f=f, front_words=_front_words(p.front))
     per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
