@@ -76,12 +76,9 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
 
-def _droop(spec: Spec, p: Plan) -> tuple[int, int] | None:
-    """(order, ratio) of the CIC when its droop at the band edge exceeds the spec's limit."""
-    lim = spec.fixed.droop_limit_db
-    if lim and cic.droop_db(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio) > lim:
-        return p.order, p.ratio
-    return None
+def _droop(spec: Spec, p: Plan) -> tuple[int, int, float] | None:
+    """(order, ratio, flatness) of the CIC when its droop at the band edge exceeds the spec's limit."""
+    return iir.droop_of(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio, spec.fixed.droop_limit_db)
 
 
 def _front_words(front) -> list:

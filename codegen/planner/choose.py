@@ -158,11 +158,14 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
     sig, out, tgt = spec.signal, spec.output, spec.target
     ticks_per_out = tgt.timer_hz // out.rate_hz
     edge_max = sig.if_hz + sig.deviation_hz
-    sections = sum(len(s) for s in post_sos)
     cands = []
     for ratio in range(2, MAX_RATIO + 1):
         if ticks_per_out % ratio or (only_ratio is not None and ratio != only_ratio):
             continue
+        # the droop compensator this ratio needs (as the designer will build it) costs and shapes too
+        droop = iir.droop_of(sig.audio_hz, out.rate_hz, CIC_ORDER, ratio, spec.fixed.droop_limit_db)
+        sos_r = ([iir.droop_fir(*droop[:2], sig.audio_hz, out.rate_hz, droop[2])] if droop else []) + list(post_sos)
+        sections = sum(len(s) for s in sos_r)
         grid_hz = out.rate_hz * ratio
         grid_ticks = ticks_per_out // ratio
         if v.front == "stamp":
@@ -175,7 +178,7 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
                           sections=sections, queue_len=qlen)
         pr = schemes.predict(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
                              cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles, grid_hz=grid_hz,
-                             out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=post_sos)
+                             out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=sos_r)
         reason = impossible or why
         if reason is None:
             reason = _rate_limit(spec, v, ld, grid_hz)
