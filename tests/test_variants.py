@@ -21,11 +21,11 @@ from edgetally.planner.choose import plan
 from edgetally.stimulus.inputs import make_inputs
 from edgetally.target.check import available_cores, target_check
 
-# A demo scenario (invented): a soil-moisture probe's FM telemetry at a 20 kHz IF, +-5 kHz, 2.5 kHz
+# A demo scenario (invented): a pump controller's FM telemetry at a 20 kHz IF, +-5 kHz, 2.5 kHz
 # band, read by a 48 MHz Cortex-M0+ class part with a 16-bit timer; a generous budget so that every
 # way of seeing the edges is feasible.
 SCENARIO = {
-    "name": "probe",
+    "name": "pump",
     "signal": {"if_hz": 20000, "deviation_hz": 5000, "audio_hz": 2500},
     "output": {"rate_hz": 8000, "format": "s16", "full_scale_hz": 5000},
     "target": {"core": "cortex-m0plus", "cpu_hz": 48_000_000, "timer_hz": 48_000_000, "timer_bits": 16,
