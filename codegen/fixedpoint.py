@@ -55,20 +55,45 @@ def ratio_floor(num, shift: int, den):
     return (num << shift) // den
 
 
-def section_step(coefs, z: list, x: int, coef_bits: int, limit: int, narrow: bool) -> tuple[int, bool]:
+def section_step(coefs, z: list, x: int, coef_bits: int, limit: int, narrow: bool,
+                 split: bool = False) -> tuple[int, bool]:
     """One direct form I IIR section on Python ints, the output chain's only recursion:
     acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 (coefs = (b0, b1, b2, a1, a2), z = [x1, x2, y1, y2],
     updated in place), summed modulo 2**32 when ``narrow`` (exact 32-bit products whose final sum
-    fits, see the certificate), y = sat(rshr(acc, coef_bits), -limit, limit). Returns (y, whether
-    the saturation engaged). Its C twin is the section loop of the emitted ``_post`` function."""
+    fits, see the certificate), or as the three sums of ``split_mac`` when ``split`` (rounded by
+    ``split_round``, equal to the exact sum's rounding), y = sat(rshr(acc, coef_bits), -limit, limit).
+    Returns (y, whether the saturation engaged). Its C twin is the section loop of the emitted
+    ``_post`` function."""
     b0, b1, b2, a1, a2 = coefs
-    acc = b0 * x + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3]
-    if narrow:
-        acc = wrap_s32(acc)
-    yr = rshr(acc, coef_bits)
+    if split:
+        acc3 = (0, 0, 0)
+        for c, w in ((b0, x), (b1, z[0]), (b2, z[1]), (-a1, z[2]), (-a2, z[3])):
+            acc3 = split_mac(acc3, c, w)
+        yr = split_round(acc3, coef_bits)
+    else:
+        acc = b0 * x + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3]
+        if narrow:
+            acc = wrap_s32(acc)
+        yr = rshr(acc, coef_bits)
     y = sat(yr, -limit, limit)
     z[1], z[0], z[3], z[2] = z[0], x, z[2], y
     return y, y != yr
+
+
+def split_mac(acc: tuple[int, int, int], c: int, x: int) -> tuple[int, int, int]:
+    """One 27 x 16 product c x of the "mid" output arithmetic, kept as three 16 x 16 -> 32 products of
+    the word's top, middle and low bytes (x = (x >> 16) 2**16 + ((x >> 8) & 255) 2**8 + (x & 255),
+    exact for negative x with an arithmetic shift) added to the three sums (hi, mid, lo); c x =
+    hi 2**16 + mid 2**8 + lo. The section's rounding of the full sum A, rshr(A, C) for 8 <= C <= 16,
+    is then hi 2**(16-C) + ((mid + ((lo + 2**(C-1)) >> 8)) >> (C - 8)) exactly (``split_round``)."""
+    hi, mid, lo = acc
+    return hi + c * (x >> 16), mid + c * ((x >> 8) & 0xFF), lo + c * (x & 0xFF)
+
+
+def split_round(acc: tuple[int, int, int], shift: int) -> int:
+    """rshr(hi 2**16 + mid 2**8 + lo, shift) from the three sums, for 8 <= shift <= 16."""
+    hi, mid, lo = acc
+    return hi * (1 << (16 - shift)) + ((mid + ((lo + (1 << (shift - 1))) >> 8)) >> (shift - 8))
 
 
 INV6_BITS = 15
@@ -408,6 +433,43 @@ static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t de
 {{
     /* floor(num * 2^shift / den), 0 <= num < den; the design keeps num << shift in 32 bits */
     return (uint32_t)(num << shift) / den;
+}}
+""",
+    "split_round": """\
+static inline int32_t {p}_split_round(int32_t hi, int32_t mid, int32_t lo, unsigned shift)
+{{
+    /* rshr(hi 2^16 + mid 2^8 + lo, shift), 8 <= shift <= 16 (edgetally.fixedpoint.split_round) */
+    return hi * ((int32_t)1 << (16u - shift)) + ((mid + ((lo + ((int32_t)1 << (shift - 1u))) >> 8)) >> (shift - 8u));
+}}
+""",
+    "split_mac": """\
+static inline int32_t {p}_split_section(const int16_t *c, int32_t v, const int32_t *z, unsigned shift)
+{{
+    /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3, each 27 x 16 product as three 16 x 16 -> 32 products of
+     * the word's top, middle and low bytes summed apart, rounded by split_round
+     * (edgetally.fixedpoint.split_mac and section_step) */
+    int32_t hi = 0, mid = 0, lo = 0, x, k;
+    x = v; k = (int32_t)c[0];
+    hi += k * (x >> 16);
+    mid += k * ((x >> 8) & 0xFF);
+    lo += k * (x & 0xFF);
+    x = z[0]; k = (int32_t)c[1];
+    hi += k * (x >> 16);
+    mid += k * ((x >> 8) & 0xFF);
+    lo += k * (x & 0xFF);
+    x = z[1]; k = (int32_t)c[2];
+    hi += k * (x >> 16);
+    mid += k * ((x >> 8) & 0xFF);
+    lo += k * (x & 0xFF);
+    x = z[2]; k = -(int32_t)c[3];
+    hi += k * (x >> 16);
+    mid += k * ((x >> 8) & 0xFF);
+    lo += k * (x & 0xFF);
+    x = z[3]; k = -(int32_t)c[4];
+    hi += k * (x >> 16);
+    mid += k * ((x >> 8) & 0xFF);
+    lo += k * (x & 0xFF);
+    return {p}_split_round(hi, mid, lo, shift);
 }}
 """,
     "rshr32": """\

@@ -147,7 +147,7 @@ class Filters:
     data_bits: int                     # 16 or 32: every section input, output and state word
     coef_bits: int                     # Q format of the coefficients
     coef_width: int                    # 16 or 32: their storage
-    acc_bits: int                      # 32 or 64
+    acc_bits: int                      # 32, 48 (three 32-bit sums of split products) or 64
     scaling: str                       # "l1", "l2" or "linf": the norm that set each q_out
     limit: int                         # 2**(data_bits - 1) - 1: every node saturates here
     sections: tuple[Section, ...]

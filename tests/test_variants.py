@@ -4,7 +4,7 @@ class the planner's cheapest options are for).
 
 The variants: the stamp estimators (linear, cubic) at every capture prescaler (1, 2, 4, 8), the
 edge interrupt's stamp (linear, cubic) and count forms, the IF-clocked counter, and each output
-arithmetic (narrow, wide). Each is forced with ``plan(variant=...)`` and the designer's overrides on
+arithmetic (narrow, mid, wide). Each is forced with ``plan(variant=...)`` and the designer's overrides on
 a scenario of our own whose budget lets every variant through (the point here is the code paths,
 not the choice). Bit-exact means equal on every output sample, compared in full, and equal gap and
 clamp counts.
@@ -35,7 +35,8 @@ SCENARIO = {
 # (scheme, variant label, output arithmetic or None for the designer's choice)
 VARIANTS = [("timestamp", f"k{k}-{order}", None) for k in (1, 2, 4, 8) for order in ("linear", "cubic")]
 VARIANTS += [("interrupt", "stamp-linear", None), ("interrupt", "stamp-cubic", None), ("interrupt", "count", None),
-             ("counter", "count", None), ("timestamp", "k1-linear", "narrow"), ("timestamp", "k1-linear", "wide")]
+             ("counter", "count", None), ("timestamp", "k1-linear", "narrow"), ("timestamp", "k1-linear", "mid"),
+             ("timestamp", "k1-linear", "wide")]
 
 
 def _design(scheme, label, arith):
@@ -56,7 +57,7 @@ def test_every_variant_is_covered(built):
     spec = edgetally.parse_spec(SCENARIO)
     offered = {(v.scheme, v.label) for v, why in schemes.variants(spec.target) if why is None}
     assert offered == {(s, lab) for s, lab, _ in VARIANTS}
-    assert {d.filters.acc_bits for d in built.values()} == {32, 64}
+    assert {d.filters.acc_bits for d in built.values()} == {32, 48, 64}
     assert {d.front.prescale for d in built.values()} == {1, 2, 4, 8}
     assert {d.cubic for d in built.values()} == {True, False}
 
@@ -66,7 +67,7 @@ def test_variant_bit_exact_on_host(built, v):
     d = built[v]
     assert (d.scheme, d.variant) == v[:2]
     if v[2]:
-        assert d.filters.acc_bits == {"narrow": 32, "wide": 64}[v[2]]
+        assert d.filters.acc_bits == {"narrow": 32, "mid": 48, "wide": 64}[v[2]]
     host = hostbuild.build(d)
     inputs = make_inputs(d, 0.3, seed=17)
     want = model.run(d, inputs)

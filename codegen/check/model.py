@@ -151,7 +151,7 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
     sats = int(np.count_nonzero(u_all != raw))
     coefs = [(s.b0, s.b1, s.b2, s.a1, s.a2) for s in f.sections]
     state = [[0, 0, 0, 0] for _ in coefs]
-    narrow_acc = f.acc_bits == 32
+    narrow_acc, split = f.acc_bits == 32, f.acc_bits == 48
     dc_acc = 0
     out = np.empty(u_all.size, dtype=np.int64)
     clips = 0
@@ -163,7 +163,7 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
             sats += 1
             v = sat(v, -lim, lim)
         for c, z in zip(coefs, state):
-            v, saturated = section_step(c, z, v, cb, lim, narrow_acc)
+            v, saturated = section_step(c, z, v, cb, lim, narrow_acc, split)
             sats += saturated
         o = v * of.lmul
         if of.rshift:

@@ -72,6 +72,8 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     q_in = math.floor(math.log2(lim / in_rel))
     qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
     cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    if a.acc_bits == wordlength.SPLIT_ACC_BITS and not 8 <= cb <= 16:
+        raise ValueError(f"the split products need Q8..Q16 coefficients, not Q{cb}")
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
@@ -104,7 +106,9 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     first, with its predicted loss, response error and cost, and whether it meets the spec."""
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
-    names = [ov.pop("arith")] if "arith" in ov else (["narrow", "wide"] if fx.arith == "auto" else [fx.arith])
+    # the split arithmetic stands in for a 32x32->64 multiply: offered where the core has none
+    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "mid", "wide"]
+    names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
     opts = []
@@ -164,7 +168,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
                              dc_shift=dc_shift, f=f, front_words=_front_words(p.front))
-    per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
+    per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
         name=spec.name, tool_version=__version__, spec_hash=spec_hash(spec), scheme=p.scheme,

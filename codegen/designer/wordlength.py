@@ -36,8 +36,13 @@ class Arith:
 
 
 NARROW = Arith("narrow", 16, 16, 32)    # 16 x 16 -> 32 products, 32-bit sums: cheap on small cores
+# 27-bit data with 16-bit coefficients: each 27 x 16 product taken as three 16 x 16 -> 32 products
+# of the data word's top, middle and low bytes, summed in three 32-bit words (SPLIT_ACC_BITS marks
+# it) and rounded exactly as the 48-bit sum would be: no 64-bit multiply on cores that lack one
+SPLIT_ACC_BITS = 48
+MID = Arith("mid", 27, 16, SPLIT_ACC_BITS)
 WIDE = Arith("wide", 32, 32, 64)        # 32 x 32 -> 64 multiply-accumulate: DSP-capable cores
-ARITHS = {"narrow": NARROW, "wide": WIDE}
+ARITHS = {"narrow": NARROW, "mid": MID, "wide": WIDE}
 
 
 def limit_of(bits: int) -> int:
@@ -217,6 +222,18 @@ def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width
         y_b = math.ceil(y_b)
         biggest = max(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2))
         regs.append(reg(f"iir.{k}.product", f.acc_bits, biggest * f.limit, "largest coefficient x data limit"))
+        if f.acc_bits == SPLIT_ACC_BITS:
+            # the three 32-bit partial sums of the split products, and the rounded result before
+            # its saturation (section_step's C twin in the template), for any saturated inputs
+            total = sum(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2))
+            regs.append(reg(f"iir.{k}.split_hi", 32, total * ((f.limit >> 16) + 1), "sum of coef x (word >> 16)"))
+            regs.append(reg(f"iir.{k}.split_mid", 32, total * 255 + (total * 255 + half) // 256 + 1,
+                            "sum of coef x middle byte, plus the low sum's carry"))
+            regs.append(reg(f"iir.{k}.split_lo", 32, total * 255 + half, "sum of coef x low byte, plus the rounding half"))
+            regs.append(reg(f"iir.{k}.split_top", 32, total * ((f.limit >> 16) + 1) << (16 - f.coef_bits),
+                            "top sum x 2^(16 - coef bits)"))
+            regs.append(reg(f"iir.{k}.split_out", 32, total * f.limit // (1 << f.coef_bits) + 2,
+                            "rounded sum before saturation"))
         if f.acc_bits == 32:
             acc_b = y_b * (1 << f.coef_bits) + half
             note = "final sum; exact 32-bit products summed modulo 2^32 (partial sums may wrap)"

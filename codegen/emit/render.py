@@ -94,6 +94,8 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
     ops = ["wrap_s32", "rshr", "sat"]
+    if design.filters.acc_bits == 48:
+        ops += ["split_mac", "split_round"]
     if design.stamps:
         ops.append("reciprocal")
         if design.cubic:

@@ -247,14 +247,25 @@ QUOTIENT_COST = {"linear": (10, 2), "cubic": (20, 8)}
 COUNT_INPUT_OPS = 40                               # difference, zero run, clamp
 GRID_OPS_PER_STAGE = 8                             # each CIC integrator and comb, per grid instant
 OUTPUT_OPS = 60                                    # combs' share, scale, offset tracker, output word
-SECTION_OPS = {64: 100, 32: 45}                    # a section's rounding, saturation and state moves
+SECTION_OPS = {64: 100, 48: 70, 32: 45}            # a section's rounding, saturation and state moves
 
 
 def filter_cycles(tgt: Target, acc_bits: int, sections: int) -> int:
     """Cycles of the IIR sections per output sample: five products and their sums per section,
-    as 32x32->64 multiply-accumulates (64-bit accumulators) or exact 32-bit products."""
+    as 32x32->64 multiply-accumulates (64-bit accumulators), exact 32-bit products, or (48: the
+    split 27 x 16 form) three 16x16->32 products each."""
     mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
-    return sections * (5 * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
+    products = 15 if acc_bits == 48 else 5
+    return sections * (products * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
+
+
+def planned_filter_cycles(tgt: Target, sections: int) -> int:
+    """The sections' cost the planner charges: the cheaper of the two arithmetics whose roundoff is
+    negligible at any quality the planner can promise (the split 27 x 16, offered on cores without a
+    32x32->64 multiply, and the wide 32 x 32); the designer then picks among all by predicted loss
+    and cost and updates the figure."""
+    wide = filter_cycles(tgt, 64, sections)
+    return wide if tgt.mul64 else min(wide, filter_cycles(tgt, 48, sections))
 
 
 def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
@@ -262,9 +273,9 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
     """Estimated cycles (core profile figures and the calibrated op counts above) and RAM."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
-    # the scale product, the sections (planned wide; the designer may then pick a cheaper
+    # the scale product, the sections (planned_filter_cycles; the designer may then pick a cheaper
     # arithmetic and updates the figure), and the rest of the output path
-    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + filter_cycles(tgt, 64, sections)
+    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + planned_filter_cycles(tgt, sections)
     cic = GRID_OPS_PER_STAGE * n * op
     if v.front == "stamp":
         per_input = STAMP_INPUT_OPS[v.order] * op

@@ -33,8 +33,15 @@ def key(*parts: object) -> str:
     return hashlib.sha256(repr(parts).encode()).hexdigest()[:24]
 
 
+def _mtime(f: Path) -> float:
+    try:
+        return f.stat().st_mtime
+    except OSError:          # removed meanwhile by another process trimming the same folder
+        return 0.0
+
+
 def _trim(d: Path) -> None:
-    files = sorted((f for f in d.iterdir() if f.is_file()), key=lambda f: f.stat().st_mtime)
+    files = sorted((f for f in d.iterdir() if f.is_file()), key=_mtime)
     for f in files[:max(0, len(files) - MAX_ENTRIES)]:
         f.unlink(missing_ok=True)
 
@@ -71,7 +78,10 @@ def load_bytes(k: str) -> bytes | None:
     if not p.is_file():
         return None
     _touch(p)
-    return p.read_bytes()
+    try:
+        return p.read_bytes()
+    except OSError:          # trimmed meanwhile by another process: a miss
+        return None
 
 
 def store_bytes(k: str, data: bytes) -> None:
