@@ -136,6 +136,13 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             needed = cb
         cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections))
         why = []
+        if a.data_bits == 16:
+            # zero-input limit cycles (Jackson 1969): the idle tone of a 16-bit word must stay under the
+            # planned noise (the widths check's rule); wider words put it far below any noise
+            for sec, m in zip(f.sections, wordlength.limit_cycle_lsb(f)):
+                if m and (m * 2.0 ** -sec.q_out) ** 2 / 2 > signal_fs2:
+                    why.append(f"limit cycle in {sec.role} above the noise floor")
+                    break
         if loss > fx.loss_limit_db:
             why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
         if err > fx.response_tol_db:
