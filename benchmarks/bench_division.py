@@ -24,7 +24,7 @@ import numpy as np
 
 import edgetally
 from edgetally.check.model import unwrap
-from edgetally.fixedpoint import CUBIC_T_BITS, c_definitions
+from edgetally.fixedpoint import CUBIC_T_BITS, c_definitions, recip_plan
 from edgetally.stimulus.inputs import make_inputs
 from edgetally.target import build as target
 from edgetally.target.check import available_cores
@@ -147,7 +147,8 @@ def pairs(design, n: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 def measure(design, wd: Path) -> dict[str, float]:
-    plan = design.recip
+    # the design's own plan (M0+ class designs), or the one it would have (the M4-class example)
+    plan = recip_plan(design.front.gap_ticks.bit_length(), design.front.phase_shift)
     e1, d = pairs(design, PAIRS)
     src = SOURCE.format(defs=c_definitions("bench", ["wrap_s32", "reciprocal"], plan), n=e1.size,
                         e1=", ".join(f"{v}u" for v in e1), d=", ".join(f"{v}u" for v in d), shift=plan.shift,
@@ -191,7 +192,7 @@ def main() -> None:
             if not d.stamps:
                 continue
             r = measure(d, Path(root) / path.stem)
-            p = d.recip
+            p = recip_plan(d.front.gap_ticks.bit_length(), d.front.phase_shift)
             print(f"{path.stem:14} {f'{p.d_lo}..{p.d_hi}':>11} {r['bench_div']:6.1f} {r['bench_recip']:8.1f} "
                   f"{r['bench_quot']:8.1f} {r['bench_div2']:7.1f} {r['bench_recip2']:9.1f}")
 

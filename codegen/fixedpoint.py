@@ -374,10 +374,11 @@ def cubic_shifts(delta_limit: int) -> tuple[int, int, int, int, float]:
     return best
 
 
-def cubic_fraction(e1, d, d_prev, d_next, delta_limit: int, k, dn, r, plan: RecipPlan):
+def cubic_fraction(e1, d, d_prev, d_next, delta_limit: int, shift: int, quot):
     """Phase fraction (Q plan.shift) at offset e1 into a stamp interval d, corrected for the
     curvature of time as a function of phase through four stamps (intervals d_prev, d, d_next),
-    in 32-bit words; (k, dn, r) is the interval's ``interval_reciprocal``.
+    in 32-bit words; ``quot(x, lbits)`` is floor(x 2**(shift - lbits) / d) for x < d << lbits, by the
+    interval's reciprocal (``reciprocal_quotient``) or by division (``division_quotient``).
 
     With u the linear fraction and the second differences delta0 = d - d_prev, delta1 = d_next - d
     (clamped to +-delta_limit), the cubic through the four stamps lies below the chord by
@@ -390,10 +391,9 @@ def cubic_fraction(e1, d, d_prev, d_next, delta_limit: int, k, dn, r, plan: Reci
     bound it returns, a few Q8 units: under 0.03 tick, against the timer's own 1-tick step).
     e1 < d and d << 8 < 2**32 (d <= the gap limit, whose bits plus the shift are at most 32).
       u = floor(sat((e1 << 8) + corr, 0, (d << 8) - 1) 2**(shift - 8) / d)
-    Both quotients go through the interval's reciprocal (``ratio_recip``), exact floor divisions."""
+    Both quotients are exact floor divisions, whichever way ``quot`` computes them."""
     one = 1 << CUBIC_U_BITS
-    shift = plan.shift
-    u0 = ratio_recip(e1 << k, 0, shift, dn, r, plan.fix_linear)
+    u0 = quot(e1, 0)
     v = u0 >> (shift - CUBIC_U_BITS)
     dl0 = sat(d - d_prev, -delta_limit, delta_limit)
     dl1 = sat(d_next - d, -delta_limit, delta_limit)
@@ -402,7 +402,18 @@ def cubic_fraction(e1, d, d_prev, d_next, delta_limit: int, k, dn, r, plan: Reci
     sh, sq, sg, so, _ = cubic_shifts(delta_limit)
     corr = rshr(_rshr0(q, sq) * _rshr0(_rshr0(h, sh) * INV6, sg), so)
     num = sat((e1 << CUBIC_T_BITS) + corr, 0, (d << CUBIC_T_BITS) - 1)
-    return ratio_recip(num << k, CUBIC_T_BITS, shift, dn, r, plan.fix_cubic)
+    return quot(num, CUBIC_T_BITS)
+
+
+def reciprocal_quotient(k, dn, r, plan: RecipPlan):
+    """``quot`` of ``cubic_fraction`` through the interval's reciprocal (``interval_reciprocal``)."""
+    return lambda x, lbits: ratio_recip(x << k, lbits, plan.shift, dn, r,
+                                        plan.fix_linear if lbits == 0 else plan.fix_cubic)
+
+
+def division_quotient(d, shift: int):
+    """``quot`` of ``cubic_fraction`` by division (``ratio_floor``), for cores that divide."""
+    return lambda x, lbits: ratio_floor(x, shift - lbits, d)
 
 
 # C renderings of the same operations. ``{p}`` is replaced by the design's name prefix.
@@ -488,20 +499,29 @@ static inline int32_t {p}_sat32(int32_t x, int32_t lo, int32_t hi)
 }
 
 
-def cubic_c_text(prefix: str, delta_limit: int) -> str:
-    """The C of ``cubic_fraction`` for one delta_limit (its shifts printed in); it calls the
-    reciprocal's ``ratio_recip``, ``rshr32``, ``sat32`` and ``wrap_s32``."""
+def cubic_c_text(prefix: str, delta_limit: int, recip: RecipPlan | None, shift: int) -> str:
+    """The C of ``cubic_fraction`` for one delta_limit (its shifts printed in), its quotients through
+    the interval's reciprocal (``ratio_recip``) or by division (``ratio_floor``); it also calls
+    ``rshr32``, ``sat32`` and ``wrap_s32``."""
     p = prefix
     sh, sq, sg, so, _ = cubic_shifts(delta_limit)
+
     def r0(x, n):
         return f"{p}_rshr32({x}, {n}u)" if n else x
+    if recip is not None:
+        args = ",\n                                          unsigned k, uint32_t dn, uint32_t r"
+        q0 = f"{p}_ratio_recip(e1 << k, 0u, {shift}u, dn, r, {recip.fix_linear}u)"
+        q1 = f"{p}_ratio_recip((uint32_t)num << k, {CUBIC_T_BITS}u, {shift}u, dn, r, {recip.fix_cubic}u)"
+    else:
+        args = ""
+        q0 = f"{p}_ratio_floor(e1, {shift}u, d)"
+        q1 = f"{p}_ratio_floor((uint32_t)num, {shift - CUBIC_T_BITS}u, d)"
     return f"""\
-static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next,
-                                          unsigned k, uint32_t dn, uint32_t r)
-{{{{
+static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next{args})
+{{
     /* phase fraction through four stamps in 32-bit words (see edgetally.fixedpoint.cubic_fraction) */
     const int32_t one = (int32_t)1 << {CUBIC_U_BITS}u;
-    int32_t v = (int32_t)({p}_ratio_recip(e1 << k, 0u, SHIFT_PH, dn, r, FIX_LIN) >> (SHIFT_PH - {CUBIC_U_BITS}u));
+    int32_t v = (int32_t)({q0} >> ({shift}u - {CUBIC_U_BITS}u));
     int32_t dl0 = {p}_sat32({p}_wrap_s32(d - d_prev), -{delta_limit}, {delta_limit});
     int32_t dl1 = {p}_sat32({p}_wrap_s32(d_next - d), -{delta_limit}, {delta_limit});
     int32_t h = (2 * dl0 + dl1) * one + (dl1 - dl0) * v;
@@ -509,22 +529,21 @@ static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_pr
     int32_t g = {r0("h", sh)} * {INV6};
     int32_t corr = {p}_rshr32({r0("q", sq)} * {r0("g", sg)}, {so}u);
     int32_t num = {p}_sat32((int32_t)(e1 << {CUBIC_T_BITS}u) + corr, 0, (int32_t)(d << {CUBIC_T_BITS}u) - 1);
-    return {p}_ratio_recip((uint32_t)num << k, {CUBIC_T_BITS}u, SHIFT_PH, dn, r, FIX_CUB);
-}}}}
+    return {q1};
+}}
 """
 
 
-def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0) -> str:
+def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0,
+                  shift: int = 0) -> str:
     """The C text of the named operations (all when ``names`` is None), in definition order, with
     ``prefix`` on each name. Emit only what a design calls: unused static functions draw warnings.
     "reciprocal" (the seed table, ``recip_norm``, ``reciprocal``, ``ratio_recip``) needs its plan;
-    "cubic_fraction" also its delta_limit."""
+    "cubic_fraction" its delta_limit and phase shift (and the plan when it divides by reciprocal)."""
     chosen = [n for n in C_DEFINITIONS if names is None or n in names]
     text = "".join(C_DEFINITIONS[n] for n in chosen).format(p=prefix)
     if recip is not None and (names is None or "reciprocal" in names):
         text += recip_c_text(prefix, recip)
-        if names is None or "cubic_fraction" in names:
-            text += (cubic_c_text(prefix, delta_limit).format()
-                     .replace("SHIFT_PH", f"{recip.shift}u").replace("FIX_LIN", f"{recip.fix_linear}u")
-                     .replace("FIX_CUB", f"{recip.fix_cubic}u"))
+    if names is not None and "cubic_fraction" in names:
+        text += cubic_c_text(prefix, delta_limit, recip, shift)
     return "/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */\n" + text

@@ -71,6 +71,7 @@ class StampFront:
     delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
     max_delta: int = 0     # a stamp interval is taken as at most this (a long gap is just a gap)
     x_low: int = 0         # smallest legal phase step per grid period
+    divide: str = "reciprocal"  # quotients by one reciprocal per interval, or "division" (a divide per instant)
     kind: str = "stamp"
 
 
@@ -267,8 +268,9 @@ class Design:
     @property
     def recip(self):
         """The plan of the stamp front's division-free quotients (``fixedpoint.recip_plan``): every
-        stamp interval up to the gap limit, at the phase shift; None for count fronts."""
-        if not self.stamps:
+        stamp interval up to the gap limit, at the phase shift; None for count fronts and for
+        fronts that divide (cores with a divide instruction, or without a fast multiplier)."""
+        if not self.stamps or self.front.divide != "reciprocal":
             return None
         from .fixedpoint import recip_plan
 

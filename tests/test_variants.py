@@ -39,15 +39,21 @@ VARIANTS += [("interrupt", "stamp-linear", None), ("interrupt", "stamp-cubic", N
              ("timestamp", "k1-linear", "wide")]
 
 
-def _design(scheme, label, arith):
-    spec = edgetally.parse_spec(SCENARIO)
+# The same link on an M4-class part (a divide instruction): its stamp fronts divide per grid instant
+# instead of using the reciprocal (planner.schemes.uses_reciprocal); both estimators checked there.
+M4 = {**SCENARIO, "target": {**SCENARIO["target"], "core": "cortex-m4"}}
+M4_VARIANTS = [("timestamp", "k1-linear", None, "m4"), ("timestamp", "k1-cubic", None, "m4")]
+
+
+def _design(scheme, label, arith, core=None):
+    spec = edgetally.parse_spec(M4 if core == "m4" else SCENARIO)
     p = plan(spec, scheme=scheme, variant=label)
     return edgetally.design(spec, chosen=p, overrides={"arith": arith} if arith else None)
 
 
 @pytest.fixture(scope="module")
 def built():
-    return {v: _design(*v) for v in VARIANTS}
+    return {v: _design(*v) for v in VARIANTS + M4_VARIANTS}
 
 
 def test_every_variant_is_covered(built):
@@ -60,9 +66,11 @@ def test_every_variant_is_covered(built):
     assert {d.filters.acc_bits for d in built.values()} == {32, 48, 64}
     assert {d.front.prescale for d in built.values()} == {1, 2, 4, 8}
     assert {d.cubic for d in built.values()} == {True, False}
+    assert {d.front.divide for d in built.values() if d.stamps} == {"reciprocal", "division"}
+    assert all(built[v].front.divide == "division" for v in M4_VARIANTS)
 
 
-@pytest.mark.parametrize("v", VARIANTS, ids=["-".join(filter(None, v)) for v in VARIANTS])
+@pytest.mark.parametrize("v", VARIANTS + M4_VARIANTS, ids=["-".join(filter(None, v)) for v in VARIANTS + M4_VARIANTS])
 def test_variant_bit_exact_on_host(built, v):
     d = built[v]
     assert (d.scheme, d.variant) == v[:2]
@@ -88,10 +96,11 @@ def test_variant_bit_exact_on_host(built, v):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("v", VARIANTS, ids=["-".join(filter(None, v)) for v in VARIANTS])
+@pytest.mark.parametrize("v", VARIANTS + M4_VARIANTS, ids=["-".join(filter(None, v)) for v in VARIANTS + M4_VARIANTS])
 def test_variant_bit_exact_in_emulator(built, v):
-    if "cortex-m0plus" not in available_cores():
+    core = "cortex-m4" if v in M4_VARIANTS else "cortex-m0plus"
+    if core not in available_cores():
         pytest.skip("no arm-none-eabi-gcc or unicorn here")
-    res = target_check(built[v], seed=17, seconds=0.1, cores=("cortex-m0plus",))["cortex-m0plus"]
+    res = target_check(built[v], seed=17, seconds=0.1, cores=(core,))[core]
     assert res["bit_exact"] and res["samples"] > 0
     assert res["isa_violations"] == []

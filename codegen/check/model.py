@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..fixedpoint import (cubic_fraction, interval_fraction, interval_reciprocal, rshr, sat, section_step, wrap_bits,
-                          wrap_s32)
+from ..fixedpoint import (cubic_fraction, division_quotient, interval_reciprocal, reciprocal_quotient, rshr, sat,
+                          section_step, wrap_bits, wrap_s32)
 
 
 @dataclass(frozen=True)
@@ -90,12 +90,16 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     safe_d = np.where(gap, 1, d)
     e1 = np.where(gap, 0, g - t1)
     plan = design.recip
-    k, dn, r = interval_reciprocal(safe_d, plan)          # the C computes it once per interval
+    if plan is not None:
+        k, dn, r = interval_reciprocal(safe_d, plan)      # the C computes it once per interval
+        quot = reciprocal_quotient(k, dn, r, plan)
+    else:
+        quot = division_quotient(safe_d, fr.phase_shift)
     if cubic:
         frac = cubic_fraction(e1, safe_d, np.where(gap, 1, t1 - t[i - 2]), np.where(gap, 1, t[i + 1] - t[i]),
-                              fr.delta_limit, k, dn, r, plan)
+                              fr.delta_limit, fr.phase_shift, quot)
     else:
-        frac = interval_fraction(e1, k, dn, r, plan)
+        frac = quot(e1, 0)
     p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
     p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
     step = wrap_s32(np.diff(np.concatenate(([p_start], p))))

@@ -87,7 +87,7 @@ def _front_words(front) -> list:
     """The stamp front's 32-bit intermediates for the certificate (none for count fronts)."""
     if front.kind != "stamp":
         return []
-    recip = recip_plan(front.gap_ticks.bit_length(), front.phase_shift)
+    recip = recip_plan(front.gap_ticks.bit_length(), front.phase_shift) if front.divide == "reciprocal" else None
     return wordlength.stamp_words(recip, front.delta_limit if front.order == "cubic" else 0)
 
 

@@ -175,8 +175,9 @@ def stamp_words(recip, delta_limit: int) -> list[tuple[str, int, int, str]]:
     the plan was made) and, for the cubic (delta_limit > 0), its correction's words from their
     bounds (``fixedpoint.cubic_shifts``). The unsigned quotient words are below 2**32 by the
     bounds in ``fixedpoint.ratio_recip``."""
-    words = [("front.recip.error", 32, recip.error_max, "2^32 - d r before a Newton step, every legal d"),
-             ("front.recip.product", 32, recip.product_max, "pre-shifted Newton product, every legal d")]
+    words = [] if recip is None else [
+        ("front.recip.error", 32, recip.error_max, "2^32 - d r before a Newton step, every legal d"),
+        ("front.recip.product", 32, recip.product_max, "pre-shifted Newton product, every legal d")]
     if delta_limit:
         one = 1 << CUBIC_U_BITS
         sh, sq, sg, so, _ = cubic_shifts(delta_limit)

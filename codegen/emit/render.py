@@ -97,7 +97,7 @@ def _operations(design: Design) -> list[str]:
     if design.filters.acc_bits == 48:
         ops += ["split_mac", "split_round"]
     if design.stamps:
-        ops.append("reciprocal")
+        ops.append("reciprocal" if design.recip is not None else "ratio_floor")
         if design.cubic:
             ops += ["rshr32", "sat32", "cubic_fraction"]
     return ops
@@ -244,7 +244,8 @@ def emit(design: Design) -> dict[str, str]:
         counter=design.topology is Topology.COUNTER, recip=design.recip,
         input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
         fixedpoint=c_definitions(p, _operations(design), design.recip,
-                                 design.front.delta_limit if design.cubic else 0),
+                                 design.front.delta_limit if design.cubic else 0,
+                                 design.front.phase_shift if design.stamps else 0),
     )
     return {
         f"{p}.h": env.get_template("demod.h.j2").render(ctx),

@@ -129,7 +129,8 @@ def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: i
                 timer_bits=tgt.timer_bits, prescale=k, grid_ticks=grid_ticks, phase_shift=shift, gap_ticks=gap,
                 x_limit=x_limit, x_low=math.floor(f_lo / k / grid_hz * (1 << shift)),
                 x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)), order=v.order,
-                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0, max_delta=2 * gap)
+                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0, max_delta=2 * gap,
+                divide="reciprocal" if schemes.uses_reciprocal(tgt) else "division")
             return (front, in_bits), None
     return None, "no 32-bit phase word fits this ratio"
 

@@ -268,6 +268,14 @@ def planned_filter_cycles(tgt: Target, sections: int) -> int:
     return wide if tgt.mul64 else min(wide, filter_cycles(tgt, 48, sections))
 
 
+def uses_reciprocal(tgt: Target) -> bool:
+    """Whether the stamp front's quotients go through one reciprocal per interval: on cores with no
+    divide instruction but a fast 32-bit multiply (measured: benchmarks/bench_division.py on the
+    M0+ class); a divide instruction, or a software multiply (RV32EC, AVR), makes the plain
+    division the cheaper one."""
+    return not tgt.hw_divide and CORES[tgt.core].mul32_cycles <= 2
+
+
 def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
          sections: int, queue_len: int) -> Load:
     """Estimated cycles (core profile figures and the calibrated op counts above) and RAM."""
@@ -279,9 +287,14 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
     cic = GRID_OPS_PER_STAGE * n * op
     if v.front == "stamp":
         per_input = STAMP_INPUT_OPS[v.order] * op
-        ops = RECIP_COST[0] + QUOTIENT_COST[v.order][0] + STAMP_GRID_OPS[v.order]
-        muls = RECIP_COST[1] + QUOTIENT_COST[v.order][1]
-        per_grid = ops * op + muls * CORES[tgt.core].mul32_cycles + cic
+        divs = 2 if v.order == "cubic" else 1
+        if uses_reciprocal(tgt):
+            ops = RECIP_COST[0] + QUOTIENT_COST[v.order][0] + STAMP_GRID_OPS[v.order]
+            muls = RECIP_COST[1] + QUOTIENT_COST[v.order][1]
+            per_grid = ops * op + muls * CORES[tgt.core].mul32_cycles + cic
+        else:
+            muls = QUOTIENT_COST[v.order][1] - 2 * divs          # the cubic's own products
+            per_grid = divs * tgt.div32_cycles + muls * CORES[tgt.core].mul32_cycles + STAMP_GRID_OPS[v.order] * op + cic
         if v.scheme == "interrupt":
             per_edge = isr + 12 * op                                     # read timer, queue the stamp
         else:
