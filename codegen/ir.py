@@ -73,6 +73,7 @@ class StampFront:
     delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
     max_delta: int = 0     # a stamp interval is taken as at most this (a long gap is just a gap)
     x_low: int = 0         # smallest legal phase step per grid period
+    divide: str = "reciprocal"  # quotients by one reciprocal per interval, or "division" (a divide per instant)
     kind: str = "stamp"
 
 
@@ -149,7 +150,7 @@ class Filters:
     data_bits: int                     # 16 or 32: every section input, output and state word
     coef_bits: int                     # Q format of the coefficients
     coef_width: int                    # 16 or 32: their storage
-    acc_bits: int                      # 32 or 64
+    acc_bits: int                      # 32, 48 (three 32-bit sums of split products) or 64
     scaling: str                       # "l1", "l2" or "linf": the norm that set each q_out
     limit: int                         # 2**(data_bits - 1) - 1: every node saturates here
     sections: tuple[Section, ...]
@@ -294,6 +295,17 @@ class Design:
     def cubic(self) -> bool:
         """The stamp front interpolates through four stamps."""
         return self.stamps and self.front.order == "cubic"
+
+    @property
+    def recip(self):
+        """The plan of the stamp front's division-free quotients (``fixedpoint.recip_plan``): every
+        stamp interval up to the gap limit, at the phase shift; None for count fronts and for
+        fronts that divide (cores with a divide instruction, or without a fast multiplier)."""
+        if not self.stamps or self.front.divide != "reciprocal":
+            return None
+        from .fixedpoint import recip_plan
+
+        return recip_plan(self.front.gap_ticks.bit_length(), self.front.phase_shift)
 
     @property
     def input_bits(self) -> int:

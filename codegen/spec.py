@@ -77,6 +77,11 @@ SQUELCH_CNR_DB = 8.0               # a little below the FM threshold near 10 dB 
 SQUELCH_CNR_RANGE = (0.0, 40.0)    # dB: from deep below threshold to far above it
 
 
+# A flat band by default: the CIC droop is compensated when it exceeds this at the band edge (a spec
+# opts out with fixed.droop_limit_db = 0). Common practice, no source: 1 dB is a usual flatness target
+# for a voice or audio band.
+DROOP_LIMIT_DB = 1.0
+
 @dataclass(frozen=True)
 class Signal:
     if_hz: float
@@ -135,7 +140,7 @@ class Fixed:
     response_tol_db: float = 0.05      # largest gain error of the quantised filters over the band
     scaling: str = "l1"                # "l1" (no overflow for any input), "l2" or "linf" (wide only)
     arith: str = "auto"                # "auto" (cheapest that meets the loss), "narrow" or "wide"
-    droop_limit_db: float = 0.0        # compensate the CIC droop when it exceeds this at the band edge (0: never)
+    droop_limit_db: float = DROOP_LIMIT_DB  # compensate the CIC droop when it exceeds this in the band (0: never)
 
 
 @dataclass(frozen=True)
@@ -360,7 +365,7 @@ def _fixed(raw: dict) -> Fixed:
         response_tol_db=_number(f, "fixed", "response_tol_db", default=0.05),
         scaling=f.get("scaling", "l1"),
         arith=f.get("arith", "auto"),
-        droop_limit_db=_number(f, "fixed", "droop_limit_db", default=0.0),
+        droop_limit_db=_number(f, "fixed", "droop_limit_db", default=DROOP_LIMIT_DB),
     )
     if fx.scaling != "l1" and fx.arith == "narrow":
         raise SpecError("fixed.scaling", fx.scaling, 'the narrow arithmetic has 32-bit accumulators and needs "l1"')

@@ -16,7 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..fixedpoint import cubic_fraction, ratio_floor, rshr, sat, section_step, squelch_level, wrap_bits, wrap_s32
+from ..fixedpoint import (cubic_fraction, division_quotient, interval_reciprocal, reciprocal_quotient, rshr, sat,
+                          section_step, squelch_level, wrap_bits, wrap_s32)
 
 
 @dataclass(frozen=True)
@@ -91,11 +92,17 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     resync = ~gap & (prev_gap | lost_between)
     safe_d = np.where(gap, 1, d)
     e1 = np.where(gap, 0, g - t1)
+    plan = design.recip
+    if plan is not None:
+        k, dn, r = interval_reciprocal(safe_d, plan)      # the C computes it once per interval
+        quot = reciprocal_quotient(k, dn, r, plan)
+    else:
+        quot = division_quotient(safe_d, fr.phase_shift)
     if cubic:
         frac = cubic_fraction(e1, safe_d, np.where(gap, 1, t1 - t[i - 2]), np.where(gap, 1, t[i + 1] - t[i]),
-                              fr.phase_shift, fr.delta_limit)
+                              fr.delta_limit, fr.phase_shift, quot)
     else:
-        frac = ratio_floor(e1, fr.phase_shift, safe_d)
+        frac = quot(e1, 0)
     p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
     p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
     step = wrap_s32(np.diff(np.concatenate(([p_start], p))))
@@ -174,7 +181,7 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
     sats = int(np.count_nonzero(u_all != raw))
     coefs = [(s.b0, s.b1, s.b2, s.a1, s.a2) for s in f.sections]
     state = [[0, 0, 0, 0] for _ in coefs]
-    narrow_acc = f.acc_bits == 32
+    narrow_acc, split = f.acc_bits == 32, f.acc_bits == 48
     dc_acc = 0
     out = np.empty(u_all.size, dtype=np.int64)
     clips = 0
@@ -186,7 +193,7 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
             sats += 1
             v = sat(v, -lim, lim)
         for c, z in zip(coefs, state, strict=True):
-            v, saturated = section_step(c, z, v, cb, lim, narrow_acc)
+            v, saturated = section_step(c, z, v, cb, lim, narrow_acc, split)
             sats += saturated
         o = v * of.lmul
         if of.rshift:

@@ -13,6 +13,7 @@ from fractions import Fraction
 
 from .. import __version__
 from ..dsp import cic
+from ..fixedpoint import recip_plan
 from . import wordlength
 from ..dsp import iir
 from ..planner import schemes
@@ -72,16 +73,23 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     q_in = math.floor(math.log2(lim / in_rel))
     qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
     cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    if a.acc_bits == wordlength.SPLIT_ACC_BITS and not 8 <= cb <= 16:
+        raise ValueError(f"the split products need Q8..Q16 coefficients, not Q{cb}")
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
 
-def _droop(spec: Spec, p: Plan) -> tuple[int, int] | None:
-    """(order, ratio) of the CIC when its droop at the band edge exceeds the spec's limit."""
-    lim = spec.fixed.droop_limit_db
-    if lim and cic.droop_db(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio) > lim:
-        return p.order, p.ratio
-    return None
+def _droop(spec: Spec, p: Plan) -> tuple[int, int, float] | None:
+    """(order, ratio, flatness) of the CIC when its droop at the band edge exceeds the spec's limit."""
+    return iir.droop_of(spec.signal.audio_hz, spec.output.rate_hz, p.order, p.ratio, spec.fixed.droop_limit_db)
+
+
+def _front_words(front) -> list:
+    """The stamp front's 32-bit intermediates for the certificate (none for count fronts)."""
+    if front.kind != "stamp":
+        return []
+    recip = recip_plan(front.gap_ticks.bit_length(), front.phase_shift) if front.divide == "reciprocal" else None
+    return wordlength.stamp_words(recip, front.delta_limit if front.order == "cubic" else 0)
 
 
 def _out_format(spec: Spec, q_last: int) -> OutputFormat:
@@ -99,7 +107,9 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     first, with its predicted loss, response error and cost, and whether it meets the spec."""
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
-    names = [ov.pop("arith")] if "arith" in ov else (["narrow", "wide"] if fx.arith == "auto" else [fx.arith])
+    # the split arithmetic stands in for a 32x32->64 multiply: offered where the core has none
+    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "mid", "wide"]
+    names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
     opts = []
@@ -127,6 +137,13 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             needed = cb
         cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections), a.data_bits, a.coef_width)
         why = []
+        if a.data_bits == 16:
+            # zero-input limit cycles (Jackson 1969): the idle tone of a 16-bit word must stay under the
+            # planned noise (the widths check's rule); wider words put it far below any noise
+            for sec, m in zip(f.sections, wordlength.limit_cycle_lsb(f)):
+                if m and (m * 2.0 ** -sec.q_out) ** 2 / 2 > signal_fs2:
+                    why.append(f"limit cycle in {sec.role} above the noise floor")
+                    break
         if loss > fx.loss_limit_db:
             why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
         if err > fx.response_tol_db:
@@ -195,10 +212,10 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
     cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
                              cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
-                             dc_shift=dc_shift, f=f)
+                             dc_shift=dc_shift, f=f, front_words=_front_words(p.front))
     sq = _squelch(spec, p)
     cert = cert + squelch_registers(sq, x_limit=p.front.x_limit, ratio=p.ratio)
-    per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
+    per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
         name=spec.name, tool_version=__version__, spec_hash=spec_hash(spec), scheme=p.scheme,

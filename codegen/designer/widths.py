@@ -57,7 +57,7 @@ def parse_sets(items: list[str]) -> dict:
                 raise SpecError("--set", item, "needs a whole number") from None
         else:
             out[name] = value
-    allowed = {"data_bits": (16, 32), "coef_width": (16, 32), "acc_bits": (32, 64), "arith": ("narrow", "wide"),
+    allowed = {"data_bits": (16, 27, 32), "coef_width": (16, 32), "acc_bits": (32, 48, 64), "arith": ("narrow", "mid", "wide"),
                "scaling": ("l1", "l2", "linf")}
     for name, choices in allowed.items():
         if name in out and out[name] not in choices:

@@ -33,15 +33,36 @@ def lowpass_sos(audio_hz: float, fs_hz: float) -> np.ndarray:
     return signal.zpk2sos(z, p, k, pairing="nearest")
 
 
-def droop_fir(order: int, ratio: int, audio_hz: float, fs_hz: float) -> np.ndarray:
-    """A three-tap compensator [-a, 1 + 2a, -a] (gain 1 + 2a (1 - cos w), unity at DC) with ``a``
-    chosen by least squares so that it times the CIC's droop is flattest over [0, audio_hz]."""
+def droop_of(audio_hz: float, fs_hz: float, order: int, ratio: int, limit_db: float) -> tuple[int, int, float] | None:
+    """What ``output_filters`` compensates: (order, ratio, limit_db) when the CIC's droop at the band
+    edge exceeds limit_db (> 0), else None (a limit of 0 opts out)."""
+    if limit_db and cic.droop_db(audio_hz, fs_hz, order, ratio) > limit_db:
+        return order, ratio, limit_db
+    return None
+
+
+DROOP_MAX_HALF_TAPS = 3      # compensators of 3, 5 or 7 taps (one to three sections)
+
+
+def droop_fir(order: int, ratio: int, audio_hz: float, fs_hz: float, flat_db: float = 1.0) -> np.ndarray:
+    """A linear-phase compensator with unity DC gain, 1 + sum_k c_k 2 (cos k w - 1) for k = 1..m,
+    with the c_k chosen by least squares so that it times the CIC's droop is flattest over
+    [0, audio_hz]; m is the smallest (1..3) whose compensated response varies by at most
+    ``flat_db`` over the band (else 3). As second-order sections (scipy.signal.tf2sos of the
+    2m + 1 taps: FIR sections, a1 = a2 = 0)."""
     f = np.linspace(0.0, audio_hz, 200)
     w = 2 * np.pi * f / fs_hz
     droop = 10 ** (cic.response_db(f / fs_hz, order, ratio) / 20)
-    g = 2 * (1 - np.cos(w)) * droop                      # d(compensated gain) / da
-    a = float(np.dot(g, 1 - droop) / np.dot(g, g))      # least squares of droop + a g = 1
-    return np.array([[-a, 1 + 2 * a, -a, 1.0, 0.0, 0.0]])
+    for m in range(1, DROOP_MAX_HALF_TAPS + 1):
+        g = np.stack([2 * (np.cos(k * w) - 1) for k in range(1, m + 1)], axis=1) * droop[:, None]
+        c = np.linalg.lstsq(g, 1 - droop, rcond=None)[0]           # least squares of droop + g c = 1
+        flat = 20 * np.log10(droop + g @ c)
+        if flat.max() - flat.min() <= flat_db:
+            break
+    taps = np.concatenate([c[::-1], [1 - 2 * c.sum()], c])
+    if m == 1:
+        return np.array([[taps[0], taps[1], taps[2], 1.0, 0.0, 0.0]])
+    return signal.tf2sos(taps, [1.0])
 
 
 def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
@@ -56,10 +77,10 @@ def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
 
 
 def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float,
-                   droop: tuple[int, int] | None = None) -> list[tuple[str, np.ndarray]]:
-    """The output-rate filters of a design, in order: (role, float sos); ``droop`` = (order, ratio)
-    of a CIC to compensate first."""
-    out = [("droop", droop_fir(droop[0], droop[1], audio_hz, fs_hz))] if droop else []
+                   droop: tuple[int, int, float] | None = None) -> list[tuple[str, np.ndarray]]:
+    """The output-rate filters of a design, in order: (role, float sos); ``droop`` = (order, ratio,
+    flatness in dB) of a CIC to compensate first."""
+    out = [("droop", droop_fir(droop[0], droop[1], audio_hz, fs_hz, droop[2]))] if droop else []
     out.append(("lowpass", lowpass_sos(audio_hz, fs_hz)))
     if deemphasis_us:
         out.append(("deemphasis", deemphasis_sos(deemphasis_us * 1e-6, fs_hz)))

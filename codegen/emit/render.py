@@ -104,10 +104,12 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
     ops = ["wrap_s32", "rshr", "sat", "squelch_level"]
+    if design.filters.acc_bits == 48:
+        ops += ["split_mac", "split_round"]
     if design.stamps:
-        ops.append("ratio_floor")
+        ops.append("reciprocal" if design.recip is not None else "ratio_floor")
         if design.cubic:
-            ops.append("cubic_fraction")
+            ops += ["rshr32", "sat32", "cubic_fraction"]
     return ops
 
 
@@ -269,9 +271,11 @@ def emit(design: Design) -> dict[str, str]:
         # template flags: the templates branch on these and print the Design, never decide
         stamp=design.stamps, cubic=design.cubic, capture=design.topology is Topology.CAPTURE,
         edge_stamp=design.topology is Topology.EDGE_STAMP, edge_count=design.topology is Topology.EDGE_COUNT,
-        counter=design.topology is Topology.COUNTER,
+        counter=design.topology is Topology.COUNTER, recip=design.recip,
         input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_MAX",
-        fixedpoint=c_definitions(p, _operations(design)),
+        fixedpoint=c_definitions(p, _operations(design), design.recip,
+                                 design.front.delta_limit if design.cubic else 0,
+                                 design.front.phase_shift if design.stamps else 0),
         misra=deviations.header_text(p),
     )
     return {

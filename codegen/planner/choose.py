@@ -129,7 +129,8 @@ def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: i
                 timer_bits=tgt.timer_bits, prescale=k, grid_ticks=grid_ticks, phase_shift=shift, gap_ticks=gap,
                 x_limit=x_limit, x_low=math.floor(f_lo / k / grid_hz * (1 << shift)),
                 x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)), order=v.order,
-                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0, max_delta=2 * gap)
+                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0, max_delta=2 * gap,
+                divide="reciprocal" if schemes.uses_reciprocal(tgt) else "division")
             return (front, in_bits), None
     return None, "no 32-bit phase word fits this ratio"
 
@@ -158,11 +159,14 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
     sig, out, tgt = spec.signal, spec.output, spec.target
     ticks_per_out = tgt.timer_hz // out.rate_hz
     edge_max = sig.if_hz + sig.deviation_hz
-    sections = sum(len(s) for s in post_sos)
     cands = []
     for ratio in range(2, MAX_RATIO + 1):
         if ticks_per_out % ratio or (only_ratio is not None and ratio != only_ratio):
             continue
+        # the droop compensator this ratio needs (as the designer will build it) costs and shapes too
+        droop = iir.droop_of(sig.audio_hz, out.rate_hz, CIC_ORDER, ratio, spec.fixed.droop_limit_db)
+        sos_r = ([iir.droop_fir(*droop[:2], sig.audio_hz, out.rate_hz, droop[2])] if droop else []) + list(post_sos)
+        sections = sum(len(s) for s in sos_r)
         grid_hz = out.rate_hz * ratio
         grid_ticks = ticks_per_out // ratio
         if v.front == "stamp":
@@ -175,7 +179,7 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
                           sections=sections, queue_len=qlen)
         pr = schemes.predict(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
                              cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles, grid_hz=grid_hz,
-                             out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=post_sos)
+                             out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=sos_r)
         reason = impossible or why
         if reason is None:
             reason = _rate_limit(spec, v, ld, grid_hz)

@@ -252,11 +252,17 @@ class Load:
 # instruction classes), on the four examples, both ARM cores, rounded; within about 25 % of those
 # figures. `plan --measured` replaces them by the measured figures for one design.
 STAMP_INPUT_OPS = {"linear": 72, "cubic": 80}      # unwrap, bracket test, loop and queue bookkeeping
-STAMP_GRID_OPS = {"linear": 60, "cubic": 250}      # interpolation (besides its divisions), clamp
+STAMP_GRID_OPS = {"linear": 60, "cubic": 110}      # interpolation (besides its multiplies), clamp
+# The division-free quotients (edgetally.fixedpoint): a reciprocal per stamp interval (seed, two
+# Newton steps, its correction), charged per grid instant (at most one interval starts per instant
+# that uses it), then per quotient a multiply-shift and its correction; the cubic's 32-bit
+# correction adds four products. (ops, 32-bit multiplies).
+RECIP_COST = (30, 5)
+QUOTIENT_COST = {"linear": (10, 2), "cubic": (20, 8)}
 COUNT_INPUT_OPS = 40                               # difference, zero run, clamp
 GRID_OPS_PER_STAGE = 8                             # each CIC integrator and comb, per grid instant
 OUTPUT_OPS = 60                                    # combs' share, scale, offset tracker, output word
-SECTION_OPS = {64: 100, 32: 45}                    # a section's rounding, saturation and state moves
+SECTION_OPS = {64: 100, 48: 70, 32: 45}            # a section's rounding, saturation and state moves
 
 
 def calibrated(tgt: Target) -> bool:
@@ -269,20 +275,40 @@ def calibrated(tgt: Target) -> bool:
 def filter_cycles(tgt: Target, acc_bits: int, sections: int, data_bits: int = 32, coef_width: int = 32) -> int:
     """Cycles of the IIR sections per output sample: from the core's calibrated table for this
     arithmetic, or five products and their sums per section, as 32x32->64 multiply-accumulates
-    (64-bit accumulators) or exact 32-bit products."""
+    (64-bit accumulators), exact 32-bit products, or (48: the split 27 x 16 form) three 16x16->32
+    products each."""
     table = costs.table(tgt.core) if calibrated(tgt) else None
     if table is not None:
         t = table["output"]["section"].get(costs.arith_key(data_bits, coef_width, acc_bits))
         if t is not None:
             return round(t * sections)
     mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
-    return sections * (5 * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
+    products = 15 if acc_bits == 48 else 5
+    return sections * (products * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
+
+
+def planned_filter_cycles(tgt: Target, sections: int) -> int:
+    """The sections' cost the planner charges: the cheaper of the two arithmetics whose roundoff is
+    negligible at any quality the planner can promise (the split 27 x 16, offered on cores without a
+    32x32->64 multiply, and the wide 32 x 32); the designer then picks among all by predicted loss
+    and cost and updates the figure."""
+    wide = filter_cycles(tgt, 64, sections)
+    # the split form's words: edgetally.designer.wordlength.MID (27-bit data, 16-bit coefficients)
+    return wide if tgt.mul64 else min(wide, filter_cycles(tgt, 48, sections, 27, 16))
+
+
+def uses_reciprocal(tgt: Target) -> bool:
+    """Whether the stamp front's quotients go through one reciprocal per interval: on cores with no
+    divide instruction but a fast 32-bit multiply (measured: benchmarks/bench_division.py on the
+    M0+ class); a divide instruction, or a software multiply (RV32EC, AVR), makes the plain
+    division the cheaper one."""
+    return not tgt.hw_divide and CORES[tgt.core].mul32_cycles <= 2
 
 
 def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, int, int] | None:
     """(per_edge, per_input, per_grid, per_output) from the core's calibrated table, with the
     exception entry and exit of each ISR from the target (the profile's or the spec's), or None
-    where the table lacks a figure. The output path is planned wide, as in ``load``."""
+    where the table lacks a figure. The output path is planned as in ``load`` (planned_filter_cycles)."""
     if not calibrated(tgt):
         return None
     core, isr = tgt.core, tgt.isr_cycles
@@ -303,7 +329,7 @@ def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, 
         per_grid = None if (grid is None or tick is None) else grid + (isr + tick if tick else 0)
     if per_input is None or per_grid is None or per_edge is None or base is None:
         return None
-    return (round(per_edge), round(per_input), round(per_grid), round(base + filter_cycles(tgt, 64, sections)))
+    return (round(per_edge), round(per_input), round(per_grid), round(base + planned_filter_cycles(tgt, sections)))
 
 
 def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
@@ -312,14 +338,20 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
     has one, else from the profile figures and the op counts above."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
-    # the scale product, the sections (planned wide; the designer may then pick a cheaper
+    # the scale product, the sections (planned_filter_cycles; the designer may then pick a cheaper
     # arithmetic and updates the figure), and the rest of the output path
-    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + filter_cycles(tgt, 64, sections)
+    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + planned_filter_cycles(tgt, sections)
     cic = GRID_OPS_PER_STAGE * n * op
     if v.front == "stamp":
         per_input = STAMP_INPUT_OPS[v.order] * op
-        divs, macs = (2, 2) if v.order == "cubic" else (1, 0)
-        per_grid = divs * tgt.div32_cycles + macs * tgt.mac64_cycles + STAMP_GRID_OPS[v.order] * op + cic
+        divs = 2 if v.order == "cubic" else 1
+        if uses_reciprocal(tgt):
+            ops = RECIP_COST[0] + QUOTIENT_COST[v.order][0] + STAMP_GRID_OPS[v.order]
+            muls = RECIP_COST[1] + QUOTIENT_COST[v.order][1]
+            per_grid = ops * op + muls * CORES[tgt.core].mul32_cycles + cic
+        else:
+            muls = QUOTIENT_COST[v.order][1] - 2 * divs          # the cubic's own products
+            per_grid = divs * tgt.div32_cycles + muls * CORES[tgt.core].mul32_cycles + STAMP_GRID_OPS[v.order] * op + cic
         if v.scheme == "interrupt":
             per_edge = isr + 12 * op                                     # read timer, queue the stamp
         else:
