@@ -23,7 +23,7 @@ def _spec(path, **changes):
     raw = tomllib.loads((EXAMPLES / path).read_text())
     for dotted, value in changes.items():
         sec, key = dotted.split("__")
-        raw[sec][key] = value
+        raw.setdefault(sec, {})[key] = value
     return edgetally.parse_spec(raw)
 
 
@@ -31,7 +31,11 @@ def _spec(path, **changes):
 def test_unsigned_codes_sit_at_mid_scale(fmt, bits):
     """An unsigned N-bit code for a DAC or PWM compare value: mid-scale 2**(N-1) at the IF centre,
     full-scale deviation spans the code range, bit-exact C."""
-    d = edgetally.design(_spec("orchard_link.toml", output__format=fmt))
+    # An 8-bit code's own rounding costs about 6.4 dB against the 16-bit floor of the planner's
+    # prediction (the loss `widths` predicts); the [fixed] target binds every command, so this
+    # spec allows it. 12 and 16 bits meet the default 0.5 dB.
+    d = edgetally.design(_spec("orchard_link.toml", output__format=fmt,
+                               **({"fixed__loss_limit_db": 8.0} if bits == 8 else {})))
     assert (d.output.lo, d.output.hi, d.output.mid) == (0, (1 << bits) - 1, 1 << (bits - 1))
     res = verify(d, seconds=0.3)
     assert res.bit_exact

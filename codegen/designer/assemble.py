@@ -156,8 +156,9 @@ def _refuse_targets(spec: Spec, best: WidthOption) -> None:
     """SpecError naming the [fixed] target that no word lengths meet (``best``: the widest try)."""
     fx = spec.fixed
     if best.loss_db > fx.loss_limit_db:
+        word = "" if spec.output.format == "s16" else f", the rounding to output.format {spec.output.format} included"
         raise SpecError("fixed.loss_limit_db", fx.loss_limit_db,
-                        f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB; allow more loss")
+                        f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB{word}; allow more loss")
     raise SpecError("fixed.response_tol_db", fx.response_tol_db,
                     f"cannot be met: the quantised filters are {best.response_error_db:.3f} dB off; allow more")
 
