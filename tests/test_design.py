@@ -50,6 +50,12 @@ def test_word_lengths_cannot_overflow(path):
         coefs = (s.b0, s.b1, s.b2, s.a1, s.a2)
         if f.acc_bits == 64:
             assert sum(abs(v) for v in coefs) * f.limit + (1 << (f.coef_bits - 1)) < 1 << 63
+        elif f.acc_bits == 48:
+            # the split products: 27-bit data, 16-bit coefficients, every partial sum in the certificate
+            assert (f.data_bits, f.coef_width) == (27, 16) and 8 <= f.coef_bits <= 16
+            names = {r.name for r in d.certificate}
+            assert all(f"iir.{k}.split_{w}" in names for k in range(len(f.sections))
+                       for w in ("hi", "mid", "lo", "top", "out"))
         else:
             assert max(abs(v) for v in coefs) * f.limit < 1 << 31 and f.data_bits == f.coef_width == 16
     # Every register of the certificate has a non-negative margin.

@@ -137,9 +137,10 @@ def test_quantised_response_matches_float_design(design):
     bound = _quant_bound(frows, qrows, eps_b, eps, f, fs)
     err = np.abs(h_q - h_ref)
     assert np.all(err <= bound + FLOAT_EVAL), float(np.max(err - bound))
-    # The bound is meaningful: a few hundred eps at most, and a tenth of the 0.1 dB ripple band
-    # (1 - 10^(-0.1/20) = 0.0114) even at Q15, so the passband check below can fail.
-    assert float(np.max(bound)) < 400 * eps and float(np.max(bound)) < 0.1 * (1 - 10 ** (-0.1 / 20))
+    # The bound is meaningful: a few hundred eps at most, and below the response tolerance the
+    # designer enforces (0.05 dB by default: 1 - 10^(-0.05/20) = 0.0057) even with 16-bit
+    # coefficients, so the passband check below can fail.
+    assert float(np.max(bound)) < 400 * eps and float(np.max(bound)) < 1 - 10 ** (-0.05 / 20)
     # The package's own figure (wordlength.response_error_db, used to choose word lengths) is consistent
     # with the bound: |20 log10(|H'| / |H|)| <= 20 log10(1 + bound / |H|) over [0, audio].
     fa = np.linspace(0.0, design.audio_hz, 512)
