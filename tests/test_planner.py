@@ -81,11 +81,14 @@ def test_counter_noise_matches_first_order_delta_sigma():
     assert abs(10 * np.log10(np.mean(noise) / formula)) <= 3.0
 
 
-def test_cpu_load_by_hand():
-    """The load arithmetic on a hand-computed case: timestamp, prescaler 1, linear, no DMA, on the
-    cortex-m0plus profile (ISR 31, 1-cycle 32-bit multiply, software 32x32->64 MAC 30, 2 cycles an op),
-    N = 3, two IIR sections, 30 kHz edges, 16 kHz grid, 8 kHz output, 48 MHz; op counts from
-    edgetally.schemes (calibrated against the emulated C)."""
+def test_cpu_load_by_hand(monkeypatch):
+    """The load arithmetic of the op-count model (a core without a calibrated table) on a
+    hand-computed case: timestamp, prescaler 1, linear, no DMA, on the cortex-m0plus profile (ISR
+    31, 1-cycle 32-bit multiply, software 32x32->64 MAC 30, 2 cycles an op), N = 3, two IIR sections,
+    30 kHz edges, 16 kHz grid, 8 kHz output, 48 MHz; op counts from edgetally.schemes."""
+    from edgetally.planner import costs
+
+    monkeypatch.setattr(costs, "table", lambda core: None)
     spec = edgetally.load_spec(EXAMPLES / "orchard_link.toml")
     ld = schemes.load(Variant("timestamp", "stamp", 1, "linear"), spec.target, edge_hz_max=30_000,
                       grid_hz=16_000, out_hz=8_000, n=3, sections=2, queue_len=16)
@@ -101,6 +104,30 @@ def test_cpu_load_by_hand():
     cycles = 30_000 * (per_edge + per_input) + 16_000 * per_grid + 8_000 * per_output
     assert ld.fraction == pytest.approx(cycles / 48e6, rel=1e-12)
     assert ld.ram_bytes == 4 * (10 + 6) + 16 * 2 + 16 * 2   # state words, IIR state, 16-bit queue
+
+
+def test_cpu_load_from_the_calibrated_table():
+    """The same case priced from the core's calibrated table (edgetally/planner/costs.json), by hand:
+    ISR entry/exit from the profile plus the table's ISR body, the table's per-input and per-grid
+    figures, the output base plus the cheaper planned section form."""
+    from edgetally.planner import costs
+
+    spec = edgetally.load_spec(EXAMPLES / "orchard_link.toml")
+    t = costs.table(spec.target.core)
+    assert t is not None
+    ld = schemes.load(Variant("timestamp", "stamp", 1, "linear"), spec.target, edge_hz_max=30_000,
+                      grid_hz=16_000, out_hz=8_000, n=3, sections=2, queue_len=16)
+    bits = spec.target.timer_bits
+    per_edge = round(31 + t["isr"]["capture/stamp"]["cycles"])
+    per_input = round(t["input"][f"stamp-linear/{bits}"]["cycles"])
+    per_grid = round(t["grid"]["stamp-linear"]["cycles"])
+    sec = t["output"]["section"]
+    wide = round(2 * sec["d32c32a64"])
+    split = round(2 * sec["d27c16a48"]) if "d27c16a48" in sec else wide
+    per_output = round(t["output"]["base"]["stamp"] + min(wide, split))
+    assert (ld.per_edge, ld.per_input, ld.per_grid, ld.per_output) == (per_edge, per_input, per_grid, per_output)
+    cycles = 30_000 * (per_edge + per_input) + 16_000 * per_grid + 8_000 * per_output
+    assert ld.fraction == pytest.approx(cycles / 48e6, rel=1e-12)
 
 
 def test_capture_dma_and_prescaler_cut_the_edge_load():

@@ -101,11 +101,13 @@ def _cases(tmp: Path):
 @pytest.fixture
 def quick_design(monkeypatch):
     """The CLI designs from the spec each time; the examples' designs are made once (conftest)."""
+    import edgetally.check.choice as choice
     import edgetally.designer.assemble as assemble
     from conftest import ALL_DESIGNS
 
     by_name = {d.name: d for k, d in ALL_DESIGNS.items() if k.endswith(":auto")}
     monkeypatch.setattr(assemble, "design", lambda spec, plan=None, scheme=None: by_name[spec.name])
+    monkeypatch.setattr(choice, "design", lambda spec, chosen=None, scheme=None, overrides=None: by_name[spec.name])
 
 
 def test_at_least_ten_malformed_recordings(tmp_path):

@@ -254,22 +254,30 @@ def test_build_errors_carry_the_compiler_output(tmp_path):
         target.cross_build(d, "cortex-m4", opt="-Onot-a-level", workdir=tmp_path)
 
 
-def test_plan_measured_drops_an_option_over_budget(tmp_path):
-    """plan --measured uses the emulated figures: campus_fm with a 45 % budget fits by estimate at
-    R = 5 (about 42 %) but measures about 49 %, so that option is dropped and the plan falls back
-    to a lighter one whose measured load fits."""
+def test_plan_measured_drops_an_option_over_budget(tmp_path, monkeypatch, capsys):
+    """plan --measured uses the emulated figures: with the planner's cycle table made 40 % too
+    optimistic (the table edgetally ships holds the estimates within 10 %, tests/test_cost_tables.py),
+    campus_fm's first choice fits its budget by estimate but not as measured, so it is dropped and the
+    plan falls back to an option whose measured load fits."""
+    import copy
     import json
-    import subprocess
-    import sys
 
-    text = (EXAMPLES / "campus_fm.toml").read_text().replace("cpu_budget = 0.5", "cpu_budget = 0.45")
-    spec = tmp_path / "campus45.toml"
-    spec.write_text(text)
-    r = subprocess.run([sys.executable, "-m", "edgetally", "plan", str(spec), "--measured", "--json"],
-                       capture_output=True, text=True)
-    assert r.returncode == 0, r.stderr
-    obj = json.loads(r.stdout)
+    from edgetally.cli.main import main
+    from edgetally.planner import costs
+
+    real = costs.table("cortex-m4")
+    low = copy.deepcopy(real)
+    for role in ("isr", "input", "grid"):
+        for v in low[role].values():
+            v["cycles"] *= 0.6
+    low["output"]["base"] = {k: v * 0.6 for k, v in low["output"]["base"].items()}
+    low["output"]["section"] = {k: v * 0.6 for k, v in low["output"]["section"].items()}
+    monkeypatch.setattr(costs, "table", lambda core: low if core == "cortex-m4" else None)
+    rc = main(["plan", str(EXAMPLES / "campus_fm.toml"), "--measured", "--json"])
+    out = capsys.readouterr()
+    assert rc == 0, out.err
+    obj = json.loads(out.out)
     dropped = obj["measured"]["dropped_after_measuring"]
-    assert dropped and all("exceeds the budget 45%" in d["reason"] for d in dropped)
-    assert obj["measured"]["load_fraction"] <= 0.45
+    assert dropped and all("exceeds the budget 50%" in d["reason"] for d in dropped)
+    assert obj["measured"]["load_fraction"] <= 0.5
     assert (obj["scheme"], obj["variant"], obj["ratio"]) not in {(d["scheme"], d["variant"], d["ratio"]) for d in dropped}

@@ -110,8 +110,12 @@ def simulated_loss_db(design: Design, seconds: float = SIM_SECONDS, seed: int = 
     return _sinad(design, reference.run(design, x)) - _sinad(design, model.run(design, x).out)
 
 
-def design(spec: Spec, scheme: str | None = None) -> Design:
-    """The design edgetally makes for ``spec``: the settled plan's, its arithmetic confirmed."""
+def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:
+    """The design edgetally makes for ``spec``: the settled plan's, its arithmetic confirmed by
+    simulation. ``chosen`` (a plan) or ``overrides`` (word lengths, as for ``widths --set``) take
+    the choice out of its hands: the design is then made from them as given."""
+    if chosen is not None or overrides:
+        return assemble.design(spec, chosen, scheme=scheme, overrides=overrides)
     return design_and_plan(spec, scheme)[0]
 
 
