@@ -139,7 +139,7 @@ class Fixed:
     loss_limit_db: float = 0.5         # largest implementation loss (float SINAD minus fixed SINAD)
     response_tol_db: float = 0.05      # largest gain error of the quantised filters over the band
     scaling: str = "l1"                # "l1" (no overflow for any input), "l2" or "linf" (wide only)
-    arith: str = "auto"                # "auto" (cheapest that meets the loss), "narrow" or "wide"
+    arith: str = "auto"                # "auto" (cheapest that meets the loss), "narrow", "mid" (split 27 x 16) or "wide"
     droop_limit_db: float = DROOP_LIMIT_DB  # compensate the CIC droop when it exceeds this in the band (0: never)
 
 
@@ -356,7 +356,7 @@ def _fixed(raw: dict) -> Fixed:
     if not isinstance(f, dict):
         raise SpecError("fixed", f, "must be a table [fixed]")
     _check_keys(f, "fixed", _SECTIONS["fixed"])
-    choices = {"scaling": ("l1", "l2", "linf"), "arith": ("auto", "narrow", "wide")}
+    choices = {"scaling": ("l1", "l2", "linf"), "arith": ("auto", "narrow", "mid", "wide")}
     for key, allowed in choices.items():
         if key in f and f[key] not in allowed:
             raise SpecError(f"fixed.{key}", f[key], "must be one of " + ", ".join(f'"{a}"' for a in allowed))

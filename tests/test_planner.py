@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 import edgetally
+from edgetally.check.choice import settle
 from edgetally import standard
 from edgetally.measure import metrics
 from edgetally.check import reference
@@ -50,8 +51,9 @@ def test_prediction_within_3db_or_flagged(key):
     3 dB is the bound the planner promises."""
     d = ALL_DESIGNS[key]
     scheme = None if key.endswith(":auto") else key.split(":")[1]
-    pl = plan(_spec_of(key), scheme=scheme)
+    pl = settle(_spec_of(key), scheme=scheme)      # the plan whose design ALL_DESIGNS holds
     chosen = next(o for o in pl.options if o.kept)
+    assert (d.scheme, d.variant) == (chosen.scheme, chosen.variant)
     measured = _float_sinad_avg(d)
     if chosen.doubtful:
         assert any("may be off by several dB" in n for n in pl.notes)

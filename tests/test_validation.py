@@ -180,7 +180,7 @@ def test_exit_codes_in_help(capsys):
 
 
 def test_verify_no_target_says_nothing_about_tools(tmp_path, capsys):
-    code, out, err = _run(capsys, ["verify", _write(tmp_path, to_toml(spec())), "--no-target", "--seconds", "0.1"])
+    code, out, err = _run(capsys, ["verify", _write(tmp_path, to_toml(spec())), "--no-target", "--seconds", "0.3"])
     assert code == 0, err
     text = (out + err).lower()
     assert "target" not in text.replace("no-target", "") and "emulator" not in text and "unicorn" not in text, out
