@@ -4,6 +4,7 @@ spec's CNR in the stated time, is bit-exact with the integer model, for every ex
 from __future__ import annotations
 
 import math
+from pathlib import Path
 import shutil
 import subprocess
 
@@ -156,3 +157,18 @@ int main(void)
     # the independent reference: the one-pole update in exact integers, then the cap
     want = [min(lv - lv // 2 ** s + a, cap) for lv, a, s, cap in cases]
     assert got == want == [squelch_level(*c) for c in cases]
+
+
+@pytest.mark.parametrize("value", [-1.0, 40.5, "8", True])
+def test_squelch_setting_is_checked(value):
+    import tomllib
+
+    from edgetally.spec import SpecError, parse_spec
+
+    raw = tomllib.loads((Path(__file__).resolve().parent.parent / "examples" / "orchard_link.toml").read_text())
+    raw["signal"]["squelch_cnr_db"] = value
+    with pytest.raises(SpecError) as e:
+        parse_spec(raw)
+    assert e.value.field == "signal.squelch_cnr_db"
+    raw["signal"]["squelch_cnr_db"] = 12
+    assert parse_spec(raw).signal.squelch_cnr_db == 12.0
