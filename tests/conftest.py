@@ -28,6 +28,21 @@ ALL_DESIGNS = _all_designs()
 
 
 @pytest.fixture(scope="session")
+def hosts():
+    """Host builds of the emitted C, made once per session: fill with ``host_for``."""
+    return {}
+
+
+def host_for(hosts: dict, key: str):
+    """The host build of ALL_DESIGNS[key] (built on first use)."""
+    if key not in hosts:
+        from edgetally.check import hostbuild
+
+        hosts[key] = hostbuild.build(ALL_DESIGNS[key])
+    return hosts[key]
+
+
+@pytest.fixture(scope="session")
 def designs():
     """Every bundled example's chosen Design, by file stem."""
     return {k.split(":")[0]: d for k, d in ALL_DESIGNS.items() if k.endswith(":auto")}

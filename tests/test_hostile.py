@@ -15,7 +15,7 @@ from edgetally.measure import hostile
 from edgetally.check import model
 from edgetally.measure import recovery
 
-from conftest import ALL_DESIGNS
+from conftest import ALL_DESIGNS, host_for
 
 IDS = sorted(ALL_DESIGNS)
 # A counter read more often than the lowest IF frequency's edge rate makes legal zero counts: a
@@ -24,21 +24,10 @@ IDS = sorted(ALL_DESIGNS)
 LIMITED = {k for k in IDS if ALL_DESIGNS[k].front.kind == "count" and ALL_DESIGNS[k].front.diff_low == 0}
 
 
-@pytest.fixture(scope="module")
-def hosts():
-    return {}
-
-
-def _host(hosts, key):
-    if key not in hosts:
-        hosts[key] = hostbuild.build(ALL_DESIGNS[key])
-    return hosts[key]
-
-
 @pytest.mark.parametrize("key", IDS)
 def test_every_scenario_passes(hosts, key):
     d = ALL_DESIGNS[key]
-    results = [hostile.run_scenario(d, name, _host(hosts, key)) for name in hostile.SCENARIOS]
+    results = [hostile.run_scenario(d, name, host_for(hosts, key)) for name in hostile.SCENARIOS]
     for r in results:
         # bit-exact and no overflow hold on every design and every scenario, limited or not
         assert r.bit_exact, (key, r.name)
@@ -64,7 +53,7 @@ def test_loss_mutes_long_enough_disturbances(hosts):
     """A counter design keeps reading counts through a loss: its output is muted (within 2 % of
     full scale once the chain has forgotten the tone) and the carrier-lost count rises."""
     key = "bench_counter:auto"
-    r = hostile.run_scenario(ALL_DESIGNS[key], "signal-loss", _host(hosts, key), hostile.Options(loss_ms=40))
+    r = hostile.run_scenario(ALL_DESIGNS[key], "signal-loss", host_for(hosts, key), hostile.Options(loss_ms=40))
     assert r.passed and r.output_note.startswith("muted")
 
 
@@ -92,7 +81,7 @@ def test_timer_wrap_output_is_independent_of_the_start_value(hosts):
     times = signals.edge_times(sig, 0.15)
     base = hardware_inputs(d, times, 0.15, np.random.default_rng(9), start=0)
     want = model.run(d, base).out
-    host = _host(hosts, key)
+    host = host_for(hosts, key)
     j = 1000                                              # wrap between inputs j-1 and j, at each tick
     span = int(base[j]) - int(base[j - 1])
     for k in range(0, span + 1, max(1, span // 40)):

@@ -57,7 +57,9 @@ def test_vcd(key, tmp_path):
     if fr.kind == "stamp":
         want = ticks[::fr.prescale] & ((1 << fr.timer_bits) - 1)
     else:
-        grid = np.arange((end * d.rates.timer_hz // 10 ** 12) // fr.grid_ticks + 1) * fr.grid_ticks
+        # the recording ends at its last value change, the final falling edge (_write_vcd), not at end
+        last = int(ps[-1]) + (end - int(ps[-1])) // 2
+        grid = np.arange((last * d.rates.timer_hz // 10 ** 12) // fr.grid_ticks + 1) * fr.grid_ticks
         want = np.searchsorted(ticks, grid, side="left") & ((1 << fr.counter_bits) - 1)
     assert np.array_equal(rec.inputs.astype(np.int64), want)
     _check(d, rec)

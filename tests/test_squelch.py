@@ -4,6 +4,7 @@ spec's CNR in the stated time, is bit-exact with the integer model, for every ex
 from __future__ import annotations
 
 import math
+from pathlib import Path
 import shutil
 import subprocess
 
@@ -17,7 +18,7 @@ from edgetally.measure import squelch
 from edgetally.stimulus import ifnoise
 from edgetally.stimulus.inputs import hardware_inputs, make_inputs, standard_signal
 
-from conftest import ALL_DESIGNS
+from conftest import ALL_DESIGNS, host_for
 
 KEYS = sorted(ALL_DESIGNS)
 # a counter reading 0 or 1 edge per grid instant (its grid outruns the IF) cannot tell noise from a
@@ -33,17 +34,6 @@ def _dbfs(design, out) -> np.ndarray:
     return 20 * np.log10(np.maximum(frac, 1e-12))
 
 
-@pytest.fixture(scope="module")
-def hosts():
-    return {}
-
-
-def _host(hosts, key):
-    if key not in hosts:
-        hosts[key] = hostbuild.build(ALL_DESIGNS[key])
-    return hosts[key]
-
-
 @pytest.mark.parametrize("key", SEEING)
 def test_random_inputs_stay_muted(key, hosts):
     # what a limiter gives with no carrier, as the hardware would deliver it: random timer values
@@ -51,7 +41,7 @@ def test_random_inputs_stay_muted(key, hosts):
     d = ALL_DESIGNS[key]
     rng = np.random.default_rng(12)
     x = rng.integers(0, 1 << d.input_bits, size=RANDOM_INPUTS, dtype=np.int64)
-    got, counters = _host(hosts, key).process(x)
+    got, counters = host_for(hosts, key).process(x)
     want = model.run(d, x)
     assert np.array_equal(got, want.out) and got.size == want.out.size
     assert not counters["squelch_open"]
@@ -69,7 +59,7 @@ def test_pure_noise_if_stays_muted(key, hosts):
     dur = 0.25
     times = ifnoise.noisy_edge_times(sig, dur, -40.0, 2.0 * (d.full_scale_hz + d.audio_hz), rng, oversample=8)
     x = hardware_inputs(d, times, dur, rng)
-    got, counters = _host(hosts, key).process(x)
+    got, counters = host_for(hosts, key).process(x)
     want = model.run(d, x)
     assert np.array_equal(got, want.out)
     assert not want.squelch_open.any() and not counters["squelch_open"]
@@ -167,3 +157,18 @@ int main(void)
     # the independent reference: the one-pole update in exact integers, then the cap
     want = [min(lv - lv // 2 ** s + a, cap) for lv, a, s, cap in cases]
     assert got == want == [squelch_level(*c) for c in cases]
+
+
+@pytest.mark.parametrize("value", [-1.0, 40.5, "8", True])
+def test_squelch_setting_is_checked(value):
+    import tomllib
+
+    from edgetally.spec import SpecError, parse_spec
+
+    raw = tomllib.loads((Path(__file__).resolve().parent.parent / "examples" / "orchard_link.toml").read_text())
+    raw["signal"]["squelch_cnr_db"] = value
+    with pytest.raises(SpecError) as e:
+        parse_spec(raw)
+    assert e.value.field == "signal.squelch_cnr_db"
+    raw["signal"]["squelch_cnr_db"] = 12
+    assert parse_spec(raw).signal.squelch_cnr_db == 12.0

@@ -357,7 +357,9 @@ def cmd_verify(args) -> int:
         if res.quant_gap_db > 3:
             print(f"  quantisation alone would allow {res.predicted_quant_sinad_db:.1f} dB: this design falls "
                   f"{res.quant_gap_db:.1f} dB short of it")
-        for line in cli_quality.squelch_lines(res.squelch):
+        from ..measure.squelch import describe
+
+        for line in describe(res.squelch):
             print("  " + line)
         print("  widths: " + ", ".join(f"{k} {v}" for k, v in res.widths.items()))
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")

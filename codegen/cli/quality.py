@@ -116,27 +116,3 @@ def json_extra(sweeps_done, scenarios_done) -> dict:
         extra["scenarios"] = [r.to_dict() for r in scenarios_done]
     return extra
 
-
-def squelch_lines(sq: dict) -> list[str]:
-    """The noise squelch as verify prints it: the design's switching CNRs and, when measured, the
-    figures on the simulated noisy IF."""
-    d = sq["design"]
-    if d["blind"]:
-        return ["squelch: left open: this counter reads 0 or 1 edge per grid instant, and such one-bit counts "
-                "look the same for a carrier and for noise (a coarser grid or a stamp scheme can mute noise)"]
-    why = " (the counting noise floor sets its levels)" if d["floor_limited"] else ""
-    lines = [f"squelch: set to open at and above {d['cnr_db']:g} dB IF CNR (Carson band); designed to open at "
-             f"{d['open_cnr_db']:g} dB and close at {d['close_cnr_db']:g} dB{why}; opens within "
-             f"{d['open_ms']:g} ms at {d['cnr_db']:g} dB"]
-    if d["edge_tone_db"] > 0:
-        lines.append(f"  a full-deviation tone at the band edge alone reaches {d['edge_tone_db']:g} dB over the close "
-                     "level: such modulation can close the squelch")
-    m = sq.get("measured")
-    if m:
-        def fmt(v, unit):
-            return "never" if v is None else f"{v:g} {unit}"
-
-        lines.append(f"  measured on the noisy IF: opened at {fmt(m['open_cnr_db'], 'dB')} (rising CNR), closed at "
-                     f"{fmt(m['close_cnr_db'], 'dB')} (falling); at {d['cnr_db']:g} dB it opened after "
-                     f"{fmt(m['open_ms'], 'ms')}; pure-noise IF {'muted' if m['pure_noise_muted'] else 'NOT MUTED'}")
-    return lines

@@ -125,6 +125,7 @@ class Port:
     chunk: int                         # samples taken per service call (a stack buffer)
     half: int                          # inputs per DMA half-buffer (DMA designs): the queue's length
     dma: bool                          # the inputs come by DMA
+    clock: bool = False                # the main loop drives <name>_advance with the timer (stamp ISR designs)
 
 
 PORT_CHUNK = 16        # samples per service call: 32 or 64 bytes of stack (common practice, no source)
@@ -166,7 +167,9 @@ def port(design: Design) -> Port:
         hw += [Function(f"void {p}_hw_capture_start(uint32_t prescale)",
                         f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz with input capture on "
                         "every prescale-th IF edge and its interrupt."),
-               Function(f"{inp} {p}_hw_capture_value(void)", "The captured timer value (and clear the capture flag).")]
+               Function(f"{inp} {p}_hw_capture_value(void)", "The captured timer value (and clear the capture flag)."),
+               Function(f"{inp} {p}_hw_timer_now(void)",
+                        f"The free-running {fr.timer_bits}-bit capture timer, read now.")]
         handlers.append((f"{p}_port_capture_irq", f"timer capture, one per {fr.prescale} IF edge(s)"))
     elif topo in (Topology.EDGE_STAMP, Topology.EDGE_COUNT):
         hw.append(Function(f"void {p}_hw_edge_irq_start(void)", "Enable the comparator or pin interrupt on the IF edge."))
@@ -190,7 +193,7 @@ def port(design: Design) -> Port:
            Function(f"uint32_t {p}_port_pending(void)", ""), Function(f"int32_t {p}_port_offset(void)", "")]
     api += [Function(f"void {n}(void)", d) for n, d in handlers]
     return Port(api=tuple(api), handlers=tuple(dict(name=n, doc=d) for n, d in handlers), hw=tuple(hw), ring=ring,
-                chunk=PORT_CHUNK, half=design.queue_len, dma=dma)
+                chunk=PORT_CHUNK, half=design.queue_len, dma=dma, clock=design.stamps and not dma)
 
 
 @functools.lru_cache(maxsize=1)

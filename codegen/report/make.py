@@ -59,7 +59,7 @@ def make(spec: Spec, plan: Plan, design: Design, seconds: float | None = None, s
     bar = progress or _Quiet()
     host = hostbuild.build(design)
     bar.note("verify" + (" (with the emulated target cores)" if targets else ""))
-    res = verify(design, seconds=seconds, seed=seed, targets=targets)
+    res = verify(design, seconds=seconds, seed=seed, targets=targets, squelch=True)
     bar.step()
     sw = []
     for kind in sweeps.KINDS:

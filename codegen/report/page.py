@@ -19,6 +19,7 @@ from ..dsp import cic
 from . import listen
 from . import plots as report_plots
 from ..measure.response import chain_response
+from ..measure.squelch import describe
 from ..ir import Design, Topology
 from ..planner.choose import Plan
 from ..spec import Spec
@@ -108,6 +109,8 @@ def _verdict(ctx: ReportContext) -> str:
                  f"{_e(f'{ctx.design.audio_hz:g}')} Hz band): fixed point (C) {v.sinad_db:.1f} dB, "
                  f"float reference {v.float_sinad_db:.1f} dB, predicted {v.predicted_sinad_db:.1f} dB; "
                  f"implementation loss {v.implementation_loss_db:.2f} dB.")
+    if v.squelch:
+        lines.append("Noise " + _e("; ".join(s.strip() for s in describe(v.squelch))) + ".")
     if ctx.hostile:
         failed = [s.name for s in ctx.hostile if not s.passed]
         if failed:

@@ -468,8 +468,9 @@ def edges_to_inputs(design: Design, edges: Edges, start: int = 0) -> np.ndarray:
 def settle_s(design: Design) -> float:
     """Time from the first input to a settled output: the front end's first grid instants, the CIC
     filling its combs ((order + 1) ratio grid periods: its first ``order`` outputs are dropped) and
-    the IIR sections' slowest pole decaying to SETTLE_LEVEL (1 %, common practice, no source).
-    The offset tracker, a slow tuning loop, is left out."""
+    the IIR sections' slowest pole decaying to SETTLE_LEVEL (1 %, common practice, no source), and
+    the noise squelch opening on a clean carrier (at most its reopen_ms, from power-up), whichever
+    is later. The offset tracker, a slow tuning loop, is left out."""
     from scipy import signal
 
     c = design.cic
@@ -477,7 +478,7 @@ def settle_s(design: Design) -> float:
     sos = np.array([s.float_sos for s in design.filters.sections], dtype=float)
     r = max((float(np.max(np.abs(signal.sos2zpk(sos)[1]), initial=0.0)),), default=0.0)
     iir = math.log(SETTLE_LEVEL) / math.log(r) if 0 < r < 1 else 0.0
-    return grid + iir / design.rates.out_hz
+    return max(grid + iir / design.rates.out_hz, design.squelch.reopen_ms / 1000)
 
 
 def guess_format(path) -> str | None:
