@@ -159,7 +159,7 @@ def recip_norm(d, d_lo: int):
                 break
             k = k + low
         return k
-    k = 0
+    k = 0  # type: ignore[assignment]   # a scalar d: the plain loop
     while k < 31 and (d << k) < d_lo:
         k += 1
     return k
@@ -288,8 +288,8 @@ def recip_c_text(prefix: str, plan: RecipPlan) -> str:
         f"    e = {p}_wrap_s32(0u - d * r);                     /* 2^32 - d r */\n"
         f"    r = (uint32_t)((int32_t)r + ((((int32_t)(r >> {a}u)) * (e >> {b}u)) >> {32 - a - b}u));\n"
         for a, b in plan.steps)
-    down = ("    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n"
-            "        r--;\n        rem += d;\n    }}\n").format(p=p) * plan.fix_down
+    down = (f"    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n"
+            "        r--;\n        rem += d;\n    }\n") * plan.fix_down
     up = ("    if (rem >= d) {                      /* r one too small */\n"
           "        r++;\n        rem -= d;\n    }\n") * plan.fix_up
     decl = ("    uint32_t rem;\n" if down or up else "") + ("    int32_t e;\n" if plan.steps else "")
@@ -371,6 +371,8 @@ def cubic_shifts(delta_limit: int) -> tuple[int, int, int, int, float]:
                 if best is None or err < best[4]:
                     best = (sh, sq, sg, so, err)
                 break                                        # a larger sg only adds error
+    if best is None:
+        raise ValueError(f"no 32-bit shift split holds the cubic correction for second differences up to {delta_limit}")
     return best
 
 

@@ -28,8 +28,9 @@ class ModelRun:
     saturations: int         # internal data nodes that saturated
     clips: int               # output samples clipped to the output range
     steps: np.ndarray        # the phase step per grid instant (CIC input), int64
-    squelch_open: np.ndarray = None   # per output sample: the squelch passed it (else it is mid-scale)
-    unmuted: np.ndarray = None        # the output samples as they would be with the squelch open
+    # run() sets both; None only in results made without the squelch
+    squelch_open: np.ndarray = None  # type: ignore[assignment]   # per output sample: the squelch passed it
+    unmuted: np.ndarray = None  # type: ignore[assignment]        # the output as it would be with the squelch open
 
 
 def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:

@@ -56,7 +56,7 @@ class VerifyResult:
     c_seconds: float
     model_seconds: float
     widths: dict
-    squelch: dict = None                      # the design's squelch and, when measured, its figures on the noisy IF
+    squelch: dict = None  # type: ignore[assignment]                      # the design's squelch and, when measured, its figures on the noisy IF
     target_bit_exact: bool | None = None     # None: not run (no cross compiler or emulator)
     target: dict | None = None                # per core: bit_exact, cycles per event, sizes
 

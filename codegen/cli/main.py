@@ -12,6 +12,7 @@ import json
 import math
 import sys
 import traceback
+from typing import Any
 from pathlib import Path
 
 from .. import __version__, standard
@@ -71,10 +72,10 @@ def _parser() -> argparse.ArgumentParser:
         description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.")
     ap.add_argument("--version", action="version", version=f"edgetally {__version__}")
     sub = ap.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    common = dict(parents=[_global_options(False)], epilog=EXIT_CODES,
-                  formatter_class=argparse.RawDescriptionHelpFormatter)
+    common: dict[str, Any] = dict(parents=[_global_options(False)], epilog=EXIT_CODES,
+                                  formatter_class=argparse.RawDescriptionHelpFormatter)
     _add_parser = sub.add_parser   # every command (replay's too) gets the global options and the exit codes
-    sub.add_parser = lambda name, **kw: _add_parser(name, **common, **kw)
+    sub.add_parser = lambda name, **kw: _add_parser(name, **common, **kw)  # type: ignore[method-assign]
 
     p = sub.add_parser("plan", help="show what was chosen and why")
     _add_scheme_args(p)
@@ -164,7 +165,8 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
                      f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}")
     pr, ld = pl.prediction, pl.load
     lines += ["",
-              f"predicted SINAD {pr.sinad_db:.1f} dB ({standard.tone_hz(spec.signal.audio_hz):g} Hz tone at {standard.LEVEL:.0%} deviation, {spec.signal.audio_hz:g} Hz band): "
+              f"predicted SINAD {pr.sinad_db:.1f} dB ({standard.tone_hz(spec.signal.audio_hz):g} Hz tone at "
+              f"{standard.LEVEL:.0%} deviation, {spec.signal.audio_hz:g} Hz band): "
               f"quantisation {_db(pr.quant_sinad_db)}, interpolation {_db(pr.curvature_sinad_db)}, "
               f"jitter {_db(pr.jitter_sinad_db)}, 16-bit output {_db(pr.output_sinad_db)}",
               f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_edge} cycles/edge in ISRs, "

@@ -12,7 +12,6 @@ from dataclasses import dataclass
 from fractions import Fraction
 
 from .. import __version__
-from ..dsp import cic
 from ..fixedpoint import recip_plan
 from . import wordlength
 from ..dsp import iir
@@ -140,7 +139,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
         if a.data_bits == 16:
             # zero-input limit cycles (Jackson 1969): the idle tone of a 16-bit word must stay under the
             # planned noise (the widths check's rule); wider words put it far below any noise
-            for sec, m in zip(f.sections, wordlength.limit_cycle_lsb(f)):
+            for sec, m in zip(f.sections, wordlength.limit_cycle_lsb(f), strict=True):
                 if m and (m * 2.0 ** -sec.q_out) ** 2 / 2 > signal_fs2:
                     why.append(f"limit cycle in {sec.role} above the noise floor")
                     break

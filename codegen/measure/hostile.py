@@ -97,7 +97,7 @@ def _clock(design: Design, times: np.ndarray, total: float, start: int) -> list:
     t = np.arange(1, int(total * design.rates.out_hz) + 1) / design.rates.out_hz
     k = np.searchsorted(stamped, t, side="right")
     now = wrap_bits(np.floor(t * design.rates.timer_hz).astype(np.int64) + start, fr.timer_bits)
-    return [(int(a), int(b_), float(c)) for a, b_, c in zip(k, now, t)]
+    return [(int(a), int(b_), float(c)) for a, b_, c in zip(k, now, t, strict=True)]
 
 
 def _edges(design: Design, seconds: float, rng: np.random.Generator) -> np.ndarray:
@@ -299,10 +299,11 @@ def _output_check(design: Design, name: str, y, n_start: int, n_end: int, counte
     n = n_end - n_start
     # the chain's memory of the tone: after it a muted output must be within MUTE_FS of silence
     mem = round(recovery.predicted_recovery_s(design, peak, MUTE_FS) * design.rates.out_hz)
-    if case.clock is not None:
+    if case.clock is not None and case.span_s is not None:
         # the output rate through the loss: a sample per output period, within one per 10 ms
-        want_n = (case.span_s[1] - case.span_s[0]) * design.rates.out_hz
-        slack = max(1, math.ceil((case.span_s[1] - case.span_s[0]) / RATE_SLACK_S))
+        span = case.span_s[1] - case.span_s[0]
+        want_n = span * design.rates.out_hz
+        slack = max(1, math.ceil(span / RATE_SLACK_S))
         quiet = float(np.max(np.abs(y[n_start + min(mem, n):n_end]), initial=0.0))
         ok = ok and abs(n - want_n) <= slack and (n <= mem or quiet <= MUTE_FS)
         note = (f"{n} samples while no edges came ({want_n:.0f} at the output rate, the service loop's clock "

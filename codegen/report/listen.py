@@ -152,7 +152,8 @@ def run_c(design: Design, sig, seconds: float, seed: int, host: hostbuild.HostDe
 
 def clip_names(design: Design) -> tuple[str, str, str]:
     """The WAV files of the three listening clips: the standard tone, two tones, the sweep."""
-    return tuple(f"{design.name}_{kind}.wav" for kind in ("tone", "two_tone", "sweep"))
+    p = design.name
+    return (f"{p}_tone.wav", f"{p}_two_tone.wav", f"{p}_sweep.wav")
 
 
 def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
@@ -160,7 +161,7 @@ def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
     """The three listening clips of ``seconds`` each, from the emitted C."""
     host = host or hostbuild.build(design)
     rng = np.random.default_rng(seed)
-    p, top = design.name, band_top_hz(design)
+    top = band_top_hz(design)
     tt = two_tone_signal(design, rng)
     tone_wav, two_tone_wav, sweep_wav = clip_names(design)
     made = [

@@ -5,8 +5,8 @@ The standard test: the band's test tone and level (``edgetally.standard``: 1 kHz
 full-scale deviation when the band allows) with random start phase and modulation phase
 (``seed``), exact edge times, the timer's quantisation and wrap with a random counter start value.
 The first ``design.test.lead_s`` seconds (LEAD_S for bands of 200 Hz and more) let the filters
-settle; checks compare them bit for bit but leave them out of quality figures. Used by verify, the sweeps, the hostile scenarios, the
-listening clips, the emitted unit test and the target runs alike.
+settle; checks compare them bit for bit but leave them out of quality figures. Used by verify, the
+sweeps, the hostile scenarios, the listening clips, the emitted unit test and the target runs alike.
 """
 
 from __future__ import annotations
