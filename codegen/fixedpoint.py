@@ -291,7 +291,7 @@ def recip_c_text(prefix: str, plan: RecipPlan) -> str:
         f"    r += (uint32_t)e;\n"
         for a, b in plan.steps)
     # each correction but the last updates the remainder for the next one (the last's would be unread)
-    fixes = ([("    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n        r--;\n".format(p=p),
+    fixes = ([(f"    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n        r--;\n",
                "        rem += d;\n")] * plan.fix_down
              + [("    if (rem >= d) {                      /* r one too small */\n        r++;\n",
                  "        rem -= d;\n")] * plan.fix_up)

@@ -2,8 +2,8 @@
 
 For every bundled example with its chosen scheme and every scheme that can be forced on it (and
 the four-stamp cubic estimator, which no example chooses at its own CPU budget, both through the
-interval's reciprocal and by division), the emitted <name>.c, <name>.h and <name>_port.c (the wiring skeleton; the unit test is a host program
-and is left out) go through:
+interval's reciprocal and by division), the emitted <name>.c, <name>.h and <name>_port.c (the
+wiring skeleton; the unit test is a host program and is left out) go through:
 - cppcheck's MISRA C:2012 addon (Debian's cppcheck, its own library for the standard headers) and
   cppcheck's own warning, style, portability and performance checks: a finding fails unless the
   deviation list (edgetally.emit.deviations, printed in the header and README) covers it;
