@@ -283,28 +283,27 @@ def recip_c_text(prefix: str, plan: RecipPlan) -> str:
     """The C of ``reciprocal``, ``recip_norm`` and ``ratio_recip`` for one plan (its seed table and
     shifts printed in), the twins of the Python functions above."""
     p = prefix
-    rows = ",\n    ".join(", ".join(f"UINT32_C({v})" for v in plan.seeds[i:i + 4]) for i in range(0, len(plan.seeds), 4))
+    rows = ",\n        ".join(", ".join(f"UINT32_C({v})" for v in plan.seeds[i:i + 4]) for i in range(0, len(plan.seeds), 4))
     newton = "".join(
-        f"    e = {p}_wrap_s32(0u - d * r);                     /* 2^32 - d r */\n"
-        f"    r = (uint32_t)((int32_t)r + ((((int32_t)(r >> {a}u)) * (e >> {b}u)) >> {32 - a - b}u));\n"
+        f"    e = {p}_wrap_s32(0u - (d * r));                   /* 2^32 - d r */\n"
+        f"    ra = r >> {a}u;\n"
+        f"    e = {p}_asr32((int32_t)ra * {p}_asr32(e, {b}u), {32 - a - b}u);   /* the step, signed */\n"
+        f"    r += (uint32_t)e;\n"
         for a, b in plan.steps)
-    down = (f"    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n"
-            "        r--;\n        rem += d;\n    }\n") * plan.fix_down
-    up = ("    if (rem >= d) {                      /* r one too small */\n"
-          "        r++;\n        rem -= d;\n    }\n") * plan.fix_up
-    decl = ("    uint32_t rem;\n" if down or up else "") + ("    int32_t e;\n" if plan.steps else "")
-    fix = "    rem = UINT32_C(0xFFFFFFFF) - d * r;\n" + down + up if down or up else ""
+    # each correction but the last updates the remainder for the next one (the last's would be unread)
+    fixes = ([(f"    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n        r--;\n",
+               "        rem += d;\n")] * plan.fix_down
+             + [("    if (rem >= d) {                      /* r one too small */\n        r++;\n",
+                 "        rem -= d;\n")] * plan.fix_up)
+    fix = "".join(head + (upd if i < len(fixes) - 1 else "") + "    }\n" for i, (head, upd) in enumerate(fixes))
+    decl = ("    uint32_t rem;\n" if fixes else "") + ("    int32_t e;\n    uint32_t ra;\n" if plan.steps else "")
+    fix = "    rem = 0xFFFFFFFFu - (d * r);\n" + fix if fixes else ""
     return f"""\
-/* Seeds of floor((2^32 - 1) / d) for d in [{plan.d_lo}, {plan.d_hi}], one per {1 << plan.index_shift} ticks. */
-static const uint32_t {p}_recip_seed[{len(plan.seeds)}] = {{
-    {rows}
-}};
-
 static inline unsigned {p}_recip_norm(uint32_t d)
 {{
     /* smallest k with d << k >= {plan.d_lo}: every interval is scaled into [{plan.d_lo}, {plan.d_hi}] */
     unsigned k = 0u;
-    while (k < 31u && (d << k) < UINT32_C({plan.d_lo})) {{
+    while ((k < 31u) && ((d << k) < UINT32_C({plan.d_lo}))) {{
         k++;
     }}
     return k;
@@ -314,17 +313,21 @@ static inline uint32_t {p}_reciprocal(uint32_t d)
 {{
     /* floor((2^32 - 1) / d) for d in [{plan.d_lo}, {plan.d_hi}]: table seed, Newton-Raphson steps in
      * 32-bit multiplies, remainder corrections (see edgetally.fixedpoint.reciprocal) */
+    /* seeds of floor((2^32 - 1) / d) for d in [{plan.d_lo}, {plan.d_hi}], one per {1 << plan.index_shift} ticks */
+    static const uint32_t {p}_recip_seed[{len(plan.seeds)}] = {{
+        {rows}
+    }};
     uint32_t r = {p}_recip_seed[(d - UINT32_C({plan.d_lo})) >> {plan.index_shift}u];
 {decl}{newton}{fix}    return r;
 }}
 
-static inline uint32_t {p}_ratio_recip(uint32_t x, unsigned lbits, unsigned shift, uint32_t d, uint32_t r,
+{_NOLINT_BEGIN}static inline uint32_t {p}_ratio_recip(uint32_t x, unsigned lbits, unsigned shift, uint32_t d, uint32_t r,
                                        unsigned fix)
-{{
+{_NOLINT_END}{{
     /* floor(x 2^(shift - lbits) / d) for x < d << lbits, r = floor((2^32 - 1) / d): a multiply,
      * a shift and ``fix`` remainder corrections (see edgetally.fixedpoint.ratio_recip) */
-    uint32_t q = ((x >> lbits) * r + (x & ((UINT32_C(1) << lbits) - 1u)) * (r >> lbits)) >> (32u - shift);
-    uint32_t rem = (x << (shift - lbits)) - q * d;
+    uint32_t q = (((x >> lbits) * r) + ((x & ((UINT32_C(1) << lbits) - 1u)) * (r >> lbits))) >> (32u - shift);
+    uint32_t rem = (x << (shift - lbits)) - (q * d);
     unsigned k;
     for (k = 0u; k < fix; k++) {{
         if (rem >= d) {{
@@ -426,6 +429,43 @@ def squelch_level(lvl, a, shift: int, cap: int):
 
 
 # C renderings of the same operations. ``{p}`` is replaced by the design's name prefix.
+
+# clang-tidy's bugprone-easily-swappable-parameters flags helpers that take several words of one
+# kind whose order no expression ties together; each emitted call is checked against the integer
+# model bit for bit, so the order is held by test, and the signature says so where it is flagged.
+_NOLINT_BEGIN = ("/* NOLINTBEGIN(bugprone-easily-swappable-parameters): several words of one kind by design;\n"
+                 " * every call is checked against the integer model bit for bit (tests/test_bitexact.py) */\n")
+_NOLINT_END = "/* NOLINTEND(bugprone-easily-swappable-parameters) */\n"
+
+# split_mac's five products (b0 v, b1 z0, b2 z1, -a1 z2, -a2 z3): the top byte by an arithmetic
+# shift, the middle and low bytes from the word's unsigned bit pattern (the same bits).
+_SPLIT_TERMS = "".join(f"""\
+    x = {x}; k = {k};
+    w = (uint32_t)x;
+    b = (w >> 8) & 0xFFu;
+    hi += k * {{p}}_asr32(x, 16u);
+    mid += k * (int32_t)b;
+    b = w & 0xFFu;
+    lo += k * (int32_t)b;
+""" for x, k in (("v", "(int32_t)c[0]"), ("z[0]", "(int32_t)c[1]"), ("z[1]", "(int32_t)c[2]"),
+                 ("z[2]", "-(int32_t)c[3]"), ("z[3]", "-(int32_t)c[4]")))
+_SPLIT_MAC_C = """\
+static inline int32_t {p}_split_section(const int16_t *c, int32_t v, const int32_t *z, unsigned shift)
+{{
+    /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3, each 27 x 16 product as three 16 x 16 -> 32 products of
+     * the word's top, middle and low bytes summed apart, rounded by split_round
+     * (edgetally.fixedpoint.split_mac and section_step) */
+    int32_t hi = 0;
+    int32_t mid = 0;
+    int32_t lo = 0;
+    int32_t x;
+    int32_t k;
+    uint32_t w;
+    uint32_t b;
+""" + _SPLIT_TERMS.replace("{", "{{").replace("}", "}}").replace("{{p}}", "{p}") + """\
+    return {p}_split_round(hi, mid, lo, shift);
+}}
+"""
 C_DEFINITIONS = {
     "wrap_s32": """\
 static inline int32_t {p}_wrap_s32(uint32_t x)
@@ -463,56 +503,38 @@ static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t de
     return (uint32_t)(num << shift) / den;
 }}
 """,
-    "squelch_level": """\
+    "squelch_level": _NOLINT_BEGIN + """\
 static inline uint64_t {p}_squelch_level(uint64_t lvl, uint32_t a, unsigned shift, uint64_t cap)
+""" + _NOLINT_END + """\
 {{
     /* min(lvl - (lvl >> shift) + a, cap): the squelch's one-pole average of the noise measure */
     uint64_t v = lvl - (lvl >> shift) + (uint64_t)a;
     return (v > cap) ? cap : v;
 }}
 """,
+    "asr32": """\
+static inline int32_t {p}_asr32(int32_t x, unsigned s)
+{{
+    /* floor(x / 2^s), s < 32: arithmetic shift right (the emitted source checks that >> is arithmetic) */
+    return x >> s;
+}}
+""",
     "split_round": """\
 static inline int32_t {p}_split_round(int32_t hi, int32_t mid, int32_t lo, unsigned shift)
 {{
     /* rshr(hi 2^16 + mid 2^8 + lo, shift), 8 <= shift <= 16 (edgetally.fixedpoint.split_round) */
-    return hi * ((int32_t)1 << (16u - shift)) + ((mid + ((lo + ((int32_t)1 << (shift - 1u))) >> 8)) >> (shift - 8u));
+    const uint32_t scale = UINT32_C(1) << (16u - shift);
+    const uint32_t half = UINT32_C(1) << (shift - 1u);
+    return (hi * (int32_t)scale) + {p}_asr32(mid + {p}_asr32(lo + (int32_t)half, 8u), shift - 8u);
 }}
 """,
-    "split_mac": """\
-static inline int32_t {p}_split_section(const int16_t *c, int32_t v, const int32_t *z, unsigned shift)
-{{
-    /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3, each 27 x 16 product as three 16 x 16 -> 32 products of
-     * the word's top, middle and low bytes summed apart, rounded by split_round
-     * (edgetally.fixedpoint.split_mac and section_step) */
-    int32_t hi = 0, mid = 0, lo = 0, x, k;
-    x = v; k = (int32_t)c[0];
-    hi += k * (x >> 16);
-    mid += k * ((x >> 8) & 0xFF);
-    lo += k * (x & 0xFF);
-    x = z[0]; k = (int32_t)c[1];
-    hi += k * (x >> 16);
-    mid += k * ((x >> 8) & 0xFF);
-    lo += k * (x & 0xFF);
-    x = z[1]; k = (int32_t)c[2];
-    hi += k * (x >> 16);
-    mid += k * ((x >> 8) & 0xFF);
-    lo += k * (x & 0xFF);
-    x = z[2]; k = -(int32_t)c[3];
-    hi += k * (x >> 16);
-    mid += k * ((x >> 8) & 0xFF);
-    lo += k * (x & 0xFF);
-    x = z[3]; k = -(int32_t)c[4];
-    hi += k * (x >> 16);
-    mid += k * ((x >> 8) & 0xFF);
-    lo += k * (x & 0xFF);
-    return {p}_split_round(hi, mid, lo, shift);
-}}
-""",
+    "split_mac": _SPLIT_MAC_C,
     "rshr32": """\
 static inline int32_t {p}_rshr32(int32_t x, unsigned s)
 {{
     /* rshr on 32-bit words, for |x| + 2^(s-1) < 2^31 (the certificate's cubic lines) */
-    return (x + ((int32_t)1 << (s - 1u))) >> s;
+    const uint32_t half = UINT32_C(1) << (s - 1u);
+    return {p}_asr32(x + (int32_t)half, s);
 }}
 """,
     "sat32": """\
@@ -542,21 +564,27 @@ def cubic_c_text(prefix: str, delta_limit: int, recip: RecipPlan | None, shift: 
         q0 = f"{p}_ratio_floor(e1, {shift}u, d)"
         q1 = f"{p}_ratio_floor((uint32_t)num, {shift - CUBIC_T_BITS}u, d)"
     return f"""\
-static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next{args})
-{{
+{_NOLINT_BEGIN}static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next{args})
+{_NOLINT_END}{{
     /* phase fraction through four stamps in 32-bit words (see edgetally.fixedpoint.cubic_fraction) */
-    const int32_t one = (int32_t)1 << {CUBIC_U_BITS}u;
-    int32_t v = (int32_t)({q0} >> ({shift}u - {CUBIC_U_BITS}u));
+    const int32_t one = {1 << CUBIC_U_BITS};                  /* 1 in Q{CUBIC_U_BITS} */
+    const uint32_t v0 = {q0} >> {shift - CUBIC_U_BITS}u;
+    const uint32_t e1t = e1 << {CUBIC_T_BITS}u;                 /* e1 and d in Q{CUBIC_T_BITS} ticks */
+    const uint32_t dt = d << {CUBIC_T_BITS}u;
+    int32_t v = (int32_t)v0;
     int32_t dl0 = {p}_sat32({p}_wrap_s32(d - d_prev), -{delta_limit}, {delta_limit});
     int32_t dl1 = {p}_sat32({p}_wrap_s32(d_next - d), -{delta_limit}, {delta_limit});
-    int32_t h = (2 * dl0 + dl1) * one + (dl1 - dl0) * v;
+    int32_t h = (((2 * dl0) + dl1) * one) + ((dl1 - dl0) * v);
     int32_t q = v * (one - v);
     int32_t g = {r0("h", sh)} * {INV6};
     int32_t corr = {p}_rshr32({r0("q", sq)} * {r0("g", sg)}, {so}u);
-    int32_t num = {p}_sat32((int32_t)(e1 << {CUBIC_T_BITS}u) + corr, 0, (int32_t)(d << {CUBIC_T_BITS}u) - 1);
+    int32_t num = {p}_sat32((int32_t)e1t + corr, 0, (int32_t)dt - 1);
     return {q1};
 }}
 """
+
+
+_ASR_USERS = {"split_round", "split_mac", "rshr32", "cubic_fraction"}
 
 
 def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0,
@@ -565,7 +593,11 @@ def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta
     ``prefix`` on each name. Emit only what a design calls: unused static functions draw warnings.
     "reciprocal" (the seed table, ``recip_norm``, ``reciprocal``, ``ratio_recip``) needs its plan;
     "cubic_fraction" its delta_limit and phase shift (and the plan when it divides by reciprocal)."""
-    chosen = [n for n in C_DEFINITIONS if names is None or n in names]
+    wanted = None if names is None else set(names)
+    if wanted is not None and wanted & _ASR_USERS or (wanted is not None and "reciprocal" in wanted
+                                                       and recip is not None and recip.steps):
+        wanted.add("asr32")                   # the one signed shift the others call
+    chosen = [n for n in C_DEFINITIONS if wanted is None or n in wanted]
     text = "".join(C_DEFINITIONS[n] for n in chosen).format(p=prefix)
     if recip is not None and (names is None or "reciprocal" in names):
         text += recip_c_text(prefix, recip)

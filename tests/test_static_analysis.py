@@ -1,8 +1,9 @@
 """Static analysis of the emitted C, as firmware teams check code before they merge it.
 
 For every bundled example with its chosen scheme and every scheme that can be forced on it (and
-the four-stamp cubic estimator, which no example chooses at its own CPU budget), the emitted <name>.c, <name>.h and <name>_port.c (the wiring skeleton; the unit test is a host program
-and is left out) go through:
+the four-stamp cubic estimator, which no example chooses at its own CPU budget, both through the
+interval's reciprocal and by division), the emitted <name>.c, <name>.h and <name>_port.c (the
+wiring skeleton; the unit test is a host program and is left out) go through:
 - cppcheck's MISRA C:2012 addon (Debian's cppcheck, its own library for the standard headers) and
   cppcheck's own warning, style, portability and performance checks: a finding fails unless the
   deviation list (edgetally.emit.deviations, printed in the header and README) covers it;
@@ -36,12 +37,16 @@ TIDY_CHECKS = "-*,bugprone-*,cert-*,clang-analyzer-*"
 
 def _cubic_designs() -> dict:
     """The four-stamp cubic estimator, which no bundled example chooses at its own CPU budget: the
-    stamp examples with the budget raised to 95 % (the planner then takes it where it gains)."""
+    stamp examples with the budget raised to 95 % (the planner then takes it where it gains), on
+    their own core (no divide instruction: quotients through the interval's reciprocal) and, for
+    orchard_link, on a core that divides (quotients by division)."""
     out = {}
-    for stem in ("tiny_irq", "orchard_link"):
+    for stem, core in (("tiny_irq", None), ("orchard_link", None), ("orchard_link", "cortex-m4")):
         raw = tomllib.loads((EXAMPLES / f"{stem}.toml").read_text())
         raw["target"]["cpu_budget"] = 0.95
-        out[f"{stem}:budget95"] = edgetally.design(edgetally.parse_spec(raw))
+        if core is not None:
+            raw["target"]["core"] = core
+        out[f"{stem}:budget95" + (f"-{core}" if core else "")] = edgetally.design(edgetally.parse_spec(raw))
     return out
 
 
@@ -147,6 +152,18 @@ def test_every_deviation_is_needed():
 
 def test_the_cubic_estimator_is_checked():
     assert any(DESIGNS[key].cubic for key in KEYS)
+
+
+def test_every_arithmetic_and_stamp_front_is_checked():
+    """The checked designs emit each kind of C the generator can write: the split 27 x 16 filter
+    arithmetic (48-bit accumulator as three 32-bit sums), the 32- and 64-bit ones, the counter
+    front, the stamp front with the reciprocal and by division, and the cubic both ways."""
+    checked = [DESIGNS[key] for key in KEYS]
+    assert {d.filters.acc_bits for d in checked} >= {32, 48, 64}
+    assert any(not d.stamps for d in checked)
+    for cubic in (False, True):
+        assert any(d.stamps and d.cubic == cubic and d.recip is not None for d in checked)
+        assert any(d.stamps and d.cubic == cubic and d.recip is None for d in checked)
 
 
 def test_header_and_readme_print_the_deviation_list():

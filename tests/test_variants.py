@@ -17,6 +17,7 @@ import pytest
 
 import edgetally
 from edgetally.check import hostbuild, model
+from edgetally.designer.assemble import design as assemble_design
 from edgetally.planner.choose import plan
 from edgetally.stimulus.inputs import make_inputs
 from edgetally.target.check import available_cores, target_check
@@ -48,7 +49,8 @@ M4_VARIANTS = [("timestamp", "k1-linear", None, "m4"), ("timestamp", "k1-cubic",
 def _design(scheme, label, arith, core=None):
     spec = edgetally.parse_spec(M4 if core == "m4" else SCENARIO)
     p = plan(spec, scheme=scheme, variant=label)
-    return edgetally.design(spec, chosen=p, overrides={"arith": arith} if arith else None)
+    # the designer itself: the variant and arithmetic are forced, not chosen by simulation
+    return assemble_design(spec, p, overrides={"arith": arith} if arith else None)
 
 
 @pytest.fixture(scope="module")

@@ -45,10 +45,14 @@ DEVIATIONS: tuple[Deviation, ...] = (
         "so that map files (and edgetally's target size check) attribute its flash by name; it has "
         "internal linkage and one user, `{p}_post`."),
     Deviation(
-        "10.1", "required", "the shift in `{p}_rshr`", ("{p}.c",), ("(x + (int64_t)half) >> s",),
-        "round half up then shift right of a signed 64-bit value is the defined arithmetic of the integer "
-        "model (`edgetally.fixedpoint.rshr`); C99 leaves >> of a negative value implementation-defined, and "
-        "the typedef `{p}_check_arith_shift` refuses to compile where it is not an arithmetic shift."),
+        "10.1", "required", "the shifts in `{p}_rshr` and `{p}_asr32`", ("{p}.c",),
+        ("(x + (int64_t)half) >> s", "return x >> s;"),
+        "round half up then shift right of a signed 64-bit value, and the floor shift of a signed 32-bit "
+        "word (the one signed shift that the split filter arithmetic, the 32-bit rounding of the cubic and "
+        "the reciprocal's Newton steps call), are the defined arithmetic of the integer model "
+        "(`edgetally.fixedpoint.rshr`, `>>` on Python ints); C99 leaves >> of a negative value "
+        "implementation-defined, and the typedef `{p}_check_arith_shift` refuses to compile where it is "
+        "not an arithmetic shift."),
 )
 
 
