@@ -172,9 +172,9 @@ _TOP = {"name"} | set(_SECTIONS)
 
 
 UINT32_MAX = (1 << 32) - 1
-# The standard test measures SINAD from this frequency up (edgetally.planner.schemes.BAND_LOW_HZ;
-# below is DC, which carries the tuning offset): a band that ends there cannot be measured.
-MIN_AUDIO_HZ = 20.0
+# The narrowest audio band the standard test (edgetally.standard) fits a tone and a measured span
+# into, and the narrowest the tests verify (tests/test_standard_test.py).
+MIN_AUDIO_HZ = 5.0
 FULL_SCALE_SPAN = 4096   # the IF is at most this many full scales (see _physics)
 
 # The finite range of every number, from what the design code and the emitted C can hold. A value
@@ -382,9 +382,9 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
         # Common practice, no source: an IF of two to four times the peak deviation is usual.
         warnings.append(f"signal.if_hz {f0:g} Hz is under twice the peak deviation ({df:g} Hz); "
                         "two to four times is usual, and the lowest edge rate is small")
-    if sig.audio_hz <= MIN_AUDIO_HZ:
+    if sig.audio_hz < MIN_AUDIO_HZ:
         raise SpecError("signal.audio_hz", sig.audio_hz,
-                        f"must be above {MIN_AUDIO_HZ:g} Hz, where the standard test's measurement band starts")
+                        f"must be at least {MIN_AUDIO_HZ:g} Hz, the narrowest band the standard test measures")
     if out.rate_hz <= 2 * sig.audio_hz:
         raise SpecError("output.rate_hz", out.rate_hz,
                         f"must exceed twice signal.audio_hz ({2 * sig.audio_hz:g} Hz)")
