@@ -145,5 +145,7 @@ def design_and_plan(spec: Spec, scheme: str | None = None, chosen: Plan | None =
 
 def arith_name(d: Design) -> str:
     """The name of the filter arithmetic of ``d`` (a key of edgetally.designer.wordlength.ARITHS)."""
+    from ..designer.wordlength import ARITHS
+
     f = d.filters
-    return "narrow" if (f.data_bits, f.acc_bits) == (16, 32) else "wide"
+    return next(name for name, a in ARITHS.items() if (a.data_bits, a.coef_width, a.acc_bits) == (f.data_bits, f.coef_width, f.acc_bits))

@@ -207,6 +207,10 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     centre = round(Fraction(sig.if_hz) / unit)
     gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
+    if shift < 1:
+        raise SpecError("output.full_scale_hz", out.full_scale_hz,
+                        f"is too small for this design: one CIC step would be {float(gain):.3g} output-word steps, "
+                        f"more than the {SCALE_MULT_BITS}-bit scale multiplier holds; widen the full scale")
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
