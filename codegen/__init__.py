@@ -11,7 +11,15 @@ stays fast.
 
 __version__ = "0.1.0"
 
+from typing import TYPE_CHECKING, Any
+
 from .spec import Spec, SpecError, load_spec, parse_spec
+
+if TYPE_CHECKING:                      # the lazy names below, for type checkers
+    from .designer.assemble import design as design
+    from .ir import Design as Design
+    from .planner.choose import Plan as Plan
+    from .planner.choose import plan as plan
 
 _LAZY = {
     "Plan": ("planner.choose", "Plan"),
@@ -23,7 +31,7 @@ _LAZY = {
 __all__ = ["Spec", "SpecError", "load_spec", "parse_spec", "__version__", *_LAZY]
 
 
-def __getattr__(name):
+def __getattr__(name: str) -> Any:
     if name in _LAZY:
         import importlib
 

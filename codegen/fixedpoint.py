@@ -108,15 +108,23 @@ C_DEFINITIONS = {
 static inline int32_t {p}_wrap_s32(uint32_t x)
 {{
     /* uint32 pattern read as int32 without an implementation-defined conversion */
-    return (x < UINT32_C(0x80000000)) ? (int32_t)x
-                                      : (int32_t)(x - UINT32_C(0x80000000)) - INT32_C(0x7FFFFFFF) - 1;
+    int32_t r;
+    if (x < 0x80000000u) {{
+        r = (int32_t)x;
+    }} else {{
+        uint32_t low = x - 0x80000000u;             /* in [0, 2^31): representable */
+        r = ((int32_t)low - INT32_MAX) - 1;
+    }}
+    return r;
 }}
 """,
     "rshr": """\
 static inline int64_t {p}_rshr(int64_t x, unsigned s)
 {{
     /* round half up, then arithmetic shift right (the emitted source checks that >> is arithmetic) */
-    return (x + ((int64_t)1 << (s - 1u))) >> s;
+    const unsigned up = s - 1u;
+    const uint64_t half = (uint64_t)1u << up;
+    return (x + (int64_t)half) >> s;
 }}
 """,
     "sat": """\
@@ -133,18 +141,20 @@ static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t de
 }}
 """,
     "cubic_fraction": """\
-static inline uint32_t {p}_cubic_fraction(uint32_t e1, uint32_t d, uint32_t d_prev, uint32_t d_next,
-                                          unsigned shift, int64_t delta_limit)
+static inline uint32_t {p}_cubic_fraction(uint32_t e1, unsigned shift, const uint32_t iv[3], int64_t delta_limit)
 {{
-    /* phase fraction through four stamps (see edgetally.fixedpoint.cubic_fraction) */
-    const int64_t one = (int64_t)1 << {ub}u;
-    int64_t v = (int64_t)({p}_ratio_floor(e1, shift, d) >> (shift - {ub}u));
-    int64_t dl0 = {p}_sat((int64_t){p}_wrap_s32(d - d_prev), -delta_limit, delta_limit);
-    int64_t dl1 = {p}_sat((int64_t){p}_wrap_s32(d_next - d), -delta_limit, delta_limit);
-    int64_t h = (2 * dl0 + dl1) * one + (dl1 - dl0) * v;
+    /* phase fraction through four stamps (see edgetally.fixedpoint.cubic_fraction): at offset e1 into
+     * the interval iv[1] = d, with the intervals iv[0] = d_prev before it and iv[2] = d_next after it */
+    const uint32_t d = iv[1];
+    const int64_t one = INT64_C({one});
+    uint32_t u0 = {p}_ratio_floor(e1, shift, d) >> (shift - {ub}u);
+    int64_t v = (int64_t)u0;
+    int64_t dl0 = {p}_sat((int64_t){p}_wrap_s32(d - iv[0]), -delta_limit, delta_limit);
+    int64_t dl1 = {p}_sat((int64_t){p}_wrap_s32(iv[2] - d), -delta_limit, delta_limit);
+    int64_t h = (((INT64_C(2) * dl0) + dl1) * one) + ((dl1 - dl0) * v);
     int64_t q = v * (one - v);
     int64_t corr = {p}_rshr(q * h * INT64_C({inv6}), {corr_shift}u);
-    int64_t num = {p}_sat(((int64_t)e1 << {tb}u) + corr, 0, ((int64_t)d << {tb}u) - 1);
+    int64_t num = {p}_sat(((int64_t)e1 * INT64_C({tscale})) + corr, INT64_C(0), ((int64_t)d * INT64_C({tscale})) - INT64_C(1));
     return {p}_ratio_floor((uint32_t)num, shift - {tb}u, d);
 }}
 """,
@@ -157,4 +167,5 @@ def c_definitions(prefix: str, names=None) -> str:
     chosen = [n for n in C_DEFINITIONS if names is None or n in names]
     text = "".join(C_DEFINITIONS[n] for n in chosen)
     return ("/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */\n"
-            + text.format(p=prefix, ub=CUBIC_U_BITS, tb=CUBIC_T_BITS, inv6=INV6, corr_shift=CUBIC_CORR_SHIFT))
+            + text.format(p=prefix, ub=CUBIC_U_BITS, tb=CUBIC_T_BITS, one=1 << CUBIC_U_BITS, tscale=1 << CUBIC_T_BITS,
+                          inv6=INV6, corr_shift=CUBIC_CORR_SHIFT))

@@ -57,8 +57,8 @@ class StampFront:
     [x_low, x_limit] (the band edges widened by the planner's over-deviation allowance); a step
     outside is not this carrier (a noise burst, a spurious edge) and is replaced by x_centre (muted)
     and counted. The first valid instant after a gap, or after inputs were lost, re-anchors the
-    phase and is also fed x_centre (a resync), so a gap never turns into a click. The first grid instant lies ``grid_ticks`` after the first stamp ("linear") or
-    the second stamp ("cubic")."""
+    phase and is also fed x_centre (a resync), so a gap never turns into a click. The first grid
+    instant lies ``grid_ticks`` after the first stamp ("linear") or the second stamp ("cubic")."""
 
     timer_bits: int
     prescale: int          # IF cycles between two stamps (capture prescaler)
@@ -317,7 +317,7 @@ class Design:
         return json.dumps(dataclasses.asdict(self), indent=2, sort_keys=True)
 
     @classmethod
-    def from_json(cls, text: str) -> "Design":
+    def from_json(cls, text: str) -> Design:
         return _build(cls, json.loads(text))
 
 

@@ -9,6 +9,8 @@ cached by a hash of the sources and flags in a per-user folder under the system 
 
 from __future__ import annotations
 
+from typing import Any
+
 import hashlib
 import importlib.util
 import os
@@ -64,8 +66,8 @@ class HostDemod:
     """The compiled demodulator of one Design, loaded into this process."""
 
     design: Design
-    ffi: object
-    lib: object
+    ffi: Any                 # cffi.FFI and the compiled library: dynamic attributes
+    lib: Any
 
     @property
     def input_dtype(self):
@@ -105,7 +107,7 @@ class HostDemod:
         ctype = f"{self.design.name}_input_t *"
         lost_set = {int(i) for i in (lost if lost is not None else ())}
         breaks = sorted(lost_set | set(range(0, inputs.size, block)))
-        for start, stop in zip(breaks, breaks[1:] + [inputs.size]):
+        for start, stop in zip(breaks, breaks[1:] + [inputs.size], strict=True):
             if start in lost_set:
                 self._fn("inputs_lost")(st)
             blk = inputs[start:stop]
@@ -199,6 +201,7 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
             raise
         _trim(root)
     spec = importlib.util.spec_from_file_location(modname, found[0])
+    assert spec is not None and spec.loader is not None
     mod = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(mod)
     return HostDemod(design=design, ffi=mod.ffi, lib=mod.lib)

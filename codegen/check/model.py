@@ -5,7 +5,8 @@ the CIC are vectorised with numpy int64 (values stay far from 2**63: phase steps
 and each integrator is reduced modulo 2**32 before the next); the recursive filters run sample by
 sample on Python integers.
 
-Contract shared with the C: inputs are processed in order; counts are read once per grid instant. Output samples do not depend on how the inputs are split into blocks.
+Contract shared with the C: inputs are processed in order; counts are read once per grid instant.
+Output samples do not depend on how the inputs are split into blocks.
 """
 
 from __future__ import annotations
@@ -159,7 +160,7 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
         if v > lim or v < -lim:
             sats += 1
             v = sat(v, -lim, lim)
-        for c, z in zip(coefs, state):
+        for c, z in zip(coefs, state, strict=True):
             v, saturated = section_step(c, z, v, cb, lim, narrow_acc)
             sats += saturated
         o = v * of.lmul

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import time
 from dataclasses import asdict, dataclass
-from typing import Callable
+from collections.abc import Callable
 
 from . import hostbuild, model, reference
 from .compare import compare
@@ -50,7 +50,7 @@ class VerifyResult:
     model_seconds: float
     widths: dict
     target_bit_exact: bool | None = None     # None: not run (no cross compiler or emulator)
-    target: dict = None                       # per core: bit_exact, cycles per event, sizes
+    target: dict | None = None                # per core: bit_exact, cycles per event, sizes
 
     @property
     def ok(self) -> bool:

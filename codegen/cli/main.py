@@ -122,7 +122,8 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
             v = sims.get((o.scheme, o.variant))
             sim = f" {v:>7.1f}" if v is not None else f" {'':>7}"
         lines.append(f"{o.scheme:<10} {o.variant:<13} {o.ratio:>3} {o.grid_hz:>8} {o.load:>6.1%} {o.ram_bytes:>6} "
-                     f"{o.predicted_sinad_db:>7.1f}{'?' if o.doubtful else ' '} {_db(o.quant_sinad_db):>6} {_db(o.curvature_sinad_db):>6} "
+                     f"{o.predicted_sinad_db:>7.1f}{'?' if o.doubtful else ' '} {_db(o.quant_sinad_db):>6} "
+                     f"{_db(o.curvature_sinad_db):>6} "
                      f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}")
     pr, ld = pl.prediction, pl.load
     lines += ["",
@@ -210,7 +211,7 @@ def _measured_plan(spec: Spec, pl, scheme):
     if not target.available(core):
         t = target.TARGETS[core]
         raise RuntimeError(f"--measured needs {t.cc} (Debian {t.package}) and the {t.emulator} emulator")
-    exclude = {}
+    exclude: dict = {}
     for _ in range(MEASURE_TRIES):
         t = target_check(make_design(spec, pl), cores=(core,))[core]
         if t["load_fraction"] <= spec.target.cpu_budget:
@@ -328,7 +329,8 @@ def cmd_verify(args) -> int:
                     print(f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
                           f"first {t['isa_violations'][0]}")
         else:
-            print("  target runs: skipped (needs a cross compiler and an emulator: unicorn, pyelftools, simavr)")
+            print("  target runs: skipped (needs a cross compiler, e.g. Debian's gcc-arm-none-eabi, and the emulator: "
+                  "the package's target extra, pip install '.[target]')")
         for s in sw:
             cli_quality.print_sweep(s)
         if hs:

@@ -35,7 +35,7 @@ class WidthOption:
     """One candidate word-length set for the output chain, with what it would cost and lose."""
 
     arith: str
-    filters: Filters
+    filters: Filters | None       # None: refused (the reason says why)
     q_in: int
     loss_db: float                # predicted implementation loss (Jackson roundoff vs the planned noise)
     response_error_db: float
@@ -145,7 +145,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     opts = width_options(spec, p, overrides)
     good = [o for o in opts if o.ok]
     pick = good[0] if good else next((o for o in reversed(opts) if o.filters is not None), None)
-    if pick is None:
+    if pick is None or pick.filters is None:
         raise SpecError("fixed", spec.fixed.arith, "no word lengths give a stable quantised filter: " + opts[0].reason)
     f, q_in = pick.filters, pick.q_in
     unit, y_max = _units(p)

@@ -41,7 +41,7 @@ class WidthReport:
 
 def parse_sets(items: list[str]) -> dict:
     """``filters.KEY=VALUE`` strings -> overrides; SpecError naming the bad item."""
-    out = {}
+    out: dict = {}
     for item in items:
         key, sep, value = item.partition("=")
         if not sep or not key.startswith("filters."):
@@ -73,7 +73,7 @@ def _limit_cycles(d: Design, noise_fs2: float) -> list[dict]:
     below the demodulator's own in-band noise."""
     f = d.filters
     rows = []
-    for s, m in zip(f.sections, wordlength.limit_cycle_lsb(f)):
+    for s, m in zip(f.sections, wordlength.limit_cycle_lsb(f), strict=True):
         idle = (m * 2.0 ** -s.q_out) ** 2 / 2
         below = 10 * math.log10(noise_fs2 / idle) if idle else math.inf
         rows.append({"section": s.role, "dead_band_lsb": m,

@@ -75,7 +75,7 @@ def coef_bits_for(rows: list, q_in: int, qs: list[int], width: int) -> int:
     """The largest Q format in which every scaled coefficient, once rounded, fits ``width`` bits
     (two's complement: -2**(width-1) .. 2**(width-1) - 1)."""
     coefs, prev = [], q_in
-    for row, q in zip(rows, qs):
+    for row, q in zip(rows, qs, strict=True):
         b0, b1, b2, _, a1, a2 = row
         coefs += [c * 2.0 ** (q - prev) for c in (b0, b1, b2)] + [a1, a2]
         prev = q
@@ -138,7 +138,7 @@ def limit_cycle_lsb(f: Filters, steps: int = 3000, seed: int = 1) -> list[float]
     out = []
     for s in f.sections:
         worst = 0
-        starts = [(f.limit, f.limit), (f.limit, -f.limit), (-f.limit, f.limit), (7, -7), (3, 3)]
+        starts: list[tuple[int, ...]] = [(f.limit, f.limit), (f.limit, -f.limit), (-f.limit, f.limit), (7, -7), (3, 3)]
         starts += [tuple(int(v) for v in rng.integers(-f.limit, f.limit + 1, size=2)) for _ in range(20)]
         starts += [tuple(int(v) for v in rng.integers(-64, 65, size=2)) for _ in range(40)]
         coefs = (s.b0, s.b1, s.b2, s.a1, s.a2)

@@ -22,8 +22,8 @@ def _impulse_from_stage(j: int, n: int, r: int, m: int) -> list[int]:
     if j <= n:
         out = []
         for k in range((rm - 1) * n + j):
-            out.append(sum((-1) ** l * comb(n, l) * comb(n - j + k - rm * l, k - rm * l)
-                           for l in range(k // rm + 1)))
+            out.append(sum((-1) ** i * comb(n, i) * comb(n - j + k - rm * i, k - rm * i)
+                           for i in range(k // rm + 1)))
         return out
     return [(-1) ** k * comb(2 * n + 1 - j, k) for k in range(2 * n + 2 - j)]
 

@@ -71,7 +71,7 @@ def quantise_rows(rows: list, roles: list[str], q_in: int, qs: list[int], cb: in
     2**(q_out - q_in) (per-section scaling), every coefficient rounded to Q(cb); ValueError if a
     quantised pole leaves the unit circle by less than POLE_MARGIN."""
     out, prev, scale = [], q_in, float(1 << cb)
-    for row, role, q in zip(rows, roles, qs):
+    for row, role, q in zip(rows, roles, qs, strict=True):
         b0, b1, b2, a0, a1, a2 = row
         if abs(a0 - 1.0) > 1e-12:
             raise ValueError("sections must be normalised to a0 = 1")
@@ -80,6 +80,6 @@ def quantise_rows(rows: list, roles: list[str], q_in: int, qs: list[int], cb: in
         poles = np.roots([1.0, c[3] / scale, c[4] / scale])
         if np.max(np.abs(poles)) >= 1.0 - POLE_MARGIN:
             raise ValueError(f"{role}: quantised poles {poles} leave the unit circle margin")
-        out.append(Section(role, *c, q_out=q, float_sos=tuple(float(v) for v in row)))
+        out.append(Section(role, c[0], c[1], c[2], c[3], c[4], q_out=q, float_sos=tuple(float(v) for v in row)))
         prev = q
     return tuple(out)

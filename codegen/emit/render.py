@@ -16,6 +16,7 @@ import jinja2
 
 from ..fixedpoint import c_definitions
 from ..ir import Design, Topology
+from . import deviations
 
 
 @dataclass(frozen=True)
@@ -243,8 +244,9 @@ def emit(design: Design) -> dict[str, str]:
         stamp=design.stamps, cubic=design.cubic, capture=design.topology is Topology.CAPTURE,
         edge_stamp=design.topology is Topology.EDGE_STAMP, edge_count=design.topology is Topology.EDGE_COUNT,
         counter=design.topology is Topology.COUNTER,
-        input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_C(0xFFFFFFFF)",
+        input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_MAX",
         fixedpoint=c_definitions(p, _operations(design)),
+        misra=deviations.header_text(p),
     )
     return {
         f"{p}.h": env.get_template("demod.h.j2").render(ctx),

@@ -161,12 +161,12 @@ def _case_step(design: Design, opt: Options, post: float) -> _Case:
              for k in range(n_seg)] + [design.if_hz + STEP_LEVEL * design.full_scale_hz]
     bounds = np.append(knots, total)
     ph = 0.37                                                # start phase (cycles), arbitrary
-    times = []
-    for a, b, f in zip(bounds[:-1], bounds[1:], freqs):
+    pieces = []
+    for a, b, f in zip(bounds[:-1], bounds[1:], freqs, strict=True):
         n = np.arange(math.floor(ph) + 1, math.floor(ph + f * (b - a)) + 1)
-        times.append(a + (n - ph) / f)
+        pieces.append(a + (n - ph) / f)
         ph += f * (b - a)
-    times = np.concatenate(times)
+    times = np.concatenate(pieces)
     j = _first_input_at(design, times, t0)
     return _Case(_hardware(design, times, total, opt.seed), [], j, j,
                  f"square-wave FSK between IF -+ {STEP_LEVEL:g} of full-scale deviation, "

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass, field
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -139,7 +139,7 @@ def chain_noise_gain_db(design: Design, tone_hz: float) -> float:
     f = np.linspace(schemes.BAND_LOW_HZ, w, 4001)
     q_db, _ = response.chain_response(design, np.append(f, tone_hz))
     g2 = 10 ** ((q_db[:-1] - q_db[-1]) / 10)
-    shaped = np.trapezoid(f ** 2 * g2, f) if hasattr(np, "trapezoid") else np.trapz(f ** 2 * g2, f)
+    shaped = np.trapezoid(f ** 2 * g2, f) if hasattr(np, "trapezoid") else np.trapz(f ** 2 * g2, f)  # type: ignore[attr-defined]
     return float(10 * math.log10((w ** 3 / 3) / shaped))
 
 
@@ -192,8 +192,9 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
         if progress:
             progress(n + 1, len(xs))
     if kind == "cnr":
+        with_filters = [p.predicted_db + gain for p in out]  # type: ignore[operator]  # set on every cnr point
         curves = {"formula 3 beta^2 (beta+1) CNR": (xs, [p.predicted_db for p in out]),
-                  "formula with this chain's filters": (xs, [p.predicted_db + gain for p in out])}
+                  "formula with this chain's filters": (xs, with_filters)}
     if kind == "deviation":
         inside = [p for p in out if p.x <= design.full_scale_hz and p.flags.get("clips", 0) == 0]
         if inside:

@@ -256,7 +256,7 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
     if chosen is None:
         raise _refusal(spec, scheme, per_variant)
     rows = []
-    for v, cands, best in per_variant:
+    for _v, cands, best in per_variant:
         shown = best or min(cands, key=lambda c: (c.option.reason.startswith("the part"), c.option.load))
         o = shown.option
         if shown is chosen:
@@ -285,6 +285,7 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
                      "'plan --simulate' measures it")
     if scheme is not None:
         notes.append(f"scheme forced to {scheme}")
+    assert chosen.front is not None                  # a feasible option has its front end's words
     return Plan(scheme=chosen.variant.scheme, variant=chosen.variant.label, front=chosen.front,
                 ratio=chosen.option.ratio, order=CIC_ORDER, grid_hz=chosen.option.grid_hz, cic_in_bits=chosen.in_bits,
                 queue_len=chosen.queue_len, load=chosen.load, prediction=pr, options=tuple(rows), notes=tuple(notes))

@@ -402,7 +402,7 @@ CHECK_JS = """
                                    : '%s (' + imgs.length + ' images)';
   });
 })();
-""" % PAGE_OK
+""".replace("%s", PAGE_OK)           # not str.format: the JavaScript braces would all need doubling
 
 
 def render(ctx: ReportContext) -> str:

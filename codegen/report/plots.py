@@ -105,7 +105,7 @@ def sweep_plot(s) -> str:
     x = np.array([p.x for p in s.points], dtype=float)
     fig, axes = figure(7.5, 2.9 * len(panels), rows=len(panels))
     axes = np.atleast_1d(axes)
-    for ax, (ylabel, series, with_curves) in zip(axes, panels):
+    for ax, (ylabel, series, with_curves) in zip(axes, panels, strict=True):
         for attr, label, colour in series:
             # None: not measured; a THD at the float floor (about -313 dB): no harmonic was fitted
             y = np.array([np.nan if getattr(p, attr) is None or (attr == "thd_db" and getattr(p, attr) < -300)
@@ -120,7 +120,7 @@ def sweep_plot(s) -> str:
         first = series[0][0]
         bad = [(p.x, getattr(p, first)) for p in s.points if not p.bit_exact and getattr(p, first) is not None]
         if bad:
-            bx, by = zip(*bad)
+            bx, by = zip(*bad, strict=True)
             ax.plot(bx, by, "x", ms=10, mew=2, color=BAD, label="not bit-exact", zorder=5)
         ax.set_ylabel(ylabel)
         ax.grid(alpha=0.3)

@@ -40,6 +40,7 @@ import math
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any, cast
 
 import numpy as np
 
@@ -139,7 +140,7 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
                 if k is TokenKind.CHANGE_SCALAR or k is TokenKind.CHANGE_VECTOR:
                     if ident is None:
                         continue
-                    code, v = tok.data
+                    code, v = cast(Any, tok.data)       # a change's payload (the kind narrows it)
                     if code != ident:
                         continue
                     v = str(v).lower()
@@ -150,10 +151,11 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
                     else:
                         level = None                     # x or z: no edge into or out of it
                 elif k is TokenKind.CHANGE_TIME:
-                    if tok.data < last_time:
+                    now = cast(int, tok.data)
+                    if now < last_time:
                         raise RecordingError(path, f":{tok.span.start.line}",
-                                             f"time runs backwards (#{tok.data} after #{last_time})")
-                    last_time, last_line = tok.data, tok.span.start.line
+                                             f"time runs backwards (#{now} after #{last_time})")
+                    last_time, last_line = now, tok.span.start.line
                 elif k is TokenKind.SCOPE:
                     scopes.append(tok.data.ident)
                 elif k is TokenKind.UPSCOPE:
@@ -169,14 +171,15 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
                     end_line = tok.span.start.line
                     ident = _pick_signal(path, end_line, names, signal)
     except VCDParseError as e:
-        raise RecordingError(path, f":{e.loc.line}:{e.loc.column}", f"not a valid value change dump: {_cut(e, 80)}")
+        raise RecordingError(path, f":{e.loc.line}:{e.loc.column}", f"not a valid value change dump: {_cut(e, 80)}") from e
     except (OSError, UnicodeDecodeError) as e:
-        raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}")
+        raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}") from e
     if end_line is None:
         raise RecordingError(path, f":{last_line}", "ends before $enddefinitions (truncated, or not a value change dump)")
     if unit is None:
         raise RecordingError(path, f":{end_line}", "no $timescale in the header: the times have no unit")
     exp = _UNITS[unit.unit.value]
+    assert ident is not None                    # _pick_signal chose one or refused the file
     full = names[ident][0]
     what = f"VCD signal {full}, {edge} edges, timescale {unit.magnitude} {unit.unit.value}"
     return Edges(np.array(at, dtype=np.int64), int(unit.magnitude), 10 ** exp, int(last_time), what)
@@ -206,7 +209,7 @@ def read_csv(path, signal: str | None = None) -> tuple[list[int], list[int]]:
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as e:
-        raise RecordingError(path, "", f"cannot read it as text: {_cut(e, 80)}")
+        raise RecordingError(path, "", f"cannot read it as text: {_cut(e, 80)}") from e
     col, values, lines = None, [], []
     for ln, raw in enumerate(text.splitlines(), 1):
         row = raw.split("#", 1)[0].strip()
@@ -257,7 +260,7 @@ def read_bin(path, word_bits: int, endian: str = "little") -> np.ndarray:
     try:
         raw = path.read_bytes()
     except OSError as e:
-        raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}")
+        raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}") from e
     extra = len(raw) % nbytes
     if extra:
         raise RecordingError(path, f": offset {len(raw) - extra}",
@@ -283,7 +286,7 @@ def logged_inputs(design: Design, path, values, where: list[str]) -> tuple[np.nd
             raise RecordingError(path, where[i], f"{kind} run backwards ({int(v[i])} after {int(v[i - 1])})")
     mask = (1 << bits) - 1
     inputs = (v & np.uint64(mask)).astype(np.uint16 if bits == 16 else np.uint32)
-    steps = np.diff(inputs.astype(np.int64)) & mask
+    steps = np.diff(inputs.astype(np.int64)) & mask  # type: ignore[operator]
     if fr.kind == "stamp":
         return inputs, float(steps.sum()) / design.rates.timer_hz, int(v.size * fr.prescale)
     if not steps.any():
@@ -301,7 +304,7 @@ def read_wav(path) -> tuple[int, np.ndarray]:
     try:
         raw = path.read_bytes()
     except OSError as e:
-        raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}")
+        raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}") from e
     if len(raw) < 12 or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
         raise RecordingError(path, ": offset 0", "not a RIFF/WAVE file")
     pos, fmt, data, data_at = 12, None, None, 0
@@ -343,7 +346,7 @@ def read_wav(path) -> tuple[int, np.ndarray]:
         x = np.frombuffer(data, dtype=kinds[(tag, bits)])
     x = x.astype(np.float64)
     if bits == 8:
-        x -= 128.0
+        x -= 128.0  # type: ignore[arg-type]
     return fs, x.reshape(-1, ch)
 
 
@@ -362,13 +365,13 @@ def read_sigmf(path) -> tuple[float, np.ndarray, float | None]:
         json.loads(meta.read_text(encoding="utf-8"))
     except (ValueError, UnicodeDecodeError) as e:
         where = f":{e.lineno}" if isinstance(e, json.JSONDecodeError) else ""
-        raise RecordingError(meta, where, f"not valid JSON: {_cut(getattr(e, 'msg', e), 80)}")
+        raise RecordingError(meta, where, f"not valid JSON: {_cut(getattr(e, 'msg', e), 80)}") from e
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             rec = sigmffile.fromfile(str(meta), skip_checksum=True)
     except Exception as e:   # the library raises several kinds (schema, file, key errors)
-        raise RecordingError(meta, "", f"not a valid SigMF recording: {_cut(e, 100)}")
+        raise RecordingError(meta, "", f"not a valid SigMF recording: {_cut(e, 100)}") from e
     dtype = str(rec.get_global_field("core:datatype"))
     if not dtype.startswith("c"):
         raise RecordingError(meta, "", f"datatype {dtype!r} is real; IQ (a complex datatype such as cf32_le) is needed")
@@ -506,7 +509,7 @@ def load(design: Design, path, fmt: str | None = None, signal: str | None = None
             if wb not in (16, 32, 64) or wb < bits:
                 raise RecordingError(path, "", f"{wb}-bit words cannot hold {bits}-bit inputs (16, 32 or 64, "
                                      f"at least {bits})")
-            values = read_bin(path, wb, endian)
+            values = read_bin(path, wb, endian)  # type: ignore[assignment]
             where = [f": offset {i * (wb // 8)}" for i in range(len(values))]
         inputs, seconds, nedges = logged_inputs(design, path, values, where)
         kind = "stamps" if fr.kind == "stamp" else "counts"
@@ -526,7 +529,7 @@ def load(design: Design, path, fmt: str | None = None, signal: str | None = None
             kind = f"IQ WAV, channel offset {offset_hz:g} Hz" if iq else "IF WAV"
             e = _float_edges(t, x.shape[0], fs, f"{kind}, {fs} Hz, {x.shape[0]} samples, {edge} crossings")
         else:
-            fs, x, centre = read_sigmf(path)
+            fs, x, centre = read_sigmf(path)  # type: ignore[assignment]
             if not np.any(x):
                 raise RecordingError(path, "", "every IQ sample is zero: no carrier, no edges")
             _check_rate(path, fs, design, offset_hz, True)

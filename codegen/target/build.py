@@ -377,6 +377,7 @@ def describe(design: Design, core: str, opt: str, elf_path: Path | bytes, wd: Pa
         syms[s.name] = Symbol(s.name, addr, s["st_size"], kind[4:], secnames[s["st_shndx"]])
     state_sym = syms["harness_state_size"]
     sec = elf.get_section_by_name(state_sym.section)
+    assert sec is not None                           # the symbol's own section
     off = state_sym.addr - sec["sh_addr"]
     state_size = int.from_bytes(sec.data()[off:off + 4], "little")
 
@@ -392,7 +393,8 @@ def describe(design: Design, core: str, opt: str, elf_path: Path | bytes, wd: Pa
     flash_total = sum(sec_sizes.get(n, 0) for n in (".text", ".rodata", ".ARM.exidx", ".data"))
     ram_total = sum(sec_sizes.get(n, 0) for n in (".data", ".bss"))
     return TargetBuild(
-        design_name=p, core=core, opt=opt, elf=None if isinstance(elf_path, bytes) else Path(elf_path), elf_bytes=data, workdir=wd, symbols=syms,
+        design_name=p, core=core, opt=opt, elf=None if isinstance(elf_path, bytes) else Path(elf_path), elf_bytes=data,
+        workdir=wd, symbols=syms,
         flash_by_function=dict(sorted(fn.items())), flash_by_object=dict(sorted(fobj.items())),
         ram_by_object=dict(sorted(ram.items())), flash_demod=sum(fn.values()) + sum(fobj.values()),
         flash_runtime=runtime, flash_total=flash_total, ram_state=state_size, ram_total=ram_total,

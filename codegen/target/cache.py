@@ -34,16 +34,15 @@ def key(*parts: object) -> str:
 
 
 def _trim(d: Path) -> None:
-    # Other threads and processes share the folder: a file may vanish between the listing and its
-    # stat, which then counts it as gone.
+    # Another process sharing the folder may remove a file between the listing and its stat.
     dated = []
     for f in d.iterdir():
         try:
             if f.is_file():
                 dated.append((f.stat().st_mtime, f))
-        except FileNotFoundError:
-            continue
-    dated.sort(key=lambda t: t[0])
+        except OSError:
+            pass
+    dated.sort(key=lambda item: item[0])
     for _, f in dated[:max(0, len(dated) - MAX_ENTRIES)]:
         f.unlink(missing_ok=True)
 

@@ -71,7 +71,8 @@ class _Models:
     def __init__(self, design: Design, inputs: np.ndarray):
         import threading
 
-        self.design, self.inputs, self.runs, self.lock = design, inputs, {}, threading.Lock()
+        self.runs: dict = {}
+        self.design, self.inputs, self.lock = design, inputs, threading.Lock()
 
     def prefix(self, n: int):
         n = min(n, self.inputs.size)
@@ -98,7 +99,7 @@ def check_core(design: Design, core: str, inputs: np.ndarray, bench: np.ndarray,
     inputs = np.ascontiguousarray(inputs[:MAX_INPUTS.get(core, inputs.size)])
     W, N = float_baseline.WARM, float_baseline.N
     b = target.cross_build(design, core, "-Os", emitted=emitted)
-    x = inputs.astype(b.input_dtype)
+    x: np.ndarray = inputs.astype(b.input_dtype)
     # One run of all the inputs through <name>_process, counted by role over inputs [W, W + N): the
     # bit-exact comparison, the per-event costs and the whole-run cost per output sample at once.
     rl, entries = target_cycles.roles(b, design)

@@ -288,17 +288,17 @@ class Profiler:
         names = self.names
         if self.build.target.arch == "avr":
             t = self.t
-            counts = {names[i]: int(v) for i, v in enumerate(t.insns) if v}
-            cycles = {names[i]: float(v) for i, v in enumerate(t.cycles) if v}
-            calls = {n: int(t.calls[a // 2]) for a, n in self.entries.items()}
+            counts: dict[str, int] = {names[i]: int(v) for i, v in enumerate(t.insns) if v}
+            cycles: dict[str, float] = {names[i]: float(v) for i, v in enumerate(t.cycles) if v}
+            calls: dict[str, int] = {n: int(t.calls[a // 2]) for a, n in self.entries.items()}
             return Tally(counts, cycles, calls, {})
         arch = self.build.target.arch
         c = TIMING[self.build.core]
         classify = _arm_class if arch == "arm" else _rv_class
         cs = disassembler(arch)
-        counts: dict[str, int] = {}
-        cycles: dict[str, float] = {}
-        calls: dict[str, int] = {n: 0 for n in self.entries.values()}
+        counts = {}
+        cycles = {}
+        calls = {n: 0 for n in self.entries.values()}
         classes: dict[str, int] = {}
         decoded: dict[tuple[int, int], list] = {}
         for addr, size, ctx, n, fall in self.t.blocks():
@@ -313,7 +313,7 @@ class Profiler:
                     items.append((int(self.role[(insn.address - self.base) // 2]), cls, cyc, kind))
                 decoded[(addr, size)] = items
             k, kind = ctx, ""
-            for r, cls, cyc, kind in items:
+            for r, cls, cyc, kind in items:    # noqa: B007 (the last instruction's kind is read below)
                 if r:
                     k = r
                 counts[names[k]] = counts.get(names[k], 0) + n

@@ -104,7 +104,7 @@ class UnicornMachine:
         for seg in ELFFile(io.BytesIO(build.elf_bytes)).iter_segments():
             if seg["p_type"] == "PT_LOAD" and seg["p_filesz"]:
                 mu.mem_write(seg["p_paddr"], seg.data())
-        self._hooks = []
+        self._hooks: list[object] = []
         self.guard = _GuardStruct(0, MAX_BLOCKS_PER_CALL, None)
         from unicorn.unicorn_py3.unicorn import uclib
         self.guard.stop = ctypes.cast(uclib.uc_emu_stop, ctypes.c_void_p)
@@ -126,7 +126,7 @@ class UnicornMachine:
     def call(self, name: str, *args: int) -> int:
         mu = self.mu
         self.guard.blocks = 0
-        for reg, v in zip(self.regs, args):
+        for reg, v in zip(self.regs, args, strict=False):       # fewer args than registers
             mu.reg_write(reg, v & 0xFFFFFFFF)
         mu.reg_write(self.sp, STACK_TOP)
         mu.reg_write(self.ra, STOP_BASE | self.thumb)

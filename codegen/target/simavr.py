@@ -96,8 +96,8 @@ class AvrMachine:
             self.lib.et_avr_flash(self.avr, seg["p_paddr"], data, len(data))      # the flash image
             if seg["p_vaddr"] >= DATA_SPACE:                                      # .data: also in RAM
                 self.lib.et_avr_write(self.avr, seg["p_vaddr"] - DATA_SPACE, data, len(data))
-        self.tally = None
-        self._keep = []
+        self.tally: AvrTally | None = None
+        self._keep: list[object] = []
 
     def __del__(self):
         if getattr(self, "avr", None):
