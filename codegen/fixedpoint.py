@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
+
 def wrap_bits(x, bits: int):
     """Reduce modulo 2**bits into [0, 2**bits): what a ``bits``-wide unsigned register holds (a timer,
     a counter, uint32_t arithmetic; the difference of two such values in modular arithmetic).
@@ -69,10 +70,10 @@ def section_step(coefs, z: list, x: int, coef_bits: int, limit: int, narrow: boo
 
 
 INV6_BITS = 15
-INV6 = round((1 << INV6_BITS) / 6)       # 1/6 in Q15 for the cubic correction
-CUBIC_U_BITS = 12                        # the cubic correction reads the fraction in Q12
-CUBIC_T_BITS = 8                         # and corrects the time offset in Q8 ticks
-CUBIC_CORR_SHIFT = 3 * CUBIC_U_BITS + INV6_BITS - CUBIC_T_BITS   # Q24 * Q12 * Q15 -> Q8: 43
+INV6 = round((1 << INV6_BITS) / 6)  # 1/6 in Q15 for the cubic correction
+CUBIC_U_BITS = 12  # the cubic correction reads the fraction in Q12
+CUBIC_T_BITS = 8  # and corrects the time offset in Q8 ticks
+CUBIC_CORR_SHIFT = 3 * CUBIC_U_BITS + INV6_BITS - CUBIC_T_BITS  # Q24 * Q12 * Q15 -> Q8: 43
 
 
 def cubic_fraction(e1, d, d_prev, d_next, shift: int, delta_limit: int):
@@ -166,6 +167,15 @@ def c_definitions(prefix: str, names=None) -> str:
     ``prefix`` on each name. Emit only what a design calls: unused static functions draw warnings."""
     chosen = [n for n in C_DEFINITIONS if names is None or n in names]
     text = "".join(C_DEFINITIONS[n] for n in chosen)
-    return ("/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */\n"
-            + text.format(p=prefix, ub=CUBIC_U_BITS, tb=CUBIC_T_BITS, one=1 << CUBIC_U_BITS, tscale=1 << CUBIC_T_BITS,
-                          inv6=INV6, corr_shift=CUBIC_CORR_SHIFT))
+    return (
+        "/* --- fixed-point operations: the single definition shared with edgetally.fixedpoint --- */\n"
+        + text.format(
+            p=prefix,
+            ub=CUBIC_U_BITS,
+            tb=CUBIC_T_BITS,
+            one=1 << CUBIC_U_BITS,
+            tscale=1 << CUBIC_T_BITS,
+            inv6=INV6,
+            corr_shift=CUBIC_CORR_SHIFT,
+        )
+    )

@@ -47,8 +47,11 @@ def cache_root() -> Path:
 
 def _cdef(design: Design) -> str:
     p = design.name
-    lines = [f"typedef {input_type(design)} {p}_input_t;", f"typedef {design.output.ctype} {p}_sample_t;",
-             f"typedef struct {{ ...; }} {p}_state_t;"]
+    lines = [
+        f"typedef {input_type(design)} {p}_input_t;",
+        f"typedef {design.output.ctype} {p}_sample_t;",
+        f"typedef struct {{ ...; }} {p}_state_t;",
+    ]
     lines += [f.proto + ";" for f in api(design)]
     return "\n".join(lines) + "\n"
 
@@ -66,7 +69,7 @@ class HostDemod:
     """The compiled demodulator of one Design, loaded into this process."""
 
     design: Design
-    ffi: Any                 # cffi.FFI and the compiled library: dynamic attributes
+    ffi: Any  # cffi.FFI and the compiled library: dynamic attributes
     lib: Any
 
     @property
@@ -86,13 +89,17 @@ class HostDemod:
         return np.int16 if self.design.output.ctype == "int16_t" else np.uint16
 
     def counters(self, st) -> dict:
-        return {"gaps": int(self._fn("gap_count")(st)), "clamps": int(self._fn("clamp_count")(st)),
-                "overruns": int(self._fn("overrun_count")(st)), "carrier": bool(self._fn("carrier_present")(st)),
-                "saturations": int(self._fn("saturation_count")(st)), "clips": int(self._fn("clip_count")(st)),
-                "offset": int(self._fn("offset")(st))}
+        return {
+            "gaps": int(self._fn("gap_count")(st)),
+            "clamps": int(self._fn("clamp_count")(st)),
+            "overruns": int(self._fn("overrun_count")(st)),
+            "carrier": bool(self._fn("carrier_present")(st)),
+            "saturations": int(self._fn("saturation_count")(st)),
+            "clips": int(self._fn("clip_count")(st)),
+            "offset": int(self._fn("offset")(st)),
+        }
 
-    def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024,
-                lost=None) -> tuple[np.ndarray, dict]:
+    def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024, lost=None) -> tuple[np.ndarray, dict]:
         """Feed the inputs (stamps or counts) in blocks of ``block`` through <name>_process,
         collecting every output; before each index in ``lost`` (inputs lost there, as after a DMA
         overrun) a block ends and <name>_inputs_lost is called. Returns (outputs, final counters)."""
@@ -115,11 +122,12 @@ class HostDemod:
             done = 0
             while done < blk.size:
                 done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
-                chunks.append(out[:produced[0]].copy())
+                chunks.append(out[: produced[0]].copy())
         return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)
 
-    def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64,
-                    stall: tuple[int, int] | None = None) -> tuple[np.ndarray, dict]:
+    def process_isr(
+        self, inputs: np.ndarray, service_every: int, out_cap: int = 64, stall: tuple[int, int] | None = None
+    ) -> tuple[np.ndarray, dict]:
         """Drive the design's ISR functions as the hardware would, one input at a time (for an
         edge-counting interrupt design the inputs are counts: the edge ISR is called once per new
         edge before each tick), calling <name>_service after every ``service_every`` inputs, except
@@ -138,7 +146,7 @@ class HostDemod:
                 if n < out_cap:
                     return
 
-        def due(k: int) -> bool:              # k: inputs so far
+        def due(k: int) -> bool:  # k: inputs so far
             return service_due(k, service_every, stall)
 
         if d.topology is Topology.EDGE_COUNT:
@@ -170,14 +178,20 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
     files = emit(design)
     p = design.name
     cdef = _cdef(design)
-    parts = [k + "\0" + v for k, v in sorted(files.items())] + [cdef, compiler(), *STRICT_FLAGS, *OPT_FLAGS, sys.version]
+    parts = [k + "\0" + v for k, v in sorted(files.items())] + [
+        cdef,
+        compiler(),
+        *STRICT_FLAGS,
+        *OPT_FLAGS,
+        sys.version,
+    ]
     key = hashlib.sha256("\0".join(parts).encode()).hexdigest()[:16]
     modname = f"_edgetally_{p}_{key}"
     root = workdir or cache_root()
     folder = root / key
     found = list(folder.glob(f"{modname}*.so")) + list(folder.glob(f"{modname}*.pyd")) if folder.exists() else []
     if found:
-        os.utime(folder)                      # most recently used: the last to be trimmed
+        os.utime(folder)  # most recently used: the last to be trimmed
     if not found:
         tmp = Path(tempfile.mkdtemp(prefix="build-", dir=_ensure(root)))
         try:
@@ -207,7 +221,7 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
     return HostDemod(design=design, ffi=mod.ffi, lib=mod.lib)
 
 
-CACHE_ENTRIES = 64     # host builds kept; the oldest beyond this are removed (each is about 100 kB)
+CACHE_ENTRIES = 64  # host builds kept; the oldest beyond this are removed (each is about 100 kB)
 
 
 def _trim(root: Path, keep: int = CACHE_ENTRIES) -> None:

@@ -40,17 +40,17 @@ class VerifyResult:
     predicted_curvature_sinad_db: float
     predicted_jitter_sinad_db: float
     implementation_loss_db: float
-    quant_gap_db: float        # how far the float reference falls short of the quantisation-only prediction
+    quant_gap_db: float  # how far the float reference falls short of the quantisation-only prediction
     gaps: int
     clamps: int
     saturations: int
     clips: int
-    offset_hz: float           # the offset output at the end, in Hz
+    offset_hz: float  # the offset output at the end, in Hz
     c_seconds: float
     model_seconds: float
     widths: dict
-    target_bit_exact: bool | None = None     # None: not run (no cross compiler or emulator)
-    target: dict | None = None                # per core: bit_exact, cycles per event, sizes
+    target_bit_exact: bool | None = None  # None: not run (no cross compiler or emulator)
+    target: dict | None = None  # per core: bit_exact, cycles per event, sizes
 
     @property
     def ok(self) -> bool:
@@ -62,8 +62,14 @@ class VerifyResult:
         return {**asdict(self), "ok": self.ok}
 
 
-def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_db: float | None = None,
-           progress: Callable[[str], None] | None = None, targets: bool = False) -> VerifyResult:
+def verify(
+    design: Design,
+    seconds: float = 1.0,
+    seed: int = DEFAULT_SEED,
+    cnr_db: float | None = None,
+    progress: Callable[[str], None] | None = None,
+    targets: bool = False,
+) -> VerifyResult:
     """Run the whole check. ``progress`` (optional) is told each step as it starts; ``targets``
     adds the cross-compiled runs in the emulator (target_check)."""
     say = progress or (lambda _msg: None)
@@ -102,24 +108,40 @@ def verify(design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED, cnr_d
     skip = int(round(LEAD_S * fs))
     band = (schemes.BAND_LOW_HZ, design.audio_hz)
     fixed = metrics.sinad_db(c_out[skip:], fs, schemes.TEST_TONE_HZ, *band)
-    flt = metrics.sinad_db(ref[skip:ref.size], fs, schemes.TEST_TONE_HZ, *band)
+    flt = metrics.sinad_db(ref[skip : ref.size], fs, schemes.TEST_TONE_HZ, *band)
     pred = schemes.predict_design(design)
     tgt = {}
     if pending is not None:
         say("waiting for the emulated target runs")
         tgt = pending.result()
     return VerifyResult(
-        name=design.name, scheme=design.scheme, variant=design.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
-        bit_exact=cmp.bit_exact, samples=cmp.samples, mismatches=cmp.mismatches,
-        first_mismatch=cmp.first_mismatch, counters_match=cmp.counters_match,
-        sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),
+        name=design.name,
+        scheme=design.scheme,
+        variant=design.variant,
+        seconds=seconds,
+        seed=seed,
+        inputs=int(stream.size),
+        bit_exact=cmp.bit_exact,
+        samples=cmp.samples,
+        mismatches=cmp.mismatches,
+        first_mismatch=cmp.first_mismatch,
+        counters_match=cmp.counters_match,
+        sinad_db=round(fixed, 2),
+        float_sinad_db=round(flt, 2),
+        predicted_sinad_db=round(pred.sinad_db, 2),
         predicted_quant_sinad_db=round(pred.quant_sinad_db, 2),
         predicted_curvature_sinad_db=round(pred.curvature_sinad_db, 2),
         predicted_jitter_sinad_db=round(pred.jitter_sinad_db, 2),
         implementation_loss_db=round(flt - fixed, 2) + 0.0,
-        quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0, gaps=m.gaps, clamps=m.clamps,
-        saturations=m.saturations, clips=m.clips,
+        quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0,
+        gaps=m.gaps,
+        clamps=m.clamps,
+        saturations=m.saturations,
+        clips=m.clips,
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 3),
-        c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=design.word_lengths,
-        target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None, target=tgt,
+        c_seconds=round(t1 - t0, 4),
+        model_seconds=round(t2 - t1, 4),
+        widths=design.word_lengths,
+        target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None,
+        target=tgt,
     )

@@ -20,8 +20,8 @@ from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, outpu
 from ..planner.choose import REG_BITS, Plan, plan
 from ..spec import Spec, SpecError
 
-DC_CORNER_HZ = 2.0      # offset tracker corner: far below any audio band (common practice, no source)
-SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)
+DC_CORNER_HZ = 2.0  # offset tracker corner: far below any audio band (common practice, no source)
+SCALE_MULT_BITS = 24  # the scale multiplier's precision (relative error below 2**-23)
 OVERRIDABLE = {"arith": str, "data_bits": int, "coef_bits": int, "coef_width": int, "acc_bits": int, "scaling": str}
 
 
@@ -35,12 +35,12 @@ class WidthOption:
     """One candidate word-length set for the output chain, with what it would cost and lose."""
 
     arith: str
-    filters: Filters | None       # None: refused (the reason says why)
+    filters: Filters | None  # None: refused (the reason says why)
     q_in: int
-    loss_db: float                # predicted implementation loss (Jackson roundoff vs the planned noise)
+    loss_db: float  # predicted implementation loss (Jackson roundoff vs the planned noise)
     response_error_db: float
-    coef_bits_needed: int         # fewest coefficient bits meeting the response tolerance
-    cycles_per_output: int        # of the filter sections alone
+    coef_bits_needed: int  # fewest coefficient bits meeting the response tolerance
+    cycles_per_output: int  # of the filter sections alone
     ok: bool
     reason: str
 
@@ -49,8 +49,8 @@ def _units(p: Plan) -> tuple[Fraction, int]:
     """Hz per CIC output LSB, and the largest CIC output any input can give."""
     fr = p.front
     shift = fr.phase_shift if fr.kind == "stamp" else fr.step_shift
-    unit = Fraction(p.grid_hz * fr.prescale) / (Fraction(1 << shift) * p.ratio ** p.order)
-    return unit, fr.x_limit * p.ratio ** p.order
+    unit = Fraction(p.grid_hz * fr.prescale) / (Fraction(1 << shift) * p.ratio**p.order)
+    return unit, fr.x_limit * p.ratio**p.order
 
 
 def _bound_rel(spec: Spec, p: Plan) -> float:
@@ -67,10 +67,14 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     rows = [list(map(float, r)) for _, sos in pairs for r in sos]
     roles = [role for role, sos in pairs for _ in sos]
     lim = wordlength.limit_of(a.data_bits)
-    in_rel = 2 * _bound_rel(spec, p)                        # audio minus offset
+    in_rel = 2 * _bound_rel(spec, p)  # audio minus offset
     q_in = math.floor(math.log2(lim / in_rel))
     qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
-    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    cb = (
+        coef_bits
+        if coef_bits is not None
+        else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    )
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
     return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
 
@@ -99,7 +103,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
     names = [ov.pop("arith")] if "arith" in ov else (["narrow", "wide"] if fx.arith == "auto" else [fx.arith])
-    signal_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
+    signal_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
     opts = []
     for name in names:
@@ -112,8 +116,9 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
         err = wordlength.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
-        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ,
-                                     spec.signal.audio_hz)
+        noise = wordlength.roundoff_noise(
+            f, q_in, out_bits, spec.output.rate_hz, schemes.BAND_LOW_HZ, spec.signal.audio_hz
+        )
         loss = 10 * math.log10(1 + noise / signal_fs2)
         needed = f.coef_bits
         for cb in range(f.coef_bits - 1, 7, -1):
@@ -130,7 +135,9 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
         if err > fx.response_tol_db:
             why.append(f"response error {err:.3f} dB exceeds {fx.response_tol_db:g} dB")
-        opts.append(WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets"))
+        opts.append(
+            WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets")
+        )
     return sorted(opts, key=lambda o: o.cycles_per_output)
 
 
@@ -150,28 +157,55 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     f, q_in = pick.filters, pick.q_in
     unit, y_max = _units(p)
     centre = round(Fraction(sig.if_hz) / unit)
-    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB
+    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)  # data LSB per CIC LSB
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * DC_CORNER_HZ))))
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
-    cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
-                             cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
-                             dc_shift=dc_shift, f=f)
+    cert = wordlength.certificate(
+        x_limit=p.front.x_limit,
+        in_bits=p.cic_in_bits,
+        ratio=p.ratio,
+        order=p.order,
+        cic_width=REG_BITS,
+        centre=centre,
+        mult=mult,
+        shift=shift,
+        q_in=q_in,
+        u_limit=f.limit,
+        dc_shift=dc_shift,
+        f=f,
+    )
     per_output = p.load.per_output - schemes.filter_cycles(tgt, 64, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
-        name=spec.name, tool_version=__version__, spec_hash=spec_hash(spec), scheme=p.scheme,
+        name=spec.name,
+        tool_version=__version__,
+        spec_hash=spec_hash(spec),
+        scheme=p.scheme,
         rates=Rates(timer_hz=tgt.timer_hz, grid_hz=p.grid_hz, out_hz=out.rate_hz),
         front=p.front,
         cic=Cic(order=p.order, ratio=p.ratio, in_bits=p.cic_in_bits, width=REG_BITS),
-        scale=scale, filters=f, output=_out_format(spec, f.sections[-1].q_out),
-        if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, audio_hz=sig.audio_hz,
+        scale=scale,
+        filters=f,
+        output=_out_format(spec, f.sections[-1].q_out),
+        if_hz=sig.if_hz,
+        full_scale_hz=out.full_scale_hz,
+        audio_hz=sig.audio_hz,
         queue_len=p.queue_len,
-        budget=Budget(core=tgt.core, cpu_hz=tgt.cpu_hz, dma=tgt.capture_dma if p.front.kind == "stamp" else tgt.counter_dma,
-                      edge_hz_max=sig.if_hz + sig.deviation_hz, cycles_per_edge=p.load.per_edge,
-                      cycles_per_input=p.load.per_input, cycles_per_grid=p.load.per_grid,
-                      cycles_per_output=per_output, load_fraction=fraction, ram_bytes=p.load.ram_bytes,
-                      isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
+        budget=Budget(
+            core=tgt.core,
+            cpu_hz=tgt.cpu_hz,
+            dma=tgt.capture_dma if p.front.kind == "stamp" else tgt.counter_dma,
+            edge_hz_max=sig.if_hz + sig.deviation_hz,
+            cycles_per_edge=p.load.per_edge,
+            cycles_per_input=p.load.per_input,
+            cycles_per_grid=p.load.per_grid,
+            cycles_per_output=per_output,
+            load_fraction=fraction,
+            ram_bytes=p.load.ram_bytes,
+            isr_cycles=tgt.isr_cycles,
+            irq_jitter_cycles=tgt.irq_jitter_cycles,
+        ),
         certificate=cert,
     )

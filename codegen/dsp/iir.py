@@ -21,7 +21,7 @@ LPF_ORDER = 4
 LPF_RIPPLE_DB = 0.1
 LPF_STOP_DB = 60.0
 POLE_MARGIN = 1e-4  # quantised poles must stay this far inside the unit circle
-COEF_BITS = 29      # Q29 coefficients: |c| < 4 covers every normalised biquad term
+COEF_BITS = 29  # Q29 coefficients: |c| < 4 covers every normalised biquad term
 
 
 def lowpass_sos(audio_hz: float, fs_hz: float) -> np.ndarray:
@@ -39,8 +39,8 @@ def droop_fir(order: int, ratio: int, audio_hz: float, fs_hz: float) -> np.ndarr
     f = np.linspace(0.0, audio_hz, 200)
     w = 2 * np.pi * f / fs_hz
     droop = 10 ** (cic.response_db(f / fs_hz, order, ratio) / 20)
-    g = 2 * (1 - np.cos(w)) * droop                      # d(compensated gain) / da
-    a = float(np.dot(g, 1 - droop) / np.dot(g, g))      # least squares of droop + a g = 1
+    g = 2 * (1 - np.cos(w)) * droop  # d(compensated gain) / da
+    a = float(np.dot(g, 1 - droop) / np.dot(g, g))  # least squares of droop + a g = 1
     return np.array([[-a, 1 + 2 * a, -a, 1.0, 0.0, 0.0]])
 
 
@@ -55,8 +55,9 @@ def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
     return np.array([[b, b, 0.0, 1.0, a1, 0.0]])
 
 
-def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float,
-                   droop: tuple[int, int] | None = None) -> list[tuple[str, np.ndarray]]:
+def output_filters(
+    audio_hz: float, deemphasis_us: float, fs_hz: float, droop: tuple[int, int] | None = None
+) -> list[tuple[str, np.ndarray]]:
     """The output-rate filters of a design, in order: (role, float sos); ``droop`` = (order, ratio)
     of a CIC to compensate first."""
     out = [("droop", droop_fir(droop[0], droop[1], audio_hz, fs_hz))] if droop else []

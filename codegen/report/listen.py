@@ -39,7 +39,7 @@ from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
 # a simple ratio, well inside the band), scaled down with a narrower audio band.
 TWO_TONE_HZ = (700.0, 1900.0)
 VOICE_BAND_HZ = 3000.0
-SWEEP_FROM_HZ = 300.0          # bottom of the telephone voice band (common practice, no source)
+SWEEP_FROM_HZ = 300.0  # bottom of the telephone voice band (common practice, no source)
 
 
 @dataclass(frozen=True)
@@ -55,7 +55,7 @@ class ChirpFm:
     start_s: float
     sweep_s: float
     mod_phase_rad: float = 0.0
-    start_phase: float = 0.0        # cycles, in [0, 1)
+    start_phase: float = 0.0  # cycles, in [0, 1)
 
     def __post_init__(self):
         if not (0 < self.from_hz < self.to_hz and self.sweep_s > 0 and self.start_s >= 0):
@@ -113,8 +113,8 @@ class ChirpFm:
 class Clip:
     """One listening clip: the emitted C's output samples (the design's output type) for a test signal."""
 
-    name: str                # file name of its WAV
-    caption: str             # what it is, in words
+    name: str  # file name of its WAV
+    caption: str  # what it is, in words
     samples: np.ndarray
     rate_hz: int
 
@@ -137,9 +137,16 @@ def sweep_signal(design: Design, seconds: float, rng: np.random.Generator) -> Ch
     """A chirp of the modulating tone from 300 Hz to the voice band top over ``seconds``, starting
     after verify's settling lead (whose output run_c drops), at the standard test deviation."""
     top = band_top_hz(design)
-    return ChirpFm(design.if_hz, schemes.TEST_LEVEL * design.full_scale_hz, min(SWEEP_FROM_HZ, top / 2), top,
-                   start_s=LEAD_S, sweep_s=seconds, mod_phase_rad=float(rng.uniform(0, 2 * np.pi)),
-                   start_phase=float(rng.uniform(0, 1)))
+    return ChirpFm(
+        design.if_hz,
+        schemes.TEST_LEVEL * design.full_scale_hz,
+        min(SWEEP_FROM_HZ, top / 2),
+        top,
+        start_s=LEAD_S,
+        sweep_s=seconds,
+        mod_phase_rad=float(rng.uniform(0, 2 * np.pi)),
+        start_phase=float(rng.uniform(0, 1)),
+    )
 
 
 def run_c(design: Design, sig, seconds: float, seed: int, host: hostbuild.HostDemod | None = None) -> np.ndarray:
@@ -147,24 +154,36 @@ def run_c(design: Design, sig, seconds: float, seed: int, host: hostbuild.HostDe
     samples are dropped): the hardware inputs from verify.make_inputs, processed by the host build."""
     host = host or hostbuild.build(design)
     out, _ = host.process(make_inputs(design, seconds, seed, sig=sig))
-    return out[int(round(LEAD_S * design.rates.out_hz)):]
+    return out[int(round(LEAD_S * design.rates.out_hz)) :]
 
 
-def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
-          host: hostbuild.HostDemod | None = None) -> tuple[Clip, ...]:
+def clips(
+    design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED, host: hostbuild.HostDemod | None = None
+) -> tuple[Clip, ...]:
     """The three listening clips of ``seconds`` each, from the emitted C."""
     host = host or hostbuild.build(design)
     rng = np.random.default_rng(seed)
     p, top = design.name, band_top_hz(design)
     tt = two_tone_signal(design, rng)
     made = [
-        (f"{p}_tone.wav", f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
-                          "deviation", standard_signal(design, rng)),
-        (f"{p}_two_tone.wav", "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
-         + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation", tt),
-        (f"{p}_sweep.wav", f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "
-                           f"{seconds:g} s at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
-         sweep_signal(design, seconds, rng)),
+        (
+            f"{p}_tone.wav",
+            f"standard test: {schemes.TEST_TONE_HZ:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
+            standard_signal(design, rng),
+        ),
+        (
+            f"{p}_two_tone.wav",
+            "two tones, "
+            + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
+            + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation",
+            tt,
+        ),
+        (
+            f"{p}_sweep.wav",
+            f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "
+            f"{seconds:g} s at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
+            sweep_signal(design, seconds, rng),
+        ),
     ]
     out = []
     for k, (name, caption, sig) in enumerate(made):

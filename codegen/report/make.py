@@ -27,10 +27,10 @@ class _Quiet:
 
 @dataclass(frozen=True)
 class Made:
-    files: dict               # {file name: bytes}: the page and its WAVs
+    files: dict  # {file name: bytes}: the page and its WAVs
     verify: VerifyResult
-    sweeps: tuple             # edgetally.sweeps.Sweep, one per kind
-    hostile: tuple            # edgetally.hostile.ScenarioResult, one per scenario
+    sweeps: tuple  # edgetally.sweeps.Sweep, one per kind
+    hostile: tuple  # edgetally.hostile.ScenarioResult, one per scenario
 
     @property
     def failed_scenarios(self) -> list[str]:
@@ -52,8 +52,15 @@ def steps(design: Design) -> int:
     return 1 + sum(len(sweeps.default_points(design, k)) for k in sweeps.KINDS) + len(hostile.SCENARIOS) + 1
 
 
-def make(spec: Spec, plan: Plan, design: Design, seconds: float = 1.0, seed: int = DEFAULT_SEED,
-         targets: bool = True, progress=None) -> Made:
+def make(
+    spec: Spec,
+    plan: Plan,
+    design: Design,
+    seconds: float = 1.0,
+    seed: int = DEFAULT_SEED,
+    targets: bool = True,
+    progress=None,
+) -> Made:
     """Run everything and render. ``progress`` (optional) has note(label), told what starts, and
     step(), told when one of ``steps(design)`` steps is done."""
     bar = progress or _Quiet()

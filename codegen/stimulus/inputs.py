@@ -20,8 +20,9 @@ LEAD_S = 0.1
 DEFAULT_SEED = 20261202
 
 
-def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None = None,
-                sig: signals.FmSignal | None = None) -> np.ndarray:
+def make_inputs(
+    design: Design, seconds: float, seed: int, cnr_db: float | None = None, sig: signals.FmSignal | None = None
+) -> np.ndarray:
     """What the design's hardware delivers for LEAD_S + seconds of the standard test tone (or of
     ``sig``): capture stamps, software stamps from an edge interrupt, or counts per grid instant."""
     rng = np.random.default_rng(seed)
@@ -39,8 +40,9 @@ def standard_signal(design: Design, rng: np.random.Generator) -> signals.FmSigna
     return signals.test_tone(design.if_hz, design.full_scale_hz, schemes.TEST_LEVEL, schemes.TEST_TONE_HZ, rng)
 
 
-def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.random.Generator,
-                    start: int | None = None) -> np.ndarray:
+def hardware_inputs(
+    design: Design, times: np.ndarray, duration: float, rng: np.random.Generator, start: int | None = None
+) -> np.ndarray:
     """What the design's hardware delivers for these IF edge times (s) over ``duration`` seconds:
     capture stamps of every prescale-th edge, software stamps read by an edge interrupt (with its
     latency), or counts read at each grid instant. The timer's or counter's start value is
@@ -54,6 +56,7 @@ def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.
     if start is None:
         start = int(rng.integers(0, 1 << fr.timer_bits))
     if topo is Topology.EDGE_STAMP:
-        return signals.software_stamps(times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2,
-                                       b.irq_jitter_cycles, rng, start)
-    return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, start)
+        return signals.software_stamps(
+            times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2, b.irq_jitter_cycles, rng, start
+        )
+    return signals.capture(times[:: fr.prescale], design.rates.timer_hz, fr.timer_bits, start)
