@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 from .spec import Spec, SpecError, load_spec, parse_spec
 
-if TYPE_CHECKING:                      # the lazy names below, for type checkers
+if TYPE_CHECKING:  # the lazy names below, for type checkers
     from .designer.assemble import design as design
     from .ir import Design as Design
     from .planner.choose import Plan as Plan

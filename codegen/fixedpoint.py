@@ -22,6 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+
 def wrap_bits(x, bits: int):
     """Reduce modulo 2**bits into [0, 2**bits): what a ``bits``-wide unsigned register holds (a timer,
     a counter, uint32_t arithmetic; the difference of two such values in modular arithmetic).
@@ -97,10 +98,10 @@ def split_round(acc: tuple[int, int, int], shift: int) -> int:
 
 
 INV6_BITS = 15
-INV6 = round((1 << INV6_BITS) / 6)       # 1/6 in Q15 for the cubic correction
-CUBIC_U_BITS = 12                        # the cubic correction reads the fraction in Q12
-CUBIC_T_BITS = 8                         # and corrects the time offset in Q8 ticks
-CUBIC_CORR_SHIFT = 3 * CUBIC_U_BITS + INV6_BITS - CUBIC_T_BITS   # Q24 * Q12 * Q15 -> Q8: 43
+INV6 = round((1 << INV6_BITS) / 6)  # 1/6 in Q15 for the cubic correction
+CUBIC_U_BITS = 12  # the cubic correction reads the fraction in Q12
+CUBIC_T_BITS = 8  # and corrects the time offset in Q8 ticks
+CUBIC_CORR_SHIFT = 3 * CUBIC_U_BITS + INV6_BITS - CUBIC_T_BITS  # Q24 * Q12 * Q15 -> Q8: 43
 
 
 # --- division-free interpolation: one reciprocal per stamp interval -------------------------------

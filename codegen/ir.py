@@ -20,10 +20,10 @@ class Topology(enum.Enum):
     """How the MCU sees the edges: the one typed value every consumer branches on (derived from the
     Design's scheme and front kind by ``Design.topology``)."""
 
-    CAPTURE = "capture"          # timer input capture of every k-th edge; stamps by a capture ISR or DMA
-    EDGE_STAMP = "edge-stamp"    # an edge interrupt reads a free-running timer and queues the value
-    EDGE_COUNT = "edge-count"    # an edge interrupt counts; a grid-timer interrupt queues the count
-    COUNTER = "counter"          # an IF-clocked hardware counter, read at every grid tick (ISR or DMA)
+    CAPTURE = "capture"  # timer input capture of every k-th edge; stamps by a capture ISR or DMA
+    EDGE_STAMP = "edge-stamp"  # an edge interrupt reads a free-running timer and queues the value
+    EDGE_COUNT = "edge-count"  # an edge interrupt counts; a grid-timer interrupt queues the count
+    COUNTER = "counter"  # an IF-clocked hardware counter, read at every grid tick (ISR or DMA)
 
     @property
     def stamps(self) -> bool:
@@ -63,12 +63,12 @@ class StampFront:
     instant lies ``grid_ticks`` after the first stamp ("linear") or the second stamp ("cubic")."""
 
     timer_bits: int
-    prescale: int          # IF cycles between two stamps (capture prescaler)
-    grid_ticks: int        # timer ticks per grid period
-    phase_shift: int       # fractional bits of the phase per stamp interval
-    gap_ticks: int         # longest stamp interval still taken as signal
-    x_limit: int           # largest legal phase step per grid period
-    x_centre: int          # phase step of the IF centre, used while the carrier is lost
+    prescale: int  # IF cycles between two stamps (capture prescaler)
+    grid_ticks: int  # timer ticks per grid period
+    phase_shift: int  # fractional bits of the phase per stamp interval
+    gap_ticks: int  # longest stamp interval still taken as signal
+    x_limit: int  # largest legal phase step per grid period
+    x_centre: int  # phase step of the IF centre, used while the carrier is lost
     order: str = "linear"  # "linear" or "cubic"
     delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
     max_delta: int = 0     # a stamp interval is taken as at most this (a long gap is just a gap)
@@ -87,14 +87,14 @@ class CountFront:
     step is then x_centre; so it is for a difference that spans lost inputs."""
 
     counter_bits: int
-    grid_ticks: int        # timer ticks per grid period (the grid timer runs at timer_hz)
+    grid_ticks: int  # timer ticks per grid period (the grid timer runs at timer_hz)
     step_shift: int
     gap_run: int
-    diff_limit: int        # largest legal count difference per grid period
-    x_limit: int           # diff_limit << step_shift
+    diff_limit: int  # largest legal count difference per grid period
+    x_limit: int  # diff_limit << step_shift
     x_centre: int
     prescale: int = 1
-    diff_low: int = 0      # smallest legal count difference per grid period
+    diff_low: int = 0  # smallest legal count difference per grid period
     kind: str = "count"
 
 
@@ -130,14 +130,14 @@ class Section:
     y = sat(rshr(acc, coef_bits), +-limit). The b coefficients carry the change of format from the
     section's input Q(q_in) to its output Q(q_out) (per-section scaling)."""
 
-    role: str                          # "lowpass" or "deemphasis"
+    role: str  # "lowpass" or "deemphasis"
     b0: int
     b1: int
     b2: int
     a1: int
     a2: int
     q_out: int
-    float_sos: tuple[float, ...]       # the unscaled, unquantised design row, for the reference
+    float_sos: tuple[float, ...]  # the unscaled, unquantised design row, for the reference
 
 
 @dataclass(frozen=True)
@@ -168,7 +168,7 @@ class OutputFormat:
     mid: int
     lo: int
     hi: int
-    ctype: str                         # "int16_t" or "uint16_t"
+    ctype: str  # "int16_t" or "uint16_t"
 
     @property
     def bits(self) -> int:
@@ -217,7 +217,7 @@ class Register:
     name: str
     bits: int
     bound: int
-    margin_bits: float                 # log2((2**(bits-1) - 1) / bound); >= 0 means it cannot wrap
+    margin_bits: float  # log2((2**(bits-1) - 1) / bound); >= 0 means it cannot wrap
     note: str
 
 
@@ -234,15 +234,15 @@ class Budget:
 
     core: str
     cpu_hz: float
-    dma: bool                 # capture DMA (stamp fronts) or counter DMA (count fronts)
+    dma: bool  # capture DMA (stamp fronts) or counter DMA (count fronts)
     edge_hz_max: float
-    cycles_per_edge: int      # the edge or capture ISR; 0 when hardware or DMA does it
-    cycles_per_input: int     # per stamp or count taken from the queue or a DMA block
+    cycles_per_edge: int  # the edge or capture ISR; 0 when hardware or DMA does it
+    cycles_per_input: int  # per stamp or count taken from the queue or a DMA block
     cycles_per_grid: int
     cycles_per_output: int
     load_fraction: float
     ram_bytes: int
-    isr_cycles: int           # for simulating an edge interrupt's latency
+    isr_cycles: int  # for simulating an edge interrupt's latency
     irq_jitter_cycles: int
 
 
@@ -251,7 +251,7 @@ class Design:
     name: str
     tool_version: str
     spec_hash: str
-    scheme: str            # "timestamp", "interrupt" or "counter"
+    scheme: str  # "timestamp", "interrupt" or "counter"
     rates: Rates
     front: StampFront | CountFront
     cic: Cic
@@ -261,7 +261,7 @@ class Design:
     if_hz: float
     full_scale_hz: float
     audio_hz: float
-    queue_len: int         # stamps the capture ISR can queue between two services
+    queue_len: int  # stamps the capture ISR can queue between two services
     budget: Budget
     squelch: Squelch
     certificate: tuple[Register, ...] = ()
@@ -325,12 +325,12 @@ class Design:
     def hz_per_cic_lsb(self) -> float:
         """Frequency (Hz) of one LSB of the CIC output."""
         c = self.cic
-        return self.rates.grid_hz * self.front.prescale / (2.0 ** self.fraction_bits * c.ratio ** c.order)
+        return self.rates.grid_hz * self.front.prescale / (2.0**self.fraction_bits * c.ratio**c.order)
 
     @property
     def offset_hz_per_unit(self) -> float:
         """Hz per unit of the offset output (and of the scaled data word, Q(scale.q))."""
-        return self.full_scale_hz / 2 ** self.scale.q
+        return self.full_scale_hz / 2**self.scale.q
 
     @property
     def input_hz_max(self) -> float:

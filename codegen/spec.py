@@ -106,17 +106,17 @@ class Target:
     cpu_hz: float
     timer_hz: int
     timer_bits: int = 32
-    counter_bits: int = 16             # width of the IF-clocked counter (counter scheme)
+    counter_bits: int = 16  # width of the IF-clocked counter (counter scheme)
     has_capture: bool = True
     has_edge_irq: bool = True
     has_counter: bool = True
     capture_prescalers: tuple[int, ...] = (1,)
     capture_dma: bool = False
-    counter_dma: bool = False          # DMA can copy the counter at every grid tick
+    counter_dma: bool = False  # DMA can copy the counter at every grid tick
     hw_divide: bool = False
     mul64: bool = False
     isr_cycles: int = 0
-    irq_jitter_cycles: int = 0         # peak-to-peak spread of the edge-interrupt latency
+    irq_jitter_cycles: int = 0  # peak-to-peak spread of the edge-interrupt latency
     cpu_budget: float = 0.5
 
     @property
@@ -164,9 +164,24 @@ _SECTIONS = {
     "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us", "squelch_cnr_db"},
     "output": {"rate_hz", "format", "full_scale_hz"},
     "fixed": {"loss_limit_db", "response_tol_db", "scaling", "arith", "droop_limit_db"},
-    "target": {"core", "cpu_hz", "timer_hz", "timer_bits", "counter_bits", "has_capture", "has_edge_irq",
-               "has_counter", "capture_prescalers", "capture_dma", "counter_dma", "hw_divide", "mul64",
-               "isr_cycles", "irq_jitter_cycles", "cpu_budget"},
+    "target": {
+        "core",
+        "cpu_hz",
+        "timer_hz",
+        "timer_bits",
+        "counter_bits",
+        "has_capture",
+        "has_edge_irq",
+        "has_counter",
+        "capture_prescalers",
+        "capture_dma",
+        "counter_dma",
+        "hw_divide",
+        "mul64",
+        "isr_cycles",
+        "irq_jitter_cycles",
+        "cpu_budget",
+    },
 }
 _TOP = {"name"} | set(_SECTIONS)
 
@@ -293,6 +308,7 @@ def _name(raw: dict) -> str:
 
 # --- the spec ----------------------------------------------------------------------------------
 
+
 def parse_spec(raw: dict) -> Spec:
     """Validate a spec given as the dict a TOML file parses to."""
     if not isinstance(raw, dict):
@@ -315,8 +331,11 @@ def parse_spec(raw: dict) -> Spec:
     o = _section(raw, "output")
     fmt = o.get("format", "s16")
     if not isinstance(fmt, str) or not re.fullmatch(r"s16|u([89]|1[0-6])", fmt):
-        raise SpecError("output.format", fmt, 'must be "s16" (signed 16-bit PCM) or "u8" .. "u16" '
-                                              "(unsigned code with mid-scale offset)")
+        raise SpecError(
+            "output.format",
+            fmt,
+            'must be "s16" (signed 16-bit PCM) or "u8" .. "u16" (unsigned code with mid-scale offset)',
+        )
     out = Output(
         rate_hz=_integer(o, "output", "rate_hz"),
         format=fmt,
@@ -376,8 +395,11 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
     """Refuse what cannot work; warn about what is unusual."""
     f0, df = sig.if_hz, sig.deviation_hz
     if df >= f0:
-        raise SpecError("signal.deviation_hz", df,
-                        f"must be below signal.if_hz ({f0:g} Hz): the instantaneous frequency would reach zero")
+        raise SpecError(
+            "signal.deviation_hz",
+            df,
+            f"must be below signal.if_hz ({f0:g} Hz): the instantaneous frequency would reach zero",
+        )
     if f0 < 2 * df:
         # Common practice, no source: an IF of two to four times the peak deviation is usual.
         warnings.append(f"signal.if_hz {f0:g} Hz is under twice the peak deviation ({df:g} Hz); "
@@ -386,32 +408,46 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
         raise SpecError("signal.audio_hz", sig.audio_hz,
                         f"must be at least {MIN_AUDIO_HZ:g} Hz, the narrowest band the standard test measures")
     if out.rate_hz <= 2 * sig.audio_hz:
-        raise SpecError("output.rate_hz", out.rate_hz,
-                        f"must exceed twice signal.audio_hz ({2 * sig.audio_hz:g} Hz)")
+        raise SpecError("output.rate_hz", out.rate_hz, f"must exceed twice signal.audio_hz ({2 * sig.audio_hz:g} Hz)")
     if sig.audio_hz >= f0 - df:
-        raise SpecError("signal.audio_hz", sig.audio_hz,
-                        f"must be below the lowest instantaneous frequency if_hz - deviation_hz ({f0 - df:g} Hz)")
+        raise SpecError(
+            "signal.audio_hz",
+            sig.audio_hz,
+            f"must be below the lowest instantaneous frequency if_hz - deviation_hz ({f0 - df:g} Hz)",
+        )
     if sig.deemphasis_us:
         corner = 1.0 / (2 * math.pi * sig.deemphasis_us * 1e-6)
         if corner >= out.rate_hz / 2:
-            raise SpecError("signal.deemphasis_us", sig.deemphasis_us,
-                            f"its corner {corner:.1f} Hz must lie below half the output rate")
+            raise SpecError(
+                "signal.deemphasis_us",
+                sig.deemphasis_us,
+                f"its corner {corner:.1f} Hz must lie below half the output rate",
+            )
     if tgt.timer_hz > 4 * tgt.cpu_hz:
         raise SpecError("target.timer_hz", tgt.timer_hz, "must not exceed four times target.cpu_hz")
     # Common practice, no source: fewer than 4 timer ticks per IF cycle leaves no phase resolution.
     ticks = tgt.timer_hz / (f0 + df)
     if ticks < 4:
-        raise SpecError("target.timer_hz", tgt.timer_hz,
-                        f"cannot resolve the IF: {ticks:.2f} ticks per cycle at {f0 + df:g} Hz, need at least 4")
+        raise SpecError(
+            "target.timer_hz",
+            tgt.timer_hz,
+            f"cannot resolve the IF: {ticks:.2f} ticks per cycle at {f0 + df:g} Hz, need at least 4",
+        )
     if tgt.timer_bits == 16 and tgt.has_capture and not tgt.has_counter and not tgt.has_edge_irq:
         longest = tgt.timer_hz / (f0 - df)
         if longest >= 65536:
-            raise SpecError("target.timer_bits", 16,
-                            f"16-bit stamps would wrap more than once between two edges ({longest:.0f} ticks "
-                            "at the lowest frequency); use 32 or a slower timer clock")
+            raise SpecError(
+                "target.timer_bits",
+                16,
+                f"16-bit stamps would wrap more than once between two edges ({longest:.0f} ticks "
+                "at the lowest frequency); use 32 or a slower timer clock",
+            )
     if not (tgt.has_capture or tgt.has_edge_irq or tgt.has_counter):
-        raise SpecError("target.has_capture", False,
-                        "the part must see the IF somehow: set has_capture, has_edge_irq or has_counter")
+        raise SpecError(
+            "target.has_capture",
+            False,
+            "the part must see the IF somehow: set has_capture, has_edge_irq or has_counter",
+        )
     if tgt.timer_hz % out.rate_hz:
         raise SpecError("output.rate_hz", out.rate_hz,
                         f"must divide target.timer_hz ({tgt.timer_hz}) exactly, so the sample grid locks to the timer")
@@ -424,8 +460,10 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
                         f"must be below signal.if_hz ({f0:g} Hz) and at least 1/{FULL_SCALE_SPAN} of it "
                         f"({f0 / FULL_SCALE_SPAN:.4g} Hz)")
     if out.full_scale_hz < 0.5 * df:
-        warnings.append(f"output.full_scale_hz {out.full_scale_hz:g} Hz is under half the peak deviation; "
-                        "loud passages will saturate")
+        warnings.append(
+            f"output.full_scale_hz {out.full_scale_hz:g} Hz is under half the peak deviation; "
+            "loud passages will saturate"
+        )
 
 
 def load_spec(path: str | Path) -> Spec:

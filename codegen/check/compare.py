@@ -12,10 +12,10 @@ COUNTERS = ("gaps", "clamps", "saturations", "clips")
 
 @dataclass(frozen=True)
 class Comparison:
-    samples: int                 # samples both produced
-    mismatches: int              # samples that differ, plus any surplus on either side
+    samples: int  # samples both produced
+    mismatches: int  # samples that differ, plus any surplus on either side
     first_mismatch: int | None
-    counters_match: bool         # every counter in COUNTERS equal
+    counters_match: bool  # every counter in COUNTERS equal
 
     @property
     def bit_exact(self) -> bool:

@@ -47,8 +47,11 @@ def cache_root() -> Path:
 
 def _cdef(design: Design) -> str:
     p = design.name
-    lines = [f"typedef {input_type(design)} {p}_input_t;", f"typedef {design.output.ctype} {p}_sample_t;",
-             f"typedef struct {{ ...; }} {p}_state_t;"]
+    lines = [
+        f"typedef {input_type(design)} {p}_input_t;",
+        f"typedef {design.output.ctype} {p}_sample_t;",
+        f"typedef struct {{ ...; }} {p}_state_t;",
+    ]
     lines += [f.proto + ";" for f in api(design)]
     return "\n".join(lines) + "\n"
 
@@ -66,7 +69,7 @@ class HostDemod:
     """The compiled demodulator of one Design, loaded into this process."""
 
     design: Design
-    ffi: Any                 # cffi.FFI and the compiled library: dynamic attributes
+    ffi: Any  # cffi.FFI and the compiled library: dynamic attributes
     lib: Any
 
     @property
@@ -136,8 +139,9 @@ class HostDemod:
             advance(inputs.size)
         return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)
 
-    def process_isr(self, inputs: np.ndarray, service_every: int, out_cap: int = 64,
-                    stall: tuple[int, int] | None = None) -> tuple[np.ndarray, dict]:
+    def process_isr(
+        self, inputs: np.ndarray, service_every: int, out_cap: int = 64, stall: tuple[int, int] | None = None
+    ) -> tuple[np.ndarray, dict]:
         """Drive the design's ISR functions as the hardware would, one input at a time (for an
         edge-counting interrupt design the inputs are counts: the edge ISR is called once per new
         edge before each tick), calling <name>_service after every ``service_every`` inputs, except
@@ -156,7 +160,7 @@ class HostDemod:
                 if n < out_cap:
                     return
 
-        def due(k: int) -> bool:              # k: inputs so far
+        def due(k: int) -> bool:  # k: inputs so far
             return service_due(k, service_every, stall)
 
         if d.topology is Topology.EDGE_COUNT:
@@ -188,14 +192,20 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
     files = emit(design)
     p = design.name
     cdef = _cdef(design)
-    parts = [k + "\0" + v for k, v in sorted(files.items())] + [cdef, compiler(), *STRICT_FLAGS, *OPT_FLAGS, sys.version]
+    parts = [k + "\0" + v for k, v in sorted(files.items())] + [
+        cdef,
+        compiler(),
+        *STRICT_FLAGS,
+        *OPT_FLAGS,
+        sys.version,
+    ]
     key = hashlib.sha256("\0".join(parts).encode()).hexdigest()[:16]
     modname = f"_edgetally_{p}_{key}"
     root = workdir or cache_root()
     folder = root / key
     found = list(folder.glob(f"{modname}*.so")) + list(folder.glob(f"{modname}*.pyd")) if folder.exists() else []
     if found:
-        os.utime(folder)                      # most recently used: the last to be trimmed
+        os.utime(folder)  # most recently used: the last to be trimmed
     if not found:
         tmp = Path(tempfile.mkdtemp(prefix="build-", dir=_ensure(root)))
         try:
@@ -225,7 +235,7 @@ def build(design: Design, workdir: Path | None = None) -> HostDemod:
     return HostDemod(design=design, ffi=mod.ffi, lib=mod.lib)
 
 
-CACHE_ENTRIES = 64     # host builds kept; the oldest beyond this are removed (each is about 100 kB)
+CACHE_ENTRIES = 64  # host builds kept; the oldest beyond this are removed (each is about 100 kB)
 
 
 def _trim(root: Path, keep: int = CACHE_ENTRIES) -> None:

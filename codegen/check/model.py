@@ -67,20 +67,20 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     fr = design.front
     t = unwrap(stamps, fr.timer_bits, fr.max_delta)
     cubic = fr.order == "cubic"
-    first = 1 if cubic else 0                              # the grid starts at this stamp
-    last = t.size - 2 if cubic else t.size - 1             # instants before this stamp are complete
+    first = 1 if cubic else 0  # the grid starts at this stamp
+    last = t.size - 2 if cubic else t.size - 1  # instants before this stamp are complete
     if last <= first:
         return np.zeros(0, dtype=np.int64), 0, 0, np.zeros(0, dtype=bool)
     count = (t[last] - t[first] - 1) // fr.grid_ticks      # instants strictly before t[last]
     g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
-    i = np.searchsorted(t, g, side="right")                # the stamp after each instant
+    i = np.searchsorted(t, g, side="right")  # the stamp after each instant
     t1, d = t[i - 1], t[i] - t[i - 1]
     lostf = lost_flags(t.size, lost)
     gap = d > fr.gap_ticks
     if cubic:
         # the four stamps of an instant span the intervals ending at stamps i-1, i and i+1
         gap |= lostf[i - 1] | lostf[i] | lostf[i + 1]
-        proc = i + 1                                       # the stamp whose arrival computes the instant
+        proc = i + 1  # the stamp whose arrival computes the instant
     else:
         gap |= lostf[i]
         proc = i
@@ -105,7 +105,7 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     else:
         frac = quot(e1, 0)
     p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
-    p_start = first * (1 << fr.phase_shift)                # the phase at the grid's first stamp
+    p_start = first * (1 << fr.phase_shift)  # the phase at the grid's first stamp
     step = wrap_s32(np.diff(np.concatenate(([p_start], p))))
     ok = in_range(step, fr.x_low, fr.x_limit)
     muted = gap | resync | ~ok
@@ -166,10 +166,10 @@ def cic_decimate(design: Design, x: np.ndarray) -> np.ndarray:
     v = x.astype(np.int64)
     for _ in range(c.order):
         v = wrap_bits(np.cumsum(v), 32)
-    v = v[c.ratio - 1::c.ratio]
+    v = v[c.ratio - 1 :: c.ratio]
     for _ in range(c.order):
         v = wrap_bits(v - np.concatenate(([0], v[:-1])), 32)
-    return v[c.order:]
+    return v[c.order :]
 
 
 def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:

@@ -53,11 +53,11 @@ def run(design: Design, inputs: np.ndarray) -> np.ndarray:
     fr, c = design.front, design.cic
     x = _stamp_steps(design, inputs) if fr.kind == "stamp" else _count_steps(design, inputs)
     taps = cic.taps(c.order, c.ratio).astype(np.float64) / float(c.ratio) ** c.order
-    y = signal.lfilter(taps, [1.0], x)[c.ratio - 1::c.ratio][c.order:]
+    y = signal.lfilter(taps, [1.0], x)[c.ratio - 1 :: c.ratio][c.order :]
     dev = y * fr.prescale * design.rates.grid_hz - design.if_hz
     u = dev / design.full_scale_hz
     # the offset tracker: dc[n+1] = dc[n] + (u[n] - dc[n]) / 2**dc_shift, audio u - dc
-    alpha = 2.0 ** -design.scale.dc_shift
+    alpha = 2.0**-design.scale.dc_shift
     dc = signal.lfilter([0.0, alpha], [1.0, alpha - 1.0], u)
     v = signal.sosfilt(np.array([list(s.float_sos) for s in design.filters.sections]), u - dc)
     return v * 2.0 ** (design.output.bits - 1) + design.output.mid

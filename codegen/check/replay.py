@@ -44,29 +44,46 @@ class ReplayResult:
     seconds: float
     inputs: int
     edges: int
-    samples: int                    # output samples both produced
+    samples: int  # output samples both produced
     bit_exact: bool
     mismatches: int
     first_mismatch: int | None
-    counters: dict                  # the C's final status counters
+    counters: dict  # the C's final status counters
     carrier_lost_s: float
-    offset_hz: float                # the final offset output
+    offset_hz: float  # the final offset output
     settle_s: float
     tone_hz: float | None
     sinad_db: float | None
-    out: np.ndarray = field(repr=False)             # the C's output samples
-    track_samples: np.ndarray = field(repr=False)   # output samples made when the offset was read
+    out: np.ndarray = field(repr=False)  # the C's output samples
+    track_samples: np.ndarray = field(repr=False)  # output samples made when the offset was read
     track_offset_hz: np.ndarray = field(repr=False)  # the offset output then
 
     def to_dict(self) -> dict:
-        keys = ("name", "scheme", "path", "format", "what", "seconds", "inputs", "edges", "samples", "bit_exact",
-                "mismatches", "first_mismatch", "counters", "carrier_lost_s", "offset_hz", "settle_s", "tone_hz",
-                "sinad_db")
+        keys = (
+            "name",
+            "scheme",
+            "path",
+            "format",
+            "what",
+            "seconds",
+            "inputs",
+            "edges",
+            "samples",
+            "bit_exact",
+            "mismatches",
+            "first_mismatch",
+            "counters",
+            "carrier_lost_s",
+            "offset_hz",
+            "settle_s",
+            "tone_hz",
+            "sinad_db",
+        )
         return {k: getattr(self, k) for k in keys}
 
 
 def offset_hz_per_lsb(design: Design) -> float:
-    return design.full_scale_hz / 2.0 ** design.scale.q
+    return design.full_scale_hz / 2.0**design.scale.q
 
 
 def block_inputs(design: Design) -> int:
@@ -76,8 +93,9 @@ def block_inputs(design: Design) -> int:
     return max(1, int(round(rate / design.rates.out_hz)))
 
 
-def run_tracked(host: hostbuild.HostDemod, inputs: np.ndarray, block: int,
-                out_cap: int = 1024) -> tuple[np.ndarray, dict, np.ndarray, np.ndarray]:
+def run_tracked(
+    host: hostbuild.HostDemod, inputs: np.ndarray, block: int, out_cap: int = 1024
+) -> tuple[np.ndarray, dict, np.ndarray, np.ndarray]:
     """The C's output for ``inputs`` fed in blocks of ``block`` through <name>_process on one
     state, its final counters, and after every block the samples made so far and the offset output
     (LSB)."""
@@ -92,12 +110,12 @@ def run_tracked(host: hostbuild.HostDemod, inputs: np.ndarray, block: int,
     chunks, made, offs = [], [], []
     total = 0
     for start in range(0, inputs.size, block):
-        blk = inputs[start:start + block]
+        blk = inputs[start : start + block]
         base = ffi.cast(f"{p}_input_t *", ffi.from_buffer(blk))
         done = 0
         while done < blk.size:
             done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
-            chunks.append(out[:produced[0]].copy())
+            chunks.append(out[: produced[0]].copy())
             total += produced[0]
         made.append(total)
         offs.append(int(offset(st)))
@@ -123,8 +141,9 @@ def steady_tone(design: Design, samples: np.ndarray) -> tuple[float | None, floa
     k = int(band[np.argmax(spec[band])])
     df = fs / x.size
     a, b = max(f[k] - df, lo), min(f[k] + df, hi, fs / 2 * 0.999)
-    best = minimize_scalar(lambda v: -metrics.tone_fit(x, fs, v)[0], bounds=(a, b), method="bounded",
-                           options={"xatol": df * 1e-4})
+    best = minimize_scalar(
+        lambda v: -metrics.tone_fit(x, fs, v)[0], bounds=(a, b), method="bounded", options={"xatol": df * 1e-4}
+    )
     tone = float(best.x)
     s = metrics.tone_analysis(x, fs, tone, lo, hi).sinad_db
     return (tone, s) if s >= STEADY_SINAD_DB else (None, None)
@@ -141,11 +160,28 @@ def replay(design: Design, rec: Recording, host: hostbuild.HostDemod | None = No
     tone, sinad = steady_tone(design, out[skip:]) if out.size > skip else (None, None)
     per = offset_hz_per_lsb(design)
     return ReplayResult(
-        name=design.name, scheme=design.scheme, path=rec.path, format=rec.format, what=rec.what,
-        seconds=rec.seconds, inputs=int(rec.inputs.size), edges=rec.edges, samples=cmp.samples,
-        bit_exact=cmp.bit_exact, mismatches=cmp.mismatches, first_mismatch=cmp.first_mismatch, counters=counters,
-        carrier_lost_s=counters["gaps"] / design.rates.grid_hz, offset_hz=counters["offset"] * per,
-        settle_s=settle, tone_hz=tone, sinad_db=sinad, out=out, track_samples=made, track_offset_hz=offs * per)
+        name=design.name,
+        scheme=design.scheme,
+        path=rec.path,
+        format=rec.format,
+        what=rec.what,
+        seconds=rec.seconds,
+        inputs=int(rec.inputs.size),
+        edges=rec.edges,
+        samples=cmp.samples,
+        bit_exact=cmp.bit_exact,
+        mismatches=cmp.mismatches,
+        first_mismatch=cmp.first_mismatch,
+        counters=counters,
+        carrier_lost_s=counters["gaps"] / design.rates.grid_hz,
+        offset_hz=counters["offset"] * per,
+        settle_s=settle,
+        tone_hz=tone,
+        sinad_db=sinad,
+        out=out,
+        track_samples=made,
+        track_offset_hz=offs * per,
+    )
 
 
 def output_t0(design: Design, rec: Recording) -> float:
@@ -172,16 +208,19 @@ def frequency_estimate(design: Design, res: ReplayResult) -> np.ndarray:
 # ---------------------------------------------------------------------------------------------
 # files: WAV and an HTML page with the report's plots
 
+
 def summary_lines(design: Design, res: ReplayResult) -> list[str]:
     verdict = "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
     c = res.counters
-    lines = [f"edgetally replay '{res.name}' ({res.scheme}) of {res.path}: {res.what}",
-             f"  {res.seconds:.4g} s, {res.inputs} inputs, {res.edges} IF edges -> {res.samples} output samples at "
-             f"{design.rates.out_hz} Hz",
-             f"  emitted C vs integer model: {verdict}",
-             f"  carrier lost {res.carrier_lost_s * 1e3:.3g} ms ({c['gaps']} grid instants), {c['clamps']} steps muted "
-             f"out of range, {c['overruns']} inputs lost, carrier at the end: {'yes' if c['carrier'] else 'no'}",
-             f"  offset output at the end: {res.offset_hz:+.1f} Hz from the IF ({design.if_hz:g} Hz)"]
+    lines = [
+        f"edgetally replay '{res.name}' ({res.scheme}) of {res.path}: {res.what}",
+        f"  {res.seconds:.4g} s, {res.inputs} inputs, {res.edges} IF edges -> {res.samples} output samples at "
+        f"{design.rates.out_hz} Hz",
+        f"  emitted C vs integer model: {verdict}",
+        f"  carrier lost {res.carrier_lost_s * 1e3:.3g} ms ({c['gaps']} grid instants), {c['clamps']} steps muted "
+        f"out of range, {c['overruns']} inputs lost, carrier at the end: {'yes' if c['carrier'] else 'no'}",
+        f"  offset output at the end: {res.offset_hz:+.1f} Hz from the IF ({design.if_hz:g} Hz)",
+    ]
     if res.tone_hz is not None:
         lines.append(f"  steady tone {res.tone_hz:.1f} Hz: SINAD {res.sinad_db:.1f} dB "
                      f"({design.test.band_lo_hz:g} Hz to {design.audio_hz:g} Hz, after {res.settle_s * 1e3:.3g} ms settling)")
@@ -257,13 +296,27 @@ def page(design: Design, rec: Recording, res: ReplayResult, wav_name: str) -> st
 
     e = html.escape
     rows = "".join(f"<li>{e(s.strip())}</li>" for s in summary_lines(design, res)[1:])
-    return "\n".join([
-        "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
-        f"<title>edgetally replay: {e(design.name)}</title>", f"<style>{rpage.CSS}</style>", "</head>", "<body>",
-        f"<h1>Replay of {e(rec.path)}</h1>", f"<p>{e(rec.what)}; design '{e(design.name)}', scheme {e(design.scheme)}.</p>",
-        f"<ul>{rows}</ul>", f'<p>Output: <a href="{e(wav_name)}">{e(wav_name)}</a></p>', *plots(design, rec, res),
-        f"<footer>Made by edgetally {e(design.tool_version)} from spec hash {e(design.spec_hash)}.</footer>",
-        "</body>", "</html>", ""])
+    return "\n".join(
+        [
+            "<!DOCTYPE html>",
+            '<html lang="en">',
+            "<head>",
+            '<meta charset="utf-8">',
+            f"<title>edgetally replay: {e(design.name)}</title>",
+            f"<style>{rpage.CSS}</style>",
+            "</head>",
+            "<body>",
+            f"<h1>Replay of {e(rec.path)}</h1>",
+            f"<p>{e(rec.what)}; design '{e(design.name)}', scheme {e(design.scheme)}.</p>",
+            f"<ul>{rows}</ul>",
+            f'<p>Output: <a href="{e(wav_name)}">{e(wav_name)}</a></p>',
+            *plots(design, rec, res),
+            f"<footer>Made by edgetally {e(design.tool_version)} from spec hash {e(design.spec_hash)}.</footer>",
+            "</body>",
+            "</html>",
+            "",
+        ]
+    )
 
 
 def replay_files(design: Design, rec: Recording, res: ReplayResult) -> dict[str, bytes]:
@@ -271,5 +324,7 @@ def replay_files(design: Design, rec: Recording, res: ReplayResult) -> dict[str,
     from ..report import listen
 
     wav = f"{design.name}_replay.wav"
-    return {wav: listen.wav_bytes(design.rates.out_hz, listen.pcm16(design, res.out)),
-            f"{design.name}_replay.html": page(design, rec, res, wav).encode("utf-8")}
+    return {
+        wav: listen.wav_bytes(design.rates.out_hz, listen.pcm16(design, res.out)),
+        f"{design.name}_replay.html": page(design, rec, res, wav).encode("utf-8"),
+    }

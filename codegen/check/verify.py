@@ -52,7 +52,7 @@ class VerifyResult:
     clamps: int
     saturations: int
     clips: int
-    offset_hz: float           # the offset output at the end, in Hz
+    offset_hz: float  # the offset output at the end, in Hz
     c_seconds: float
     model_seconds: float
     widths: dict
@@ -166,10 +166,20 @@ def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEE
         tgt = pending.result()
     doubt = measured_doubt(design, pred)
     return VerifyResult(
-        name=design.name, scheme=design.scheme, variant=design.variant, seconds=seconds, seed=seed, inputs=int(stream.size),
-        bit_exact=cmp.bit_exact, samples=cmp.samples, mismatches=cmp.mismatches,
-        first_mismatch=cmp.first_mismatch, counters_match=cmp.counters_match,
-        sinad_db=round(fixed, 2), float_sinad_db=round(flt, 2), predicted_sinad_db=round(pred.sinad_db, 2),
+        name=design.name,
+        scheme=design.scheme,
+        variant=design.variant,
+        seconds=seconds,
+        seed=seed,
+        inputs=int(stream.size),
+        bit_exact=cmp.bit_exact,
+        samples=cmp.samples,
+        mismatches=cmp.mismatches,
+        first_mismatch=cmp.first_mismatch,
+        counters_match=cmp.counters_match,
+        sinad_db=round(fixed, 2),
+        float_sinad_db=round(flt, 2),
+        predicted_sinad_db=round(pred.sinad_db, 2),
         predicted_quant_sinad_db=round(pred.quant_sinad_db, 2),
         predicted_curvature_sinad_db=round(pred.curvature_sinad_db, 2),
         predicted_jitter_sinad_db=round(pred.jitter_sinad_db, 2),

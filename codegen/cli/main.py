@@ -25,8 +25,8 @@ from ..spec import Spec, SpecError, cut_path, load_spec
 # when they run, so that a bad spec is refused without loading them.
 
 EXIT_OK, EXIT_FAIL, EXIT_SPEC = 0, 1, 2
-SCHEME_NAMES = ("timestamp", "interrupt", "counter")   # edgetally.planner.SCHEMES, without importing scipy
-SWEEP_KINDS = ("cnr", "tone", "deviation", "offset")    # edgetally.sweeps.KINDS
+SCHEME_NAMES = ("timestamp", "interrupt", "counter")  # edgetally.planner.SCHEMES, without importing scipy
+SWEEP_KINDS = ("cnr", "tone", "deviation", "offset")  # edgetally.sweeps.KINDS
 SCENARIO_NAMES = ("signal-loss", "noise-burst", "timer-wrap", "inputs-lost", "frequency-step")  # edgetally.hostile
 
 
@@ -36,8 +36,12 @@ class UsageError(Exception):
 
 def _add_scheme_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("spec", help="the TOML spec file")
-    p.add_argument("--scheme", choices=SCHEME_NAMES, default=None,
-                   help="force how the MCU sees the edges (default: the planner's choice)")
+    p.add_argument(
+        "--scheme",
+        choices=SCHEME_NAMES,
+        default=None,
+        help="force how the MCU sees the edges (default: the planner's choice)",
+    )
 
 
 EXIT_CODES = """exit status:
@@ -80,12 +84,18 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("plan", help="show what was chosen and why")
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
-    p.add_argument("--measured", action="store_true",
-                   help="cross-compile the chosen design for the spec's core and run it in the Thumb emulator; "
-                        "if its measured CPU load exceeds the budget, drop it and plan again (needs "
-                        "arm-none-eabi-gcc and unicorn)")
-    p.add_argument("--simulate", action="store_true",
-                   help="also simulate each feasible option briefly (float reference, 0.25 s) and show its SINAD")
+    p.add_argument(
+        "--measured",
+        action="store_true",
+        help="cross-compile the chosen design for the spec's core and run it in the Thumb emulator; "
+        "if its measured CPU load exceeds the budget, drop it and plan again (needs "
+        "arm-none-eabi-gcc and unicorn)",
+    )
+    p.add_argument(
+        "--simulate",
+        action="store_true",
+        help="also simulate each feasible option briefly (float reference, 0.25 s) and show its SINAD",
+    )
 
     p = sub.add_parser("emit", help="write the C header and source (and the Design as JSON)")
     _add_scheme_args(p)
@@ -97,9 +107,13 @@ def _parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("widths", help="show the word-length table and overflow margins, or check your own widths")
     _add_scheme_args(p)
-    p.add_argument("--set", action="append", default=[], metavar="filters.KEY=VALUE",
-                   help="override a word length: filters.arith, data_bits, coef_bits, coef_width, acc_bits, scaling "
-                        "(repeatable)")
+    p.add_argument(
+        "--set",
+        action="append",
+        default=[],
+        metavar="filters.KEY=VALUE",
+        help="override a word length: filters.arith, data_bits, coef_bits, coef_width, acc_bits, scaling (repeatable)",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
     p.add_argument("--no-simulate", action="store_true", help="skip the simulation (bit-exact check and measured loss)")
 
@@ -125,8 +139,11 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--loss-ms", type=float, default=20.0, help="signal-loss scenario: no edges for this long (default 20)")
     p.add_argument("--burst-ms", type=float, default=2.0, help="noise-burst scenario: its length (default 2)")
 
-    p = sub.add_parser("report", help="write one HTML page (plots inline) and WAV files: plan, chain, response, "
-                                      "sweeps, hostile conditions, budget")
+    p = sub.add_parser(
+        "report",
+        help="write one HTML page (plots inline) and WAV files: plan, chain, response, "
+        "sweeps, hostile conditions, budget",
+    )
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
     p.add_argument("--force", action="store_true", help=FORCE_HELP)
@@ -148,21 +165,28 @@ def _db(v: float) -> str:
 
 
 def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
-    lines = [f"edgetally plan for '{spec.name}': scheme {pl.scheme} ({pl.variant}), CIC order {pl.order} "
-             f"ratio {pl.ratio}, grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz", ""]
+    lines = [
+        f"edgetally plan for '{spec.name}': scheme {pl.scheme} ({pl.variant}), CIC order {pl.order} "
+        f"ratio {pl.ratio}, grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz",
+        "",
+    ]
     sim_head = f" {'sim dB':>7}" if sims is not None else ""
-    head = (f"{'scheme':<10} {'variant':<13} {'R':>3} {'grid Hz':>8} {'CPU':>6} {'RAM B':>6} {'SINAD dB':>8} "
-            f"{'quant':>6} {'interp':>6} {'jitter':>6}{sim_head}  status")
+    head = (
+        f"{'scheme':<10} {'variant':<13} {'R':>3} {'grid Hz':>8} {'CPU':>6} {'RAM B':>6} {'SINAD dB':>8} "
+        f"{'quant':>6} {'interp':>6} {'jitter':>6}{sim_head}  status"
+    )
     lines += [head, "-" * len(head)]
     for o in pl.options:
         sim = ""
         if sims is not None:
             v = sims.get((o.scheme, o.variant))
             sim = f" {v:>7.1f}" if v is not None else f" {'':>7}"
-        lines.append(f"{o.scheme:<10} {o.variant:<13} {o.ratio:>3} {o.grid_hz:>8} {o.load:>6.1%} {o.ram_bytes:>6} "
-                     f"{o.predicted_sinad_db:>7.1f}{'?' if o.doubtful else ' '} {_db(o.quant_sinad_db):>6} "
-                     f"{_db(o.curvature_sinad_db):>6} "
-                     f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}")
+        lines.append(
+            f"{o.scheme:<10} {o.variant:<13} {o.ratio:>3} {o.grid_hz:>8} {o.load:>6.1%} {o.ram_bytes:>6} "
+            f"{o.predicted_sinad_db:>7.1f}{'?' if o.doubtful else ' '} {_db(o.quant_sinad_db):>6} "
+            f"{_db(o.curvature_sinad_db):>6} "
+            f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}"
+        )
     pr, ld = pl.prediction, pl.load
     lines += ["",
               f"predicted SINAD {pr.sinad_db:.1f} dB ({standard.tone_hz(spec.signal.audio_hz):g} Hz tone at "
@@ -177,12 +201,19 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
         for (scheme, variant), v in sims.items():
             o = next(o for o in pl.options if (o.scheme, o.variant) == (scheme, variant))
             if abs(v - o.predicted_sinad_db) > 3:
-                lines.append(f"note: {scheme} {variant}: the simulation gives {v:.1f} dB, {v - o.predicted_sinad_db:+.1f} dB "
-                             "from the white-noise prediction"
-                             + (" (count errors of a nearly commensurate IF and grid are tones, not white noise)"
-                                if variant == "count" else ""))
-    lines.append("quant/interp/jitter: predicted SINAD if that source were alone; '-': the source is absent; "
-                 "'?': the white-noise model may be several dB off here (see --simulate)")
+                lines.append(
+                    f"note: {scheme} {variant}: the simulation gives {v:.1f} dB, {v - o.predicted_sinad_db:+.1f} dB "
+                    "from the white-noise prediction"
+                    + (
+                        " (count errors of a nearly commensurate IF and grid are tones, not white noise)"
+                        if variant == "count"
+                        else ""
+                    )
+                )
+    lines.append(
+        "quant/interp/jitter: predicted SINAD if that source were alone; '-': the source is absent; "
+        "'?': the white-noise model may be several dB off here (see --simulate)"
+    )
     return "\n".join(lines)
 
 
@@ -226,16 +257,20 @@ def cmd_plan(args) -> int:
     else:
         print(_plan_table(spec, pl, sims))
         if measured is not None:
-            print(f"measured on the emulated {spec.target.core} (-Os): CPU load {measured['load_fraction']:.1%} "
-                  f"(estimate {pl.load.fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
-                  f"{measured['cycles_per_input']:g}/input, {measured['cycles_per_grid']:g}/grid instant, "
-                  f"{measured['cycles_per_output']:g}/output; flash {measured['flash_bytes']} B")
+            print(
+                f"measured on the emulated {spec.target.core} (-Os): CPU load {measured['load_fraction']:.1%} "
+                f"(estimate {pl.load.fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
+                f"{measured['cycles_per_input']:g}/input, {measured['cycles_per_grid']:g}/grid instant, "
+                f"{measured['cycles_per_output']:g}/output; flash {measured['flash_bytes']} B"
+            )
             for o in measured["dropped_after_measuring"]:
-                print(f"note: {o['scheme']} {o['variant']} R={o['ratio']} was dropped after measuring it: {o['reason']}")
+                print(
+                    f"note: {o['scheme']} {o['variant']} R={o['ratio']} was dropped after measuring it: {o['reason']}"
+                )
     return EXIT_OK
 
 
-MEASURE_TRIES = 4   # options measured at most before giving up on --measured
+MEASURE_TRIES = 4  # options measured at most before giving up on --measured
 
 
 def _measured_plan(spec: Spec, pl, scheme):
@@ -257,14 +292,18 @@ def _measured_plan(spec: Spec, pl, scheme):
     for _ in range(MEASURE_TRIES):
         t = target_check(make_design(spec, pl), cores=(core,))[core]
         if t["load_fraction"] <= spec.target.cpu_budget:
-            t["dropped_after_measuring"] = [{"scheme": k[0], "variant": k[1], "ratio": k[2], "reason": r}
-                                            for k, r in exclude.items()]
+            t["dropped_after_measuring"] = [
+                {"scheme": k[0], "variant": k[1], "ratio": k[2], "reason": r} for k, r in exclude.items()
+            ]
             return pl, t
-        exclude[(pl.scheme, pl.variant, pl.ratio)] = (f"measured load {t['load_fraction']:.1%} exceeds the budget "
-                                                      f"{spec.target.cpu_budget:.0%}")
+        exclude[(pl.scheme, pl.variant, pl.ratio)] = (
+            f"measured load {t['load_fraction']:.1%} exceeds the budget {spec.target.cpu_budget:.0%}"
+        )
         pl = plan(spec, scheme=scheme, exclude=exclude)
-    raise RuntimeError(f"--measured: {MEASURE_TRIES} options in a row measured over the budget; raise "
-                       "target.cpu_budget or force a lighter scheme")
+    raise RuntimeError(
+        f"--measured: {MEASURE_TRIES} options in a row measured over the budget; raise "
+        "target.cpu_budget or force a lighter scheme"
+    )
 
 
 def cmd_emit(args) -> int:
@@ -293,13 +332,17 @@ def _float_line(t: dict) -> str:
     """Per output sample: the integer C against the hand-written single-precision float chain,
     said plainly when float is faster."""
     kind = "hardware FPU" if t["float_fpu"] else "soft float"
-    head = (f"per output sample: {t['cycles_per_output_sample']:g} cycles; hand-written single-precision "
-            f"float ({kind}) {t['float_cycles_per_output_sample']:g}")
+    head = (
+        f"per output sample: {t['cycles_per_output_sample']:g} cycles; hand-written single-precision "
+        f"float ({kind}) {t['float_cycles_per_output_sample']:g}"
+    )
     if t["float_ratio"] >= 1:
         verdict = f"integer {t['float_ratio']:.1f}x fewer"
     else:
-        verdict = (f"FLOAT IS {1 / t['float_ratio']:.1f}x FASTER here (the integer C is still bit-exact and "
-                   f"deterministic across cores)")
+        verdict = (
+            f"FLOAT IS {1 / t['float_ratio']:.1f}x FASTER here (the integer C is still bit-exact and "
+            f"deterministic across cores)"
+        )
     return f"{head}: {verdict}; double precision {t['double_cycles_per_output_sample']:g} ({t['double_ratio']:.1f}x)"
 
 
@@ -339,14 +382,21 @@ def cmd_verify(args) -> int:
 
         host = build(d)
     sw = cli_quality.run_sweeps(d, args.sweep, points, seed, host, tty)
-    hs = cli_quality.run_scenarios(d, args.scenario, Options(args.loss_ms, args.burst_ms, seed=seed), host, tty) \
-        if args.scenario else []
+    hs = (
+        cli_quality.run_scenarios(d, args.scenario, Options(args.loss_ms, args.burst_ms, seed=seed), host, tty)
+        if args.scenario
+        else []
+    )
     if args.json:
         print(json.dumps(json_safe({**res.to_dict(), **cli_quality.json_extra(sw, hs)}), indent=2))
     else:
-        verdict = "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
-        print(f"edgetally verify '{res.name}' ({res.scheme}, {res.variant}), {res.seconds:g} s of signal, "
-              f"seed {res.seed}, {res.inputs} inputs")
+        verdict = (
+            "BIT-EXACT" if res.bit_exact else f"MISMATCH ({res.mismatches} samples, first at {res.first_mismatch})"
+        )
+        print(
+            f"edgetally verify '{res.name}' ({res.scheme}, {res.variant}), {res.seconds:g} s of signal, "
+            f"seed {res.seed}, {res.inputs} inputs"
+        )
         print(f"  emitted C vs integer model: {verdict} over {res.samples} output samples")
         print(f"  standard test: {d.test.describe()}, after {res.lead_s:g} s settling")
         print(f"  SINAD: C {res.sinad_db:.2f} dB, float reference {res.float_sinad_db:.2f} dB, "
@@ -367,10 +417,12 @@ def cmd_verify(args) -> int:
         print(f"  time: C {res.c_seconds:.3f} s, integer model {res.model_seconds:.3f} s")
         if res.target:
             for core, t in res.target.items():
-                print(f"  {core} (-Os, emulated, {t['samples']} samples): "
-                      f"{'bit-exact' if t['bit_exact'] else 'DIFFERS'}; cycles: {t['cycles_per_edge_isr']:g}/edge ISR, "
-                      f"{t['cycles_per_input']:g}/input, {t['cycles_per_grid']:g}/grid instant, "
-                      f"{t['cycles_per_output']:g}/output; flash {t['flash_bytes']} B, state {t['state_bytes']} B")
+                print(
+                    f"  {core} (-Os, emulated, {t['samples']} samples): "
+                    f"{'bit-exact' if t['bit_exact'] else 'DIFFERS'}; cycles: {t['cycles_per_edge_isr']:g}/edge ISR, "
+                    f"{t['cycles_per_input']:g}/input, {t['cycles_per_grid']:g}/grid instant, "
+                    f"{t['cycles_per_output']:g}/output; flash {t['flash_bytes']} B, state {t['state_bytes']} B"
+                )
                 print("    " + _float_line(t))
                 if t["isa_violations"]:
                     print(f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
@@ -383,8 +435,13 @@ def cmd_verify(args) -> int:
         if hs:
             cli_quality.print_scenarios(hs)
     isa_ok = all(not t.get("isa_violations") for t in (res.target or {}).values())
-    ok = (res.bit_exact and res.target_bit_exact is not False and isa_ok and all(s.bit_exact for s in sw)
-          and all(h.passed for h in hs))
+    ok = (
+        res.bit_exact
+        and res.target_bit_exact is not False
+        and isa_ok
+        and all(s.bit_exact for s in sw)
+        and all(h.passed for h in hs)
+    )
     return EXIT_OK if ok else EXIT_FAIL
 
 
@@ -454,19 +511,31 @@ def cmd_widths(args) -> int:
             print(f"{r['name']:<16} {r['bits']:>4} {r['bound']:>22} {r['margin_bits']:>7.2f}  {r['note']}{flag}")
         print()
         ci = rep.cic
-        print(f"CIC: order {ci['order']} ratio {ci['ratio']}, {ci['in_bits']}-bit input, full width {ci['full_width']} "
-              f"bits in {ci['register_bits']}-bit registers; droop at the band edge {ci['droop_db_at_band_edge']:.2f} dB"
-              f"{' (compensated)' if ci['compensated'] else ''}; worst alias into the band {ci['worst_alias_db']:.1f} dB; "
-              f"pruning {ci['pruning']}")
-        print(f"predicted implementation loss {rep.predicted_loss_db:.3f} dB; response error {rep.response_error_db:.4f} dB "
-              f"(coefficients need {rep.coef_bits_needed} fraction bits for the tolerance)")
+        print(
+            f"CIC: order {ci['order']} ratio {ci['ratio']}, {ci['in_bits']}-bit input, full width {ci['full_width']} "
+            f"bits in {ci['register_bits']}-bit registers; droop at the band edge {ci['droop_db_at_band_edge']:.2f} dB"
+            f"{' (compensated)' if ci['compensated'] else ''}; worst alias into the band {ci['worst_alias_db']:.1f} dB; "
+            f"pruning {ci['pruning']}"
+        )
+        print(
+            f"predicted implementation loss {rep.predicted_loss_db:.3f} dB; response error {rep.response_error_db:.4f} dB "
+            f"(coefficients need {rep.coef_bits_needed} fraction bits for the tolerance)"
+        )
         for c in rep.limit_cycles:
-            print(f"zero-input limit cycle, {c['section']}: {c['dead_band_lsb']:g} LSB (Jackson's estimate "
-                  f"{c['jackson_lsb']:g} LSB), " + ("no idle tone" if c["dead_band_lsb"] == 0 else
-                                                     f"idle tone {c['below_noise_db']:g} dB below the noise floor"))
+            print(
+                f"zero-input limit cycle, {c['section']}: {c['dead_band_lsb']:g} LSB (Jackson's estimate "
+                f"{c['jackson_lsb']:g} LSB), "
+                + (
+                    "no idle tone"
+                    if c["dead_band_lsb"] == 0
+                    else f"idle tone {c['below_noise_db']:g} dB below the noise floor"
+                )
+            )
         if rep.simulated_loss_db is not None:
-            print(f"simulated: implementation loss {rep.simulated_loss_db:.2f} dB, emitted C "
-                  f"{'bit-exact' if rep.bit_exact else 'DIFFERS from the model'}")
+            print(
+                f"simulated: implementation loss {rep.simulated_loss_db:.2f} dB, emitted C "
+                f"{'bit-exact' if rep.bit_exact else 'DIFFERS from the model'}"
+            )
         print("OK: safe and within the targets" if rep.ok else "FAIL:\n  " + "\n  ".join(rep.failures))
     return EXIT_OK if rep.ok else EXIT_FAIL
 
@@ -474,8 +543,14 @@ def cmd_widths(args) -> int:
 def main(argv: list[str] | None = None) -> int:
     ap = _parser()
     args = ap.parse_args(argv)
-    handler = {"plan": cmd_plan, "emit": cmd_emit, "verify": cmd_verify, "widths": cmd_widths,
-               "report": cmd_report, "replay": cli_replay.run}[args.command]
+    handler = {
+        "plan": cmd_plan,
+        "emit": cmd_emit,
+        "verify": cmd_verify,
+        "widths": cmd_widths,
+        "report": cmd_report,
+        "replay": cli_replay.run,
+    }[args.command]
     try:
         return handler(args)
     except SpecError as e:
@@ -506,8 +581,10 @@ def _internal(e: Exception, debug: bool) -> int:
     if isinstance(e, BuildError):
         print(f"edgetally: the emitted C did not compile cleanly:\n{e}", file=sys.stderr)
     else:
-        print(f"edgetally: internal error: {e.__class__.__name__}: {e} (run with --debug for the traceback)",
-              file=sys.stderr)
+        print(
+            f"edgetally: internal error: {e.__class__.__name__}: {e} (run with --debug for the traceback)",
+            file=sys.stderr,
+        )
     return EXIT_FAIL
 
 

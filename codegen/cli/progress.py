@@ -15,8 +15,14 @@ class Progress:
         if self.enabled:
             from tqdm import tqdm
 
-            self._bar = tqdm(total=total, desc=desc, file=sys.stderr, unit="step", leave=False,
-                             bar_format="{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed}<{remaining}] {postfix}")
+            self._bar = tqdm(
+                total=total,
+                desc=desc,
+                file=sys.stderr,
+                unit="step",
+                leave=False,
+                bar_format="{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed}<{remaining}] {postfix}",
+            )
 
     def note(self, label: str) -> None:
         """Show what runs now, without advancing."""

@@ -67,23 +67,30 @@ def print_sweep(s) -> None:
     for n in s.notes:
         print(f"    ({n})")
     pred = any(p.predicted_db is not None for p in s.points)
-    print(f"    {'x':>10} {'SINAD':>7} {'float':>7} {'SNR':>7} {'THD':>8} {'level':>7}"
-          + (f" {'predicted':>9}" if pred else "") + f" {'offset Hz':>10}  flags")
+    print(
+        f"    {'x':>10} {'SINAD':>7} {'float':>7} {'SNR':>7} {'THD':>8} {'level':>7}"
+        + (f" {'predicted':>9}" if pred else "")
+        + f" {'offset Hz':>10}  flags"
+    )
     for p in s.points:
         flags = ", ".join(f"{k} {v}" for k, v in p.flags.items() if v) or "-"
         thd = f"{p.thd_db:8.1f}" if p.thd_db > -300 else f"{'-':>8}"
-        print(f"    {p.x:>10g} {p.sinad_db:>7.2f} {p.float_sinad_db:>7.2f} {p.snr_db:>7.2f} {thd} {p.level_db:>7.2f}"
-              + (f" {p.predicted_db:>9.2f}" if p.predicted_db is not None else (f" {'':>9}" if pred else ""))
-              + f" {p.offset_hz if p.offset_hz is not None else '-':>10}  {flags}"
-              + ("" if p.bit_exact else "  NOT BIT-EXACT"))
+        print(
+            f"    {p.x:>10g} {p.sinad_db:>7.2f} {p.float_sinad_db:>7.2f} {p.snr_db:>7.2f} {thd} {p.level_db:>7.2f}"
+            + (f" {p.predicted_db:>9.2f}" if p.predicted_db is not None else (f" {'':>9}" if pred else ""))
+            + f" {p.offset_hz if p.offset_hz is not None else '-':>10}  {flags}"
+            + ("" if p.bit_exact else "  NOT BIT-EXACT")
+        )
 
 
 def print_scenarios(results) -> None:
     print("  hostile conditions:")
     for r in results:
         print(f"    {r.name:<15} {'pass' if r.passed else 'FAIL'}: {r.description}")
-        print(f"      C = model: {'yes' if r.bit_exact else 'NO'}; overflow: {'none' if r.overflow_free else 'YES'}; "
-              f"flag {r.flag}: {'as expected' if r.flag_raised else 'NOT as expected'}; output: {r.output_note}")
+        print(
+            f"      C = model: {'yes' if r.bit_exact else 'NO'}; overflow: {'none' if r.overflow_free else 'YES'}; "
+            f"flag {r.flag}: {'as expected' if r.flag_raised else 'NOT as expected'}; output: {r.output_note}"
+        )
         print(f"      recovery {r.recovery_ms:g} ms (predicted at most {r.predicted_recovery_ms:g} ms)")
 
 
@@ -102,9 +109,11 @@ def cmd_report(args, spec, design, plan_obj) -> int:
     for o in write_set(out, made.files, args.force):
         print(f"{o.state}: {o.path}")
     res, failed = made.verify, made.failed_scenarios
-    print(f"report '{design.name}': emitted C {'bit-exact' if res.bit_exact else 'NOT bit-exact'}, "
-          f"SINAD {res.sinad_db:.2f} dB, sweeps {'bit-exact' if made.sweeps_bit_exact else 'NOT bit-exact'}, "
-          f"hostile scenarios {'all passed' if not failed else 'failed: ' + ', '.join(failed)}")
+    print(
+        f"report '{design.name}': emitted C {'bit-exact' if res.bit_exact else 'NOT bit-exact'}, "
+        f"SINAD {res.sinad_db:.2f} dB, sweeps {'bit-exact' if made.sweeps_bit_exact else 'NOT bit-exact'}, "
+        f"hostile scenarios {'all passed' if not failed else 'failed: ' + ', '.join(failed)}"
+    )
     return 0 if made.ok else 1
 
 

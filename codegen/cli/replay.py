@@ -15,23 +15,50 @@ SCHEMES = ("timestamp", "interrupt", "counter")
 
 
 def add_parser(subparsers) -> None:
-    p = subparsers.add_parser("replay", help="run the emitted C and the model on your own recording (logic-analyzer "
-                                             "VCD, logged stamps or counts, IQ WAV or SigMF)")
+    p = subparsers.add_parser(
+        "replay",
+        help="run the emitted C and the model on your own recording (logic-analyzer "
+        "VCD, logged stamps or counts, IQ WAV or SigMF)",
+    )
     p.add_argument("spec", help="the TOML spec file")
     p.add_argument("recording", help="the recording (for SigMF the .sigmf-meta file)")
-    p.add_argument("--scheme", choices=SCHEMES, default=None,
-                   help="force how the MCU sees the edges (default: the planner's choice)")
-    p.add_argument("--format", choices=FORMATS, default=None, help="the recording's format (default: from its extension)")
-    p.add_argument("--signal", default=None, metavar="NAME",
-                   help="VCD: the IF pin's signal (full dotted name or its last part); CSV: the column by header "
-                        "name or 1-based number")
-    p.add_argument("--edge", choices=("rising", "falling"), default="rising",
-                   help="the IF edge the design's hardware sees (default rising)")
-    p.add_argument("--offset-hz", type=float, default=0.0, metavar="HZ",
-                   help="IQ: the channel's frequency minus the recording's centre (default 0)")
+    p.add_argument(
+        "--scheme",
+        choices=SCHEMES,
+        default=None,
+        help="force how the MCU sees the edges (default: the planner's choice)",
+    )
+    p.add_argument(
+        "--format", choices=FORMATS, default=None, help="the recording's format (default: from its extension)"
+    )
+    p.add_argument(
+        "--signal",
+        default=None,
+        metavar="NAME",
+        help="VCD: the IF pin's signal (full dotted name or its last part); CSV: the column by header "
+        "name or 1-based number",
+    )
+    p.add_argument(
+        "--edge",
+        choices=("rising", "falling"),
+        default="rising",
+        help="the IF edge the design's hardware sees (default rising)",
+    )
+    p.add_argument(
+        "--offset-hz",
+        type=float,
+        default=0.0,
+        metavar="HZ",
+        help="IQ: the channel's frequency minus the recording's centre (default 0)",
+    )
     p.add_argument("--endian", choices=("little", "big"), default="little", help="bin: byte order (default little)")
-    p.add_argument("--word-bits", type=int, choices=(16, 32, 64), default=None,
-                   help="bin: bits per word (default the timer's or counter's width; wider words are unwrapped values)")
+    p.add_argument(
+        "--word-bits",
+        type=int,
+        choices=(16, 32, 64),
+        default=None,
+        help="bin: bits per word (default the timer's or counter's width; wider words are unwrapped values)",
+    )
     p.add_argument("--json", action="store_true", help="print the summary as one JSON object")
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder for the WAV and the page (made if missing)")
     p.add_argument("--force", action="store_true", help=FORCE_HELP)

@@ -36,12 +36,12 @@ class WidthOption:
     """One candidate word-length set for the output chain, with what it would cost and lose."""
 
     arith: str
-    filters: Filters | None       # None: refused (the reason says why)
+    filters: Filters | None  # None: refused (the reason says why)
     q_in: int
-    loss_db: float                # predicted implementation loss (Jackson roundoff vs the planned noise)
+    loss_db: float  # predicted implementation loss (Jackson roundoff vs the planned noise)
     response_error_db: float
-    coef_bits_needed: int         # fewest coefficient bits meeting the response tolerance
-    cycles_per_output: int        # of the filter sections alone
+    coef_bits_needed: int  # fewest coefficient bits meeting the response tolerance
+    cycles_per_output: int  # of the filter sections alone
     ok: bool
     reason: str
 
@@ -50,8 +50,8 @@ def _units(p: Plan) -> tuple[Fraction, int]:
     """Hz per CIC output LSB, and the largest CIC output any input can give."""
     fr = p.front
     shift = fr.phase_shift if fr.kind == "stamp" else fr.step_shift
-    unit = Fraction(p.grid_hz * fr.prescale) / (Fraction(1 << shift) * p.ratio ** p.order)
-    return unit, fr.x_limit * p.ratio ** p.order
+    unit = Fraction(p.grid_hz * fr.prescale) / (Fraction(1 << shift) * p.ratio**p.order)
+    return unit, fr.x_limit * p.ratio**p.order
 
 
 def _bound_rel(spec: Spec, p: Plan) -> float:
@@ -68,7 +68,7 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     rows = [list(map(float, r)) for _, sos in pairs for r in sos]
     roles = [role for role, sos in pairs for _ in sos]
     lim = wordlength.limit_of(a.data_bits)
-    in_rel = 2 * _bound_rel(spec, p)                        # audio minus offset
+    in_rel = 2 * _bound_rel(spec, p)  # audio minus offset
     q_in = math.floor(math.log2(lim / in_rel))
     qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
     cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
@@ -147,7 +147,9 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
         if err > fx.response_tol_db:
             why.append(f"response error {err:.3f} dB exceeds {fx.response_tol_db:g} dB")
-        opts.append(WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets"))
+        opts.append(
+            WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets")
+        )
     return sorted(opts, key=lambda o: o.cycles_per_output)
 
 
@@ -205,7 +207,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
                         "is too small a fraction of the IF for the output chain's data word; raise it")
     unit, y_max = _units(p)
     centre = round(Fraction(sig.if_hz) / unit)
-    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)                 # data LSB per CIC LSB
+    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)  # data LSB per CIC LSB
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     if shift < 1:
         raise SpecError("output.full_scale_hz", out.full_scale_hz,
@@ -222,7 +224,10 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
-        name=spec.name, tool_version=__version__, spec_hash=spec_hash(spec), scheme=p.scheme,
+        name=spec.name,
+        tool_version=__version__,
+        spec_hash=spec_hash(spec),
+        scheme=p.scheme,
         rates=Rates(timer_hz=tgt.timer_hz, grid_hz=p.grid_hz, out_hz=out.rate_hz),
         front=p.front,
         cic=Cic(order=p.order, ratio=p.ratio, in_bits=p.cic_in_bits, width=REG_BITS),

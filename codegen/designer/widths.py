@@ -21,11 +21,11 @@ class WidthReport:
     name: str
     arith: str
     overrides: dict
-    registers: list            # the certificate, as dicts
+    registers: list  # the certificate, as dicts
     predicted_loss_db: float
     response_error_db: float
     coef_bits_needed: int
-    limit_cycles: list         # per section: measured dead band (its LSB), Jackson's estimate, in output LSB
+    limit_cycles: list  # per section: measured dead band (its LSB), Jackson's estimate, in output LSB
     simulated_loss_db: float | None
     bit_exact: bool | None
     cic: dict = field(default_factory=dict)
@@ -45,9 +45,10 @@ def parse_sets(items: list[str]) -> dict:
     for item in items:
         key, sep, value = item.partition("=")
         if not sep or not key.startswith("filters."):
-            raise SpecError("--set", item, "must look like filters.KEY=VALUE, KEY one of "
-                            + ", ".join(assemble.OVERRIDABLE))
-        name = key[len("filters."):]
+            raise SpecError(
+                "--set", item, "must look like filters.KEY=VALUE, KEY one of " + ", ".join(assemble.OVERRIDABLE)
+            )
+        name = key[len("filters.") :]
         if name not in assemble.OVERRIDABLE:
             raise SpecError("--set", item, "KEY must be one of " + ", ".join(assemble.OVERRIDABLE))
         if assemble.OVERRIDABLE[name] is int:
@@ -74,11 +75,16 @@ def _limit_cycles(d: Design, noise_fs2: float) -> list[dict]:
     f = d.filters
     rows = []
     for s, m in zip(f.sections, wordlength.limit_cycle_lsb(f), strict=True):
-        idle = (m * 2.0 ** -s.q_out) ** 2 / 2
+        idle = (m * 2.0**-s.q_out) ** 2 / 2
         below = 10 * math.log10(noise_fs2 / idle) if idle else math.inf
-        rows.append({"section": s.role, "dead_band_lsb": m,
-                     "jackson_lsb": round(wordlength.jackson_dead_band(s, f.coef_bits), 2),
-                     "below_noise_db": round(below, 1)})
+        rows.append(
+            {
+                "section": s.role,
+                "dead_band_lsb": m,
+                "jackson_lsb": round(wordlength.jackson_dead_band(s, f.coef_bits), 2),
+                "below_noise_db": round(below, 1),
+            }
+        )
     return rows
 
 
@@ -92,19 +98,28 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
     opts = assemble.width_options(spec, p, overrides)
     opt = next(o for o in opts if o.filters == d.filters)
     fx = spec.fixed
-    failures = [f"{r.name}: bound {r.bound} does not fit {r.bits} bits (margin {r.margin_bits} bits)"
-                for r in d.certificate if r.margin_bits < 0 and not r.name.endswith(".out")]
+    failures = [
+        f"{r.name}: bound {r.bound} does not fit {r.bits} bits (margin {r.margin_bits} bits)"
+        for r in d.certificate
+        if r.margin_bits < 0 and not r.name.endswith(".out")
+    ]
     if d.filters.scaling == "l1":
-        failures += [f"{r.name}: bound {r.bound} exceeds the {r.bits}-bit data limit" for r in d.certificate
-                     if r.margin_bits < 0 and r.name.endswith(".out")]
+        failures += [
+            f"{r.name}: bound {r.bound} exceeds the {r.bits}-bit data limit"
+            for r in d.certificate
+            if r.margin_bits < 0 and r.name.endswith(".out")
+        ]
     if opt.loss_db > fx.loss_limit_db:
         failures.append(f"predicted implementation loss {opt.loss_db:.2f} dB exceeds {fx.loss_limit_db:g} dB")
     if opt.response_error_db > fx.response_tol_db:
         failures.append(f"response error {opt.response_error_db:.3f} dB exceeds {fx.response_tol_db:g} dB")
-    noise_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
+    noise_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     cycles = _limit_cycles(d, noise_fs2)
-    failures += [f"limit cycle in {c['section']}: idle tone {-c['below_noise_db']:.1f} dB above the noise floor"
-                 for c in cycles if c["below_noise_db"] < 0]
+    failures += [
+        f"limit cycle in {c['section']}: idle tone {-c['below_noise_db']:.1f} dB above the noise floor"
+        for c in cycles
+        if c["below_noise_db"] < 0
+    ]
     sim_loss = bit_exact = None
     overflow = any(r.margin_bits < 0 and not r.name.endswith(".out") for r in d.certificate)
     if simulate and not overflow:
@@ -118,20 +133,33 @@ def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None =
             failures.append("the emitted C differs from the integer model")
     c, out_hz, band = d.cic, d.rates.out_hz, d.audio_hz
     cic_info = {
-        "order": c.order, "ratio": c.ratio, "in_bits": c.in_bits, "register_bits": c.width,
+        "order": c.order,
+        "ratio": c.ratio,
+        "in_bits": c.in_bits,
+        "register_bits": c.width,
         "full_width": cic.full_width(c.in_bits, c.order, c.ratio),
         "droop_db_at_band_edge": round(cic.droop_db(band, out_hz, c.order, c.ratio), 3),
         "compensated": any(s.role == "droop" for s in d.filters.sections),
         "worst_alias_db": round(float(cic.response_db((out_hz - band) / out_hz, c.order, c.ratio)), 2),
         # Hogenauer's pruned register widths (eq. 21) if the output were kept to the data word: shown
         # so that the user sees what pruning would give; every register is a 32-bit word anyway
-        "pruned_widths": cic.pruned_widths(c.in_bits, min(cic.full_width(c.in_bits, c.order, c.ratio),
-                                                          d.filters.data_bits), c.order, c.ratio),
+        "pruned_widths": cic.pruned_widths(
+            c.in_bits, min(cic.full_width(c.in_bits, c.order, c.ratio), d.filters.data_bits), c.order, c.ratio
+        ),
         "pruning": "not applied: every CIC register is a 32-bit word on these targets, so Hogenauer's "
-                   "pruning would save no storage or cycles",
+        "pruning would save no storage or cycles",
     }
     return WidthReport(
-        name=spec.name, cic=cic_info, arith=opt.arith, overrides=dict(overrides or {}),
-        registers=[asdict(r) for r in d.certificate], predicted_loss_db=round(opt.loss_db, 3),
-        response_error_db=round(opt.response_error_db, 4), coef_bits_needed=opt.coef_bits_needed,
-        limit_cycles=cycles, simulated_loss_db=sim_loss, bit_exact=bit_exact, failures=failures)
+        name=spec.name,
+        cic=cic_info,
+        arith=opt.arith,
+        overrides=dict(overrides or {}),
+        registers=[asdict(r) for r in d.certificate],
+        predicted_loss_db=round(opt.loss_db, 3),
+        response_error_db=round(opt.response_error_db, 4),
+        coef_bits_needed=opt.coef_bits_needed,
+        limit_cycles=cycles,
+        simulated_loss_db=sim_loss,
+        bit_exact=bit_exact,
+        failures=failures,
+    )

@@ -22,7 +22,7 @@ from scipy import signal
 from ..fixedpoint import CUBIC_U_BITS, INV6, cubic_shifts, rshr, section_step
 from ..ir import Filters, Register, Section
 
-IMPULSE_LEN = 4096          # samples of impulse response for the norms (the filters decay far faster)
+IMPULSE_LEN = 4096  # samples of impulse response for the norms (the filters decay far faster)
 
 
 @dataclass(frozen=True)
@@ -86,7 +86,7 @@ def coef_bits_for(rows: list, q_in: int, qs: list[int], width: int) -> int:
         prev = q
     lo, hi = -(1 << (width - 1)), (1 << (width - 1)) - 1
     cb = (width - 1) - math.floor(math.log2(max(abs(c) for c in coefs)))
-    while any(not lo <= round(c * 2.0 ** cb) <= hi for c in coefs):
+    while any(not lo <= round(c * 2.0**cb) <= hi for c in coefs):
         cb -= 1
     return cb
 
@@ -129,9 +129,9 @@ def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo:
     # filter input): two sources of the input's LSB through every section
     total = 2 * band(2.0 ** (-2 * q_in) / 12, rows)
     for k, s in enumerate(f.sections):
-        recursion = [[1.0, 0.0, 0.0] + rows[k][3:]]          # 1 / A_k(z): the rounding is inside the loop
-        total += band(2.0 ** (-2 * s.q_out) / 12, recursion + rows[k + 1:])
-    if f.sections[-1].q_out > out_bits - 1:                 # the output word rounds only when it is coarser
+        recursion = [[1.0, 0.0, 0.0] + rows[k][3:]]  # 1 / A_k(z): the rounding is inside the loop
+        total += band(2.0 ** (-2 * s.q_out) / 12, recursion + rows[k + 1 :])
+    if f.sections[-1].q_out > out_bits - 1:  # the output word rounds only when it is coarser
         total += band(2.0 ** (-2 * (out_bits - 1)) / 12, [])
     return total
 
@@ -199,7 +199,7 @@ def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width
         bound = max(int(bound), 1)
         return Register(name, bits, bound, round(math.log2(limit_of(bits) / bound), 2), note)
 
-    y_max = x_limit * ratio ** order
+    y_max = x_limit * ratio**order
     d_max = max(centre, y_max - centre)
     u_b = min(u_limit, rshr(d_max * mult, shift) + 1)
     regs = [reg(*w) for w in front_words] + [
@@ -218,7 +218,7 @@ def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width
         # section) through the rest of the cascade, in this section's LSB (Jackson 1970)
         y_b = in_b * norm(_impulse(rows[: k + 1]), "l1") * 2.0 ** (s.q_out - q_in)
         for j in range(k + 1):
-            tail = [[1.0, 0.0, 0.0] + rows[j][3:]] + rows[j + 1: k + 1]
+            tail = [[1.0, 0.0, 0.0] + rows[j][3:]] + rows[j + 1 : k + 1]
             y_b += 0.5 * norm(_impulse(tail), "l1") * 2.0 ** (s.q_out - f.sections[j].q_out)
         y_b = math.ceil(y_b)
         biggest = max(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2))
@@ -242,7 +242,14 @@ def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width
             acc_b = sum(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2)) * f.limit + half
             note = "sum of products of saturated words"
         regs.append(reg(f"iir.{k}.acc", f.acc_bits, acc_b, note))
-        regs.append(reg(f"iir.{k}.out", f.data_bits, y_b,
-                        "L1 bound: cannot saturate" if f.scaling == "l1"
-                        else f"{f.scaling} scaling: may saturate (saturation, never wrap)"))
+        regs.append(
+            reg(
+                f"iir.{k}.out",
+                f.data_bits,
+                y_b,
+                "L1 bound: cannot saturate"
+                if f.scaling == "l1"
+                else f"{f.scaling} scaling: may saturate (saturation, never wrap)",
+            )
+        )
     return tuple(regs)

@@ -22,8 +22,7 @@ def _impulse_from_stage(j: int, n: int, r: int, m: int) -> list[int]:
     if j <= n:
         out = []
         for k in range((rm - 1) * n + j):
-            out.append(sum((-1) ** i * comb(n, i) * comb(n - j + k - rm * i, k - rm * i)
-                           for i in range(k // rm + 1)))
+            out.append(sum((-1) ** i * comb(n, i) * comb(n - j + k - rm * i, k - rm * i) for i in range(k // rm + 1)))
         return out
     return [(-1) ** k * comb(2 * n + 1 - j, k) for k in range(2 * n + 2 - j)]
 
@@ -34,7 +33,7 @@ def pruned_widths(bin_bits: int, bout_bits: int, n: int, r: int, m: int = 1) -> 
     Returns 2N+1 widths: the N integrators, the N combs, and the output.
     """
     bmax = full_width(bin_bits, n, r, m)
-    b_out_discard = bmax - bout_bits              # B_{2N+1}, bits dropped at the output
+    b_out_discard = bmax - bout_bits  # B_{2N+1}, bits dropped at the output
     sigma_t = math.sqrt((2.0 ** (2 * b_out_discard)) / 12.0)
     widths = []
     for j in range(1, 2 * n + 1):

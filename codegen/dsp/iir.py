@@ -21,7 +21,7 @@ LPF_ORDER = 4
 LPF_RIPPLE_DB = 0.1
 LPF_STOP_DB = 60.0
 POLE_MARGIN = 1e-4  # quantised poles must stay this far inside the unit circle
-COEF_BITS = 29      # Q29 coefficients: |c| < 4 covers every normalised biquad term
+COEF_BITS = 29  # Q29 coefficients: |c| < 4 covers every normalised biquad term
 
 
 def lowpass_sos(audio_hz: float, fs_hz: float) -> np.ndarray:

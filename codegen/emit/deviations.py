@@ -15,11 +15,11 @@ from dataclasses import dataclass
 
 @dataclass(frozen=True)
 class Deviation:
-    rule: str                  # MISRA C:2012 rule number, e.g. "2.3"
-    category: str              # "advisory" or "required" (no mandatory rule is deviated)
-    where: str                 # the emitted names it covers ({p}: the design's prefix, {P}: upper case)
-    files: tuple[str, ...]     # the emitted files it may occur in
-    marks: tuple[str, ...]     # a flagged source line must contain one of these texts
+    rule: str  # MISRA C:2012 rule number, e.g. "2.3"
+    category: str  # "advisory" or "required" (no mandatory rule is deviated)
+    where: str  # the emitted names it covers ({p}: the design's prefix, {P}: upper case)
+    files: tuple[str, ...]  # the emitted files it may occur in
+    marks: tuple[str, ...]  # a flagged source line must contain one of these texts
     why: str
 
     def fill(self, text: str, prefix: str) -> str:
@@ -28,22 +28,34 @@ class Deviation:
 
 DEVIATIONS: tuple[Deviation, ...] = (
     Deviation(
-        "2.3", "advisory", "the typedefs `{p}_check_*` and `{p}_port_check_ring`", ("{p}.c", "{p}_port.c"),
+        "2.3",
+        "advisory",
+        "the typedefs `{p}_check_*` and `{p}_port_check_ring`",
+        ("{p}.c", "{p}_port.c"),
         ("typedef char {p}_check_", "typedef char {p}_port_check_"),
         "compile-time checks of the build assumptions (two's complement, arithmetic right shift, type "
         "sizes, power-of-two lengths): C99 has no static assertion, so each is an array type whose size "
-        "turns negative, stopping the build, when its assumption fails; the type is never used."),
+        "turns negative, stopping the build, when its assumption fails; the type is never used.",
+    ),
     Deviation(
-        "2.5", "advisory", "the macros `{P}_TIMER_HZ` and `{P}_GRID_HZ`", ("{p}.h",),
+        "2.5",
+        "advisory",
+        "the macros `{P}_TIMER_HZ` and `{P}_GRID_HZ`",
+        ("{p}.h",),
         ("#define {P}_TIMER_HZ", "#define {P}_GRID_HZ"),
         "public constants of the header for the code that sets up the timers; the demodulator itself "
-        "works in timer ticks and does not use them."),
+        "works in timer ticks and does not use them.",
+    ),
     Deviation(
-        "8.9", "advisory", "the table `{p}_coef`", ("{p}.c",),
+        "8.9",
+        "advisory",
+        "the table `{p}_coef`",
+        ("{p}.c",),
         ("static const int16_t {p}_coef[", "static const int32_t {p}_coef["),
         "the IIR coefficient table stays a named const object at file scope beside the design constants, "
         "so that map files (and edgetally's target size check) attribute its flash by name; it has "
-        "internal linkage and one user, `{p}_post`."),
+        "internal linkage and one user, `{p}_post`.",
+    ),
     Deviation(
         "10.1", "required", "the shifts in `{p}_rshr` and `{p}_asr32`", ("{p}.c",),
         ("(x + (int64_t)half) >> s", "return x >> s;"),
@@ -69,8 +81,10 @@ def covers(rule: str, filename: str, line: str, prefix: str) -> Deviation | None
 
 def header_text(prefix: str) -> str:
     """The deviation list as the lines of a C block comment (each starting with " * ")."""
-    lines = [" * MISRA C:2012: this C, its header and the wiring skeleton follow every rule that cppcheck's",
-             " * MISRA addon checks, except these deviations (rule, category, where: why):"]
+    lines = [
+        " * MISRA C:2012: this C, its header and the wiring skeleton follow every rule that cppcheck's",
+        " * MISRA addon checks, except these deviations (rule, category, where: why):",
+    ]
     for dev in DEVIATIONS:
         text = f"Rule {dev.rule} ({dev.category}), {dev.where}: {dev.why}"
         for i, line in enumerate(textwrap.wrap(dev.fill(text, prefix).replace("`", ""), 92)):

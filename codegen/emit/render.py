@@ -21,8 +21,8 @@ from . import deviations
 
 @dataclass(frozen=True)
 class Function:
-    proto: str       # C prototype without the trailing semicolon
-    doc: str         # one comment line for the header
+    proto: str  # C prototype without the trailing semicolon
+    doc: str  # one comment line for the header
 
 
 def input_type(design: Design) -> str:
@@ -36,11 +36,15 @@ def api(design: Design) -> list[Function]:
     st, inp = f"{p}_state_t *s", f"{p}_input_t"
     fns = [
         Function(f"void {p}_init({st})", "Reset the state; the grid starts with the first inputs after this."),
-        Function(f"size_t {p}_process({st}, const {inp} *in, size_t n, {p}_sample_t *out, size_t cap, size_t *produced)",
-                 "Process n inputs (oldest first); at most cap samples to out, their number to *produced; "
-                 "returns the inputs consumed (fewer than n when out filled up: call again with the rest)."),
-        Function(f"size_t {p}_service({st}, {p}_sample_t *out, size_t cap)",
-                 "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap)."),
+        Function(
+            f"size_t {p}_process({st}, const {inp} *in, size_t n, {p}_sample_t *out, size_t cap, size_t *produced)",
+            "Process n inputs (oldest first); at most cap samples to out, their number to *produced; "
+            "returns the inputs consumed (fewer than n when out filled up: call again with the rest).",
+        ),
+        Function(
+            f"size_t {p}_service({st}, {p}_sample_t *out, size_t cap)",
+            "Main loop: process the inputs the ISRs queued; returns the samples written (<= cap).",
+        ),
     ]
     topo = design.topology
     if design.stamps:
@@ -50,17 +54,28 @@ def api(design: Design) -> list[Function]:
                             "writes muted samples for the grid instants that passed with no edges, so the "
                             "output rate holds through a signal loss. Returns the samples written (<= cap)."))
     if topo is Topology.CAPTURE:
-        fns.append(Function(f"void {p}_capture_isr({st}, {inp} stamp)",
-                            "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full)."))
+        fns.append(
+            Function(
+                f"void {p}_capture_isr({st}, {inp} stamp)",
+                "Capture interrupt: queue the captured timer value (drops it and counts an overrun if full).",
+            )
+        )
     elif topo is Topology.EDGE_STAMP:
-        fns.append(Function(f"void {p}_edge_isr({st}, {inp} timer_now)",
-                            "Edge interrupt: queue the free-running timer's value read at entry."))
+        fns.append(
+            Function(
+                f"void {p}_edge_isr({st}, {inp} timer_now)",
+                "Edge interrupt: queue the free-running timer's value read at entry.",
+            )
+        )
     elif topo is Topology.EDGE_COUNT:
         fns.append(Function(f"void {p}_edge_isr({st})", "Edge interrupt: count one IF edge."))
         fns.append(Function(f"void {p}_tick_isr({st})", "Grid timer interrupt: queue the edge count."))
     else:
-        fns.append(Function(f"void {p}_tick_isr({st}, {inp} count)",
-                            "Grid timer interrupt: queue the IF-clocked counter's value."))
+        fns.append(
+            Function(
+                f"void {p}_tick_isr({st}, {inp} count)", "Grid timer interrupt: queue the IF-clocked counter's value."
+            )
+        )
     fns += [
         Function(f"bool {p}_carrier_present(const {st})", "True while edges arrive at a plausible rate."),
         Function(f"bool {p}_squelch_open(const {st})",
@@ -69,15 +84,23 @@ def api(design: Design) -> list[Function]:
                  "The tuning offset: DC of the frequency estimate, in the units the header gives."),
         Function(f"uint32_t {p}_saturation_count(const {st})", "Internal data nodes that saturated so far."),
         Function(f"uint32_t {p}_clip_count(const {st})", "Output samples clipped to the output range so far."),
-        Function(f"uint32_t {p}_gap_count(const {st})",
-                 "Grid instants with no carrier so far (gaps, lost inputs and the resync after each: muted)."),
-        Function(f"uint32_t {p}_clamp_count(const {st})",
-                 "Grid steps outside the range this carrier can make so far (noise, spurious edges: muted)."),
-        Function(f"uint32_t {p}_overrun_count(const {st})",
-                 "Losses so far: inputs dropped because the queue was full, and calls of inputs_lost."),
-        Function(f"void {p}_inputs_lost({st})",
-                 "Inputs were lost before the next one (e.g. a DMA overrun): the interval across the loss is "
-                 "taken as a gap. Call from the context that calls process()."),
+        Function(
+            f"uint32_t {p}_gap_count(const {st})",
+            "Grid instants with no carrier so far (gaps, lost inputs and the resync after each: muted).",
+        ),
+        Function(
+            f"uint32_t {p}_clamp_count(const {st})",
+            "Grid steps outside the range this carrier can make so far (noise, spurious edges: muted).",
+        ),
+        Function(
+            f"uint32_t {p}_overrun_count(const {st})",
+            "Losses so far: inputs dropped because the queue was full, and calls of inputs_lost.",
+        ),
+        Function(
+            f"void {p}_inputs_lost({st})",
+            "Inputs were lost before the next one (e.g. a DMA overrun): the interval across the loss is "
+            "taken as a gap. Call from the context that calls process().",
+        ),
     ]
     return fns
 
@@ -128,7 +151,7 @@ class Port:
     clock: bool = False                # the main loop drives <name>_advance with the timer (stamp ISR designs)
 
 
-PORT_CHUNK = 16        # samples per service call: 32 or 64 bytes of stack (common practice, no source)
+PORT_CHUNK = 16  # samples per service call: 32 or 64 bytes of stack (common practice, no source)
 
 
 def port(design: Design) -> Port:
@@ -140,29 +163,47 @@ def port(design: Design) -> Port:
     per_queue = -(-design.queue_len * design.rates.out_hz // int(rate))
     ring = 1 << (max(2 * PORT_CHUNK, 4 * per_queue) - 1).bit_length()
     topo = design.topology
-    dma = b.dma and topo in (Topology.CAPTURE, Topology.COUNTER)     # as the header's wiring comment reads it
+    dma = b.dma and topo in (Topology.CAPTURE, Topology.COUNTER)  # as the header's wiring comment reads it
     handlers = []
-    hw = [Function(f"void {p}_hw_output_start(uint32_t rate_hz)",
-                   "Start the output timer at rate_hz, calling the output interrupt each period (DAC or PWM)."),
-          Function(f"void {p}_hw_output_write({p}_sample_t v)",
-                   f"Write one sample (format {design.output.format}) to the DAC or the PWM compare register."),
-          Function(f"void {p}_hw_output_stalled(void)", "The output ring is full: the output timer is not running."),
-          Function(f"void {p}_hw_mute(bool mute)", "Mute (true) or unmute the audio stage: the carrier is absent."),
-          Function(f"void {p}_hw_inputs_lost(uint32_t total)", "Inputs were lost (queue full or DMA late): total so far.")]
+    hw = [
+        Function(
+            f"void {p}_hw_output_start(uint32_t rate_hz)",
+            "Start the output timer at rate_hz, calling the output interrupt each period (DAC or PWM).",
+        ),
+        Function(
+            f"void {p}_hw_output_write({p}_sample_t v)",
+            f"Write one sample (format {design.output.format}) to the DAC or the PWM compare register.",
+        ),
+        Function(f"void {p}_hw_output_stalled(void)", "The output ring is full: the output timer is not running."),
+        Function(f"void {p}_hw_mute(bool mute)", "Mute (true) or unmute the audio stage: the carrier is absent."),
+        Function(
+            f"void {p}_hw_inputs_lost(uint32_t total)", "Inputs were lost (queue full or DMA late): total so far."
+        ),
+    ]
     if dma:
         what = "capture" if topo is Topology.CAPTURE else "counter"
         if topo is Topology.CAPTURE:
-            hw.append(Function(f"void {p}_hw_capture_dma_start({inp} *buf, uint32_t n, uint32_t prescale)",
-                               f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, input capture on "
-                               "every prescale-th IF edge, circular DMA of the captured values into buf[0..n-1] "
-                               "with half and full transfer interrupts."))
+            hw.append(
+                Function(
+                    f"void {p}_hw_capture_dma_start({inp} *buf, uint32_t n, uint32_t prescale)",
+                    f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, input capture on "
+                    "every prescale-th IF edge, circular DMA of the captured values into buf[0..n-1] "
+                    "with half and full transfer interrupts.",
+                )
+            )
         else:
-            hw.append(Function(f"void {p}_hw_counter_dma_start({inp} *buf, uint32_t n, uint32_t grid_ticks)",
-                               f"Start the {fr.counter_bits}-bit counter clocked by the IF and a grid timer of "
-                               "grid_ticks timer ticks whose event copies the counter by circular DMA into "
-                               "buf[0..n-1], with half and full transfer interrupts."))
-        handlers += [(f"{p}_port_dma_half_irq", f"{what} DMA half transfer"),
-                     (f"{p}_port_dma_full_irq", f"{what} DMA transfer complete")]
+            hw.append(
+                Function(
+                    f"void {p}_hw_counter_dma_start({inp} *buf, uint32_t n, uint32_t grid_ticks)",
+                    f"Start the {fr.counter_bits}-bit counter clocked by the IF and a grid timer of "
+                    "grid_ticks timer ticks whose event copies the counter by circular DMA into "
+                    "buf[0..n-1], with half and full transfer interrupts.",
+                )
+            )
+        handlers += [
+            (f"{p}_port_dma_half_irq", f"{what} DMA half transfer"),
+            (f"{p}_port_dma_full_irq", f"{what} DMA transfer complete"),
+        ]
     elif topo is Topology.CAPTURE:
         hw += [Function(f"void {p}_hw_capture_start(uint32_t prescale)",
                         f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz with input capture on "
@@ -172,25 +213,45 @@ def port(design: Design) -> Port:
                         f"The free-running {fr.timer_bits}-bit capture timer, read now.")]
         handlers.append((f"{p}_port_capture_irq", f"timer capture, one per {fr.prescale} IF edge(s)"))
     elif topo in (Topology.EDGE_STAMP, Topology.EDGE_COUNT):
-        hw.append(Function(f"void {p}_hw_edge_irq_start(void)", "Enable the comparator or pin interrupt on the IF edge."))
+        hw.append(
+            Function(f"void {p}_hw_edge_irq_start(void)", "Enable the comparator or pin interrupt on the IF edge.")
+        )
         if topo is Topology.EDGE_STAMP:
-            hw.append(Function(f"{inp} {p}_hw_timer_now(void)",
-                               f"The free-running {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, read now."))
+            hw.append(
+                Function(
+                    f"{inp} {p}_hw_timer_now(void)",
+                    f"The free-running {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz, read now.",
+                )
+            )
             handlers.append((f"{p}_port_edge_irq", "every IF edge"))
         else:
-            hw.append(Function(f"void {p}_hw_grid_timer_start(uint32_t grid_ticks)",
-                               "Start the grid timer: an interrupt every grid_ticks timer ticks."))
-            handlers += [(f"{p}_port_edge_irq", "every IF edge"),
-                         (f"{p}_port_tick_irq", f"grid timer, {design.rates.grid_hz} Hz")]
+            hw.append(
+                Function(
+                    f"void {p}_hw_grid_timer_start(uint32_t grid_ticks)",
+                    "Start the grid timer: an interrupt every grid_ticks timer ticks.",
+                )
+            )
+            handlers += [
+                (f"{p}_port_edge_irq", "every IF edge"),
+                (f"{p}_port_tick_irq", f"grid timer, {design.rates.grid_hz} Hz"),
+            ]
     else:
-        hw += [Function(f"void {p}_hw_grid_timer_start(uint32_t grid_ticks)",
-                        f"Start the {fr.counter_bits}-bit counter clocked by the IF and the grid timer: an interrupt "
-                        "every grid_ticks timer ticks."),
-               Function(f"{inp} {p}_hw_counter_value(void)", "The IF-clocked counter's value, read now.")]
+        hw += [
+            Function(
+                f"void {p}_hw_grid_timer_start(uint32_t grid_ticks)",
+                f"Start the {fr.counter_bits}-bit counter clocked by the IF and the grid timer: an interrupt "
+                "every grid_ticks timer ticks.",
+            ),
+            Function(f"{inp} {p}_hw_counter_value(void)", "The IF-clocked counter's value, read now."),
+        ]
         handlers.append((f"{p}_port_tick_irq", f"grid timer, {design.rates.grid_hz} Hz"))
     handlers.append((f"{p}_port_output_irq", f"output timer, {design.rates.out_hz} Hz"))
-    api = [Function(f"void {p}_port_start(void)", ""), Function(f"void {p}_port_poll(void)", ""),
-           Function(f"uint32_t {p}_port_pending(void)", ""), Function(f"int32_t {p}_port_offset(void)", "")]
+    api = [
+        Function(f"void {p}_port_start(void)", ""),
+        Function(f"void {p}_port_poll(void)", ""),
+        Function(f"uint32_t {p}_port_pending(void)", ""),
+        Function(f"int32_t {p}_port_offset(void)", ""),
+    ]
     api += [Function(f"void {n}(void)", d) for n, d in handlers]
     return Port(api=tuple(api), handlers=tuple(dict(name=n, doc=d) for n, d in handlers), hw=tuple(hw), ring=ring,
                 chunk=PORT_CHUNK, half=design.queue_len, dma=dma, clock=design.stamps and not dma)
@@ -201,9 +262,14 @@ def _env() -> jinja2.Environment:
     """The one template environment (made once: compiling the templates costs more than rendering)."""
     env = jinja2.Environment(
         loader=jinja2.FunctionLoader(
-            lambda name: importlib.resources.files("edgetally.c_templates").joinpath(name).read_text("utf-8")),
-        undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
-        autoescape=False)
+            lambda name: importlib.resources.files("edgetally.c_templates").joinpath(name).read_text("utf-8")
+        ),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+        autoescape=False,
+    )
     env.filters["hz"] = lambda v: f"{v:,.6g} Hz".replace(",", " ")
     env.filters["mhz"] = lambda v: f"{v / 1e6:g} MHz"
     env.filters["pct"] = lambda v: f"{100 * v:.1f} %"
@@ -211,8 +277,10 @@ def _env() -> jinja2.Environment:
 
 
 def banner(design: Design) -> str:
-    return (f"/* Generated by edgetally {design.tool_version} from a spec with hash {design.spec_hash}.\n"
-            f" * Design '{design.name}', scheme '{design.scheme}'. Do not edit: change the spec and emit again. */")
+    return (
+        f"/* Generated by edgetally {design.tool_version} from a spec with hash {design.spec_hash}.\n"
+        f" * Design '{design.name}', scheme '{design.scheme}'. Do not edit: change the spec and emit again. */"
+    )
 
 
 @dataclass(frozen=True)
@@ -265,7 +333,12 @@ def emit(design: Design) -> dict[str, str]:
     p = design.name
     inp = input_type(design)
     ctx = dict(
-        d=design, fr=design.front, p=p, P=p.upper(), banner=banner(design), api=api(design),
+        d=design,
+        fr=design.front,
+        p=p,
+        P=p.upper(),
+        banner=banner(design),
+        api=api(design),
         nsec=len(design.filters.sections),
         data_type="int16_t" if design.filters.data_bits == 16 else "int32_t",
         coef_type="int16_t" if design.filters.coef_width == 16 else "int32_t",

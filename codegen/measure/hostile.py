@@ -20,25 +20,30 @@ from ..ir import Design, Topology
 
 @dataclass(frozen=True)
 class ScenarioResult:
-    name: str                   # "signal-loss", "noise-burst", "timer-wrap", "inputs-lost", "frequency-step"
-    description: str            # one line: what was done to the input
-    bit_exact: bool             # C == model on the disturbed input, every sample
-    overflow_free: bool         # no saturation inside the chain (the certificate held)
-    flag: str                   # the status the C must raise ("carrier lost", "overrun", "out of range", "none")
-    flag_raised: bool           # raised when expected (or, for "none", nothing raised)
-    output_ok: bool             # muted or held during the disturbance, no wild samples
-    output_note: str            # what the output did, in words
-    recovery_ms: float          # from the end of the disturbance to normal output (measured)
+    name: str  # "signal-loss", "noise-burst", "timer-wrap", "inputs-lost", "frequency-step"
+    description: str  # one line: what was done to the input
+    bit_exact: bool  # C == model on the disturbed input, every sample
+    overflow_free: bool  # no saturation inside the chain (the certificate held)
+    flag: str  # the status the C must raise ("carrier lost", "overrun", "out of range", "none")
+    flag_raised: bool  # raised when expected (or, for "none", nothing raised)
+    output_ok: bool  # muted or held during the disturbance, no wild samples
+    output_note: str  # what the output did, in words
+    recovery_ms: float  # from the end of the disturbance to normal output (measured)
     predicted_recovery_ms: float  # what the plan predicts
-    trace_t_ms: tuple[float, ...] = ()     # a decimated view of the output around the disturbance, for plots
-    trace_out: tuple[float, ...] = ()      # the C output there (fraction of full scale)
-    trace_clean: tuple[float, ...] = ()    # the undisturbed output there
-    span_ms: tuple[float, float] = (0.0, 0.0)   # where the disturbance lies in the trace
+    trace_t_ms: tuple[float, ...] = ()  # a decimated view of the output around the disturbance, for plots
+    trace_out: tuple[float, ...] = ()  # the C output there (fraction of full scale)
+    trace_clean: tuple[float, ...] = ()  # the undisturbed output there
+    span_ms: tuple[float, float] = (0.0, 0.0)  # where the disturbance lies in the trace
 
     @property
     def passed(self) -> bool:
-        return (self.bit_exact and self.overflow_free and self.flag_raised and self.output_ok
-                and self.recovery_ms <= self.predicted_recovery_ms)
+        return (
+            self.bit_exact
+            and self.overflow_free
+            and self.flag_raised
+            and self.output_ok
+            and self.recovery_ms <= self.predicted_recovery_ms
+        )
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -47,16 +52,16 @@ class ScenarioResult:
 
 
 SCENARIOS = ("signal-loss", "noise-burst", "timer-wrap", "inputs-lost", "frequency-step")
-LEAD_S = 0.1              # filters settle (as verify's standard test)
-PRE_S = 0.05              # undisturbed signal before the disturbance
-GUARD_S = 0.01            # between the predicted recovery and the fitted stretch
-FIT_S = 0.1               # the stretch the undisturbed output is fitted on
-BURST_RATE = 10.0         # noise-burst edges per second, in multiples of the IF
-STEP_LEVEL = 0.7          # frequency steps between IF -+ this fraction of full-scale deviation ...
-STEP_HOLD_S = 0.01        # ... held this long each (square-wave FSK), the last one held to the end
-WRAP_PLACES = 16          # inputs at which the timer (or counter) is made to wrap, two ways each
-SERVICE_FRACTION = 2      # ISR designs: the service loop runs every queue_len / this inputs ...
-STALL_QUEUES = 3          # ... and stalls for this many queues' worth of inputs (inputs-lost)
+LEAD_S = 0.1  # filters settle (as verify's standard test)
+PRE_S = 0.05  # undisturbed signal before the disturbance
+GUARD_S = 0.01  # between the predicted recovery and the fitted stretch
+FIT_S = 0.1  # the stretch the undisturbed output is fitted on
+BURST_RATE = 10.0  # noise-burst edges per second, in multiples of the IF
+STEP_LEVEL = 0.7  # frequency steps between IF -+ this fraction of full-scale deviation ...
+STEP_HOLD_S = 0.01  # ... held this long each (square-wave FSK), the last one held to the end
+WRAP_PLACES = 16  # inputs at which the timer (or counter) is made to wrap, two ways each
+SERVICE_FRACTION = 2  # ISR designs: the service loop runs every queue_len / this inputs ...
+STALL_QUEUES = 3  # ... and stalls for this many queues' worth of inputs (inputs-lost)
 TRACE_POINTS = 400
 MUTE_FS = 0.02            # "muted": within 2 % of full scale (common practice, no source)
 RATE_SLACK_S = 0.01       # the output rate through a loss: within a sample per 10 ms (issue 12)
@@ -64,22 +69,23 @@ RATE_SLACK_S = 0.01       # the output rate through a loss: within a sample per 
 
 @dataclass(frozen=True)
 class Options:
-    loss_ms: float = 20.0          # signal-loss: no edges for this long
-    burst_ms: float = 2.0          # noise-burst: extra edges for this long
-    lost_inputs: int = 256         # inputs-lost, DMA designs: one buffer's worth of inputs dropped
+    loss_ms: float = 20.0  # signal-loss: no edges for this long
+    burst_ms: float = 2.0  # noise-burst: extra edges for this long
+    lost_inputs: int = 256  # inputs-lost, DMA designs: one buffer's worth of inputs dropped
     seed: int = 20261202
 
 
 @dataclass
 class _Case:
     """One disturbed run: what the hardware delivered, and where the disturbance lies in it."""
-    inputs: np.ndarray            # what the C is given (the kept inputs)
-    lost: list                    # indices in inputs that follow lost ones
-    start: int                    # first disturbed input
-    end: int                      # first input after the disturbance
+
+    inputs: np.ndarray  # what the C is given (the kept inputs)
+    lost: list  # indices in inputs that follow lost ones
+    start: int  # first disturbed input
+    end: int  # first input after the disturbance
     description: str
-    error_fs: float               # largest CIC-input error the disturbance can make (full-scale units)
-    stall: tuple | None = None    # ISR designs: drive the ISR and a late service loop instead
+    error_fs: float  # largest CIC-input error the disturbance can make (full-scale units)
+    stall: tuple | None = None  # ISR designs: drive the ISR and a late service loop instead
     all_inputs: np.ndarray | None = None
     step: bool = False            # the undisturbed model is a step, not the tone
     clock: list | None = None     # stamp designs: (k, now, t) calls of <name>_advance (see _clock)
@@ -110,7 +116,7 @@ def _first_input_at(design: Design, times: np.ndarray, t: float) -> int:
     """Index of the first input the hardware delivers at or after time t."""
     if design.front.kind == "count":
         return int(math.ceil(t * design.rates.grid_hz))
-    return int(np.searchsorted(times[::design.front.prescale], t))
+    return int(np.searchsorted(times[:: design.front.prescale], t))
 
 
 def _hardware(design: Design, times, duration, seed, start=None):
@@ -144,9 +150,14 @@ def _case_burst(design: Design, opt: Options, post: float) -> _Case:
     extra = rng.uniform(t0, t0 + dur, size=rng.poisson(BURST_RATE * design.if_hz * dur))
     merged = np.sort(np.concatenate([times, extra]))
     e = recovery.input_span_fs(design)
-    return _Case(_hardware(design, merged, total, opt.seed), [], _first_input_at(design, merged, t0),
-                 _first_input_at(design, merged, t0 + dur),
-                 f"random extra edges at {BURST_RATE:g} times the IF rate for {opt.burst_ms:g} ms", e)
+    return _Case(
+        _hardware(design, merged, total, opt.seed),
+        [],
+        _first_input_at(design, merged, t0),
+        _first_input_at(design, merged, t0 + dur),
+        f"random extra edges at {BURST_RATE:g} times the IF rate for {opt.burst_ms:g} ms",
+        e,
+    )
 
 
 def _case_lost(design: Design, opt: Options, post: float) -> _Case:
@@ -159,7 +170,7 @@ def _case_lost(design: Design, opt: Options, post: float) -> _Case:
     e = recovery.input_span_fs(design)
     if design.budget.dma:
         n = opt.lost_inputs
-        kept = np.concatenate([inputs[:j0], inputs[j0 + n:]])
+        kept = np.concatenate([inputs[:j0], inputs[j0 + n :]])
         return _Case(kept, [j0], j0, j0, f"{n} inputs lost in a DMA overrun, reported with inputs_lost()", e)
     every = max(1, design.queue_len // SERVICE_FRACTION)
     j0 -= j0 % every
@@ -167,9 +178,17 @@ def _case_lost(design: Design, opt: Options, post: float) -> _Case:
     keep = model.queue_kept(inputs.size, every, design.queue_len, stall)
     lost = [int(i) for i in model.lost_after(keep)]
     first = int(np.count_nonzero(keep[:j0]))
-    return _Case(inputs[keep], lost, first, lost[-1] if lost else first,
-                 f"service loop stalled for {STALL_QUEUES * design.queue_len} inputs: the ISR queue "
-                 f"({design.queue_len}) overflows", e, stall=(stall, every), all_inputs=inputs)
+    return _Case(
+        inputs[keep],
+        lost,
+        first,
+        lost[-1] if lost else first,
+        f"service loop stalled for {STALL_QUEUES * design.queue_len} inputs: the ISR queue "
+        f"({design.queue_len}) overflows",
+        e,
+        stall=(stall, every),
+        all_inputs=inputs,
+    )
 
 
 def _case_step(design: Design, opt: Options, post: float) -> _Case:
@@ -181,10 +200,11 @@ def _case_step(design: Design, opt: Options, post: float) -> _Case:
     knots = np.append(np.arange(0.0, t0 - STEP_HOLD_S / 2, STEP_HOLD_S), t0)
     n_seg = knots.size - 1
     # levels alternate so that the last one before t0 is low and the one after it high
-    freqs = [design.if_hz + (-1 if (n_seg - 1 - k) % 2 == 0 else 1) * STEP_LEVEL * design.full_scale_hz
-             for k in range(n_seg)] + [design.if_hz + STEP_LEVEL * design.full_scale_hz]
+    freqs = [
+        design.if_hz + (-1 if (n_seg - 1 - k) % 2 == 0 else 1) * STEP_LEVEL * design.full_scale_hz for k in range(n_seg)
+    ] + [design.if_hz + STEP_LEVEL * design.full_scale_hz]
     bounds = np.append(knots, total)
-    ph = 0.37                                                # start phase (cycles), arbitrary
+    ph = 0.37  # start phase (cycles), arbitrary
     pieces = []
     for a, b, f in zip(bounds[:-1], bounds[1:], freqs, strict=True):
         n = np.arange(math.floor(ph) + 1, math.floor(ph + f * (b - a)) + 1)
@@ -192,16 +212,26 @@ def _case_step(design: Design, opt: Options, post: float) -> _Case:
         ph += f * (b - a)
     times = np.concatenate(pieces)
     j = _first_input_at(design, times, t0)
-    return _Case(_hardware(design, times, total, opt.seed), [], j, j,
-                 f"square-wave FSK between IF -+ {STEP_LEVEL:g} of full-scale deviation, "
-                 f"{STEP_HOLD_S * 1000:g} ms per level; recovery after the last step up",
-                 2 * STEP_LEVEL, step=True)
+    return _Case(
+        _hardware(design, times, total, opt.seed),
+        [],
+        j,
+        j,
+        f"square-wave FSK between IF -+ {STEP_LEVEL:g} of full-scale deviation, "
+        f"{STEP_HOLD_S * 1000:g} ms per level; recovery after the last step up",
+        2 * STEP_LEVEL,
+        step=True,
+    )
 
 
-CASES = {"signal-loss": _case_loss, "noise-burst": _case_burst, "inputs-lost": _case_lost,
-         "frequency-step": _case_step}
-FLAGS = {"signal-loss": "carrier lost", "noise-burst": "out of range", "inputs-lost": "overrun",
-         "timer-wrap": "none", "frequency-step": "none"}
+CASES = {"signal-loss": _case_loss, "noise-burst": _case_burst, "inputs-lost": _case_lost, "frequency-step": _case_step}
+FLAGS = {
+    "signal-loss": "carrier lost",
+    "noise-burst": "out of range",
+    "inputs-lost": "overrun",
+    "timer-wrap": "none",
+    "frequency-step": "none",
+}
 
 
 def _flag(name: str, counters: dict, lost: bool) -> bool:
@@ -277,13 +307,21 @@ def run_scenario(design: Design, name: str, host=None, options: Options = Option
     step = max(1, (hi - lo) // TRACE_POINTS)
     k = np.arange(lo, hi, step)
     return ScenarioResult(
-        name=name, description=case.description, bit_exact=bit_exact, overflow_free=counters["saturations"] == 0,
-        flag=FLAGS[name], flag_raised=_flag(name, counters, bool(case.lost)), output_ok=ok, output_note=note,
-        recovery_ms=round(rec * 1000, 3), predicted_recovery_ms=round(pred * 1000, 3),
+        name=name,
+        description=case.description,
+        bit_exact=bit_exact,
+        overflow_free=counters["saturations"] == 0,
+        flag=FLAGS[name],
+        flag_raised=_flag(name, counters, bool(case.lost)),
+        output_ok=ok,
+        output_note=note,
+        recovery_ms=round(rec * 1000, 3),
+        predicted_recovery_ms=round(pred * 1000, 3),
         trace_t_ms=tuple(float(v) for v in np.round((k - n_start) / design.rates.out_hz * 1000, 3)),
         trace_out=tuple(float(v) for v in np.round(y[k], 5)),
         trace_clean=tuple(float(v) for v in np.round((y - e)[k], 5)),
-        span_ms=(0.0, round((n_end - n_start) / design.rates.out_hz * 1000, 3)))
+        span_ms=(0.0, round((n_end - n_start) / design.rates.out_hz * 1000, 3)),
+    )
 
 
 def _output_check(design: Design, name: str, y, n_start: int, n_end: int, counters: dict, case: _Case):
@@ -313,18 +351,22 @@ def _output_check(design: Design, name: str, y, n_start: int, n_end: int, counte
         note = (f"held: {n} samples while no edges came (a stamp design makes no grid instants without "
                 f"edges), then resynced; peak {worst:.3f} FS")
     elif not case.step and n > mem:
-        quiet = float(np.max(np.abs(y[n_start + mem:n_end])))
+        quiet = float(np.max(np.abs(y[n_start + mem : n_end])))
         ok = ok and quiet <= MUTE_FS
-        note = (f"muted: |out| <= {quiet:.4f} FS from {mem / design.rates.out_hz * 1000:.2f} ms into the "
-                f"disturbance; peak {worst:.3f} FS")
+        note = (
+            f"muted: |out| <= {quiet:.4f} FS from {mem / design.rates.out_hz * 1000:.2f} ms into the "
+            f"disturbance; peak {worst:.3f} FS"
+        )
     else:
         note = f"{n} samples during the disturbance; peak {worst:.3f} FS"
     if counters["clips"]:
         note += f"; {counters['clips']} samples clipped"
     if not ok and design.front.kind == "count" and design.front.diff_low == 0:
-        note += (f" (this counter reads at most {design.front.diff_limit} edges per grid instant, so small "
-                 f"counts are legal: a zero count is taken as signal until {design.front.gap_run} in a row "
-                 "say the carrier is lost, and a noise burst cannot always be told from the carrier)")
+        note += (
+            f" (this counter reads at most {design.front.diff_limit} edges per grid instant, so small "
+            f"counts are legal: a zero count is taken as signal until {design.front.gap_run} in a row "
+            "say the carrier is lost, and a noise burst cannot always be told from the carrier)"
+        )
     return ok, note
 
 
@@ -343,16 +385,23 @@ def _timer_wrap(design: Design, host, options: Options) -> ScenarioResult:
     same, runs = True, 0
     for j in places:
         for back in (0, 1):
-            start = (-(int(base[j]) + back)) % (1 << bits)      # input j reads 0 (or 2**bits - 1)
+            start = (-(int(base[j]) + back)) % (1 << bits)  # input j reads 0 (or 2**bits - 1)
             got, c = host.process(_hardware(design, times, total, options.seed, start=start))
             same &= bool(np.array_equal(got, ref)) and c["gaps"] == c0["gaps"] and c["clamps"] == c0["clamps"]
             runs += 1
     what = "timer" if design.stamps else "counter"
     return ScenarioResult(
-        name="timer-wrap", description=f"the {bits}-bit {what} wraps at {runs} places (at and just after "
-                                       f"{len(places)} inputs spread over the run)",
-        bit_exact=exact and same, overflow_free=c0["saturations"] == 0, flag="none",
-        flag_raised=c0["gaps"] == 0 and c0["clamps"] == 0, output_ok=same,
-        output_note=("identical to the run without a wrap on every sample" if same
-                     else "differs from the run without a wrap"),
-        recovery_ms=0.0, predicted_recovery_ms=0.0)
+        name="timer-wrap",
+        description=f"the {bits}-bit {what} wraps at {runs} places (at and just after "
+        f"{len(places)} inputs spread over the run)",
+        bit_exact=exact and same,
+        overflow_free=c0["saturations"] == 0,
+        flag="none",
+        flag_raised=c0["gaps"] == 0 and c0["clamps"] == 0,
+        output_ok=same,
+        output_note=(
+            "identical to the run without a wrap on every sample" if same else "differs from the run without a wrap"
+        ),
+        recovery_ms=0.0,
+        predicted_recovery_ms=0.0,
+    )

@@ -33,22 +33,22 @@ from dataclasses import dataclass
 
 import numpy as np
 
-EPS = float(np.finfo(np.float64).eps)   # 2^-52
+EPS = float(np.finfo(np.float64).eps)  # 2^-52
 
 
 @dataclass(frozen=True)
 class ToneFigures:
     """Figures of one test tone in a record (see the module docstring for the method)."""
 
-    tone_power: float                  # (a^2 + b^2) / 2 of the tone, joint fit
-    level: float                       # peak amplitude of the tone, joint fit
-    sinad_db: float                    # tone / in-band everything but tone and DC (== sinad_db())
-    snr_db: float                      # tone / in-band residual with the harmonics removed too
-    thd_db: float                      # sum of harmonic powers / tone power, dB
-    thd_percent: float                 # 100 sqrt(sum of harmonic powers / tone power)
-    noise_power: float                 # in-band residual power of the joint fit
-    harmonic_power: float              # sum of the fitted harmonics' powers (0 when none fitted)
-    harmonic_orders: tuple[int, ...]   # the harmonic orders that were fitted
+    tone_power: float  # (a^2 + b^2) / 2 of the tone, joint fit
+    level: float  # peak amplitude of the tone, joint fit
+    sinad_db: float  # tone / in-band everything but tone and DC (== sinad_db())
+    snr_db: float  # tone / in-band residual with the harmonics removed too
+    thd_db: float  # sum of harmonic powers / tone power, dB
+    thd_percent: float  # 100 sqrt(sum of harmonic powers / tone power)
+    noise_power: float  # in-band residual power of the joint fit
+    harmonic_power: float  # sum of the fitted harmonics' powers (0 when none fitted)
+    harmonic_orders: tuple[int, ...]  # the harmonic orders that were fitted
 
 
 def _sinusoids(n: int, fs: float, freqs: list[float]) -> np.ndarray:
@@ -80,7 +80,7 @@ def band_power(x: np.ndarray, fs: float, lo: float, hi: float) -> float:
     # one-sided: every selected bin is doubled, DC and Nyquist included (so a band reaching 0 Hz or
     # fs/2 counts those two bins twice; the audio bands used start above DC and end below fs/2);
     # normalised by the window energy so that white noise keeps its power
-    scale = 2.0 / (x.size * np.sum(win ** 2))
+    scale = 2.0 / (x.size * np.sum(win**2))
     return float(np.sum(spec[sel]) * scale)
 
 
@@ -96,26 +96,27 @@ def _check_tone(fs: float, tone_hz: float) -> None:
         raise ValueError(f"tone_hz {tone_hz} must lie strictly between 0 and fs/2 = {fs / 2}")
 
 
-def tone_analysis(x: np.ndarray, fs: float, tone_hz: float, band_lo: float, band_hi: float,
-                  harmonics: int = 5) -> ToneFigures:
+def tone_analysis(
+    x: np.ndarray, fs: float, tone_hz: float, band_lo: float, band_hi: float, harmonics: int = 5
+) -> ToneFigures:
     """SINAD, SNR, THD and level of the tone at tone_hz, counted over [band_lo, band_hi]."""
     _check_tone(fs, tone_hz)
     if harmonics < 1:
         raise ValueError(f"harmonics must be >= 1 (1 = the tone alone), got {harmonics}")
     x = np.asarray(x, dtype=np.float64)
-    mean_square = float(np.mean(x ** 2)) if x.size else 0.0
+    mean_square = float(np.mean(x**2)) if x.size else 0.0
     if mean_square == 0.0:
         raise ValueError("the record is all zeros: there is no tone to measure")
-    floor = EPS ** 2 * mean_square
+    floor = EPS**2 * mean_square
 
     orders = tuple(k for k in range(2, harmonics + 1) if k * tone_hz < band_hi and k * tone_hz < fs / 2)
     basis = _sinusoids(x.size, fs, [tone_hz] + [k * tone_hz for k in orders])
     coef, *_ = np.linalg.lstsq(basis, x, rcond=None)
-    powers = (coef[1::2] ** 2 + coef[2::2] ** 2) / 2          # tone, then each harmonic
+    powers = (coef[1::2] ** 2 + coef[2::2] ** 2) / 2  # tone, then each harmonic
     p_tone, p_harm = float(powers[0]), float(np.sum(powers[1:]))
     p_noise = band_power(x - basis @ coef, fs, band_lo, band_hi)
 
-    p_tone1, resid1 = tone_fit(x, fs, tone_hz)                 # the SINAD of sinad_db, floored
+    p_tone1, resid1 = tone_fit(x, fs, tone_hz)  # the SINAD of sinad_db, floored
     p_nad = band_power(resid1, fs, band_lo, band_hi)
     return ToneFigures(
         tone_power=p_tone,

@@ -28,8 +28,8 @@ from scipy import signal
 from ..dsp import cic
 from ..ir import Design
 
-THRESHOLD_FS = 0.01      # "normal" = within 1 % of full scale of the undisturbed output (common practice, no source)
-NOISE_SIGMAS = 6.0       # or six noise standard deviations, when the design's own noise is larger
+THRESHOLD_FS = 0.01  # "normal" = within 1 % of full scale of the undisturbed output (common practice, no source)
+NOISE_SIGMAS = 6.0  # or six noise standard deviations, when the design's own noise is larger
 
 
 def chain_impulse(design: Design) -> np.ndarray:
@@ -38,12 +38,12 @@ def chain_impulse(design: Design) -> np.ndarray:
     taps = cic.taps(c.order, c.ratio).astype(np.float64)
     taps /= taps.sum()
     sos = np.array([list(s.float_sos) for s in design.filters.sections])
-    n_out = int(design.rates.out_hz * 2.0)               # two seconds: far beyond any design's memory
+    n_out = int(design.rates.out_hz * 2.0)  # two seconds: far beyond any design's memory
     imp = np.zeros(n_out)
     imp[0] = 1.0
     h_out = signal.sosfilt(sos, imp)
     up = np.zeros(n_out * c.ratio)
-    up[::c.ratio] = h_out
+    up[:: c.ratio] = h_out
     return signal.fftconvolve(taps, up)[: up.size]
 
 
@@ -106,7 +106,7 @@ def tone_basis(n: int, tone_hz: float, out_hz: float) -> np.ndarray:
 def step_basis(n: int, start: int, dc_shift: int) -> np.ndarray:
     """A constant and the offset tracker's decay (1 - 2**-dc_shift)**(k - start) after ``start``."""
     k = np.arange(n) - start
-    r = 1.0 - 2.0 ** -dc_shift
+    r = 1.0 - 2.0**-dc_shift
     return np.column_stack([np.ones(n), np.where(k >= 0, r ** np.maximum(k, 0), 0.0)])
 
 

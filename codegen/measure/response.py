@@ -11,7 +11,7 @@ from ..dsp import cic
 from ..designer import wordlength
 from ..ir import Design
 
-FLOOR_DB = -160.0          # dB values are clipped here (zeros of the response)
+FLOOR_DB = -160.0  # dB values are clipped here (zeros of the response)
 
 
 def floor_db(x) -> np.ndarray:
@@ -31,6 +31,6 @@ def chain_response(design: Design, f_hz: np.ndarray) -> tuple[np.ndarray, np.nda
     cic_db = cic.response_db(f / out_hz, c.order, c.ratio)
     _, hq = signal.sosfreqz(np.array(wordlength.quantised_rows(design.filters, sc.q)), worN=f, fs=out_hz)
     _, hf = signal.sosfreqz(np.array([list(s.float_sos) for s in design.filters.sections]), worN=f, fs=out_hz)
-    exact_gain = design.hz_per_cic_lsb / design.full_scale_hz * 2.0 ** sc.q
-    scale_db = 20 * math.log10(sc.mult / 2.0 ** sc.shift / exact_gain)
+    exact_gain = design.hz_per_cic_lsb / design.full_scale_hz * 2.0**sc.q
+    scale_db = 20 * math.log10(sc.mult / 2.0**sc.shift / exact_gain)
     return cic_db + floor_db(hq) + scale_db, cic_db + floor_db(hf)

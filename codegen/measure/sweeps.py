@@ -23,13 +23,13 @@ KINDS = ("cnr", "tone", "deviation", "offset")
 
 @dataclass(frozen=True)
 class SweepPoint:
-    x: float                          # the swept value, in the sweep's unit
-    bit_exact: bool                   # C output == integer model output, every sample
-    sinad_db: float                   # of the C output
-    float_sinad_db: float             # of the floating-point reference on the same inputs
-    snr_db: float                     # C output: tone over noise (harmonics left out)
-    thd_db: float                     # C output: harmonics 2..5 over the tone
-    level_db: float                   # C output tone level, dB relative to full-scale deviation
+    x: float  # the swept value, in the sweep's unit
+    bit_exact: bool  # C output == integer model output, every sample
+    sinad_db: float  # of the C output
+    float_sinad_db: float  # of the floating-point reference on the same inputs
+    snr_db: float  # C output: tone over noise (harmonics left out)
+    thd_db: float  # C output: harmonics 2..5 over the tone
+    level_db: float  # C output tone level, dB relative to full-scale deviation
     predicted_db: float | None = None  # the prediction this sweep is compared with, if any
     offset_hz: float | None = None    # the offset output at the end, in Hz
     flags: dict = field(default_factory=dict)   # gaps, clamps, saturations, clips of the C run
@@ -39,12 +39,12 @@ class SweepPoint:
 
 @dataclass(frozen=True)
 class Sweep:
-    kind: str                         # one of KINDS
-    label: str                        # axis label of x, e.g. "IF CNR in the Carson band (dB)"
-    unit: str                         # "dB", "Hz"
+    kind: str  # one of KINDS
+    label: str  # axis label of x, e.g. "IF CNR in the Carson band (dB)"
+    unit: str  # "dB", "Hz"
     points: tuple[SweepPoint, ...]
-    curves: dict = field(default_factory=dict)   # extra named curves {name: ([x...], [y...])}, e.g. the design response
-    notes: tuple[str, ...] = ()       # what the figures mean, e.g. where the threshold lies
+    curves: dict = field(default_factory=dict)  # extra named curves {name: ([x...], [y...])}, e.g. the design response
+    notes: tuple[str, ...] = ()  # what the figures mean, e.g. where the threshold lies
 
     @property
     def bit_exact(self) -> bool:
@@ -54,8 +54,8 @@ class Sweep:
         return asdict(self)
 
 
-LEAD_S = 0.1               # filters and the offset tracker settle; compared bit for bit, not measured
-SECONDS = 0.3              # measured stretch per point
+LEAD_S = 0.1  # filters and the offset tracker settle; compared bit for bit, not measured
+SECONDS = 0.3  # measured stretch per point
 HARMONICS = 5
 
 
@@ -86,20 +86,25 @@ def check_points(design: Design, kind: str, pts: list[float] | None) -> None:
         if kind == "deviation" and not 0 < v < 0.95 * design.if_hz:
             raise ValueError(f"{v:g}: a deviation must lie in (0, {0.95 * design.if_hz:g}) Hz (below the IF)")
         if kind == "offset" and not abs(v) + design.full_scale_hz < design.if_hz:
-            raise ValueError(f"{v:g}: |offset| + full-scale deviation must stay below the IF "
-                             f"({design.if_hz - design.full_scale_hz:g} Hz at most)")
+            raise ValueError(
+                f"{v:g}: |offset| + full-scale deviation must stay below the IF "
+                f"({design.if_hz - design.full_scale_hz:g} Hz at most)"
+            )
         if kind == "cnr" and not -20 <= v <= 100:
             raise ValueError(f"{v:g}: a CNR must lie in [-20, 100] dB")
 
 
-def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
-             predicted: float | None) -> SweepPoint:
+def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float, predicted: float | None) -> SweepPoint:
     """Run the C and the model on the inputs, check them bit for bit, measure the C and the float
     reference past LEAD_S."""
     got, counters = host.process(inputs)
     want = model.run(design, inputs)
-    exact = (got.size == want.out.size and bool(np.array_equal(got, want.out))
-             and counters["gaps"] == want.gaps and counters["clamps"] == want.clamps)
+    exact = (
+        got.size == want.out.size
+        and bool(np.array_equal(got, want.out))
+        and counters["gaps"] == want.gaps
+        and counters["clamps"] == want.clamps
+    )
     ref = reference.run(design, inputs)
     fs = design.rates.out_hz
     skip = int(round(LEAD_S * fs))
@@ -110,8 +115,13 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
     a = metrics.tone_analysis(y, fs, tone_hz, *band, harmonics=HARMONICS)
     flt = metrics.sinad_db(design.output.fraction(ref[skip:]), fs, tone_hz, *band)
     return SweepPoint(
-        x=float(x), bit_exact=exact, sinad_db=round(a.sinad_db, 2), float_sinad_db=round(flt, 2),
-        snr_db=round(a.snr_db, 2), thd_db=round(a.thd_db, 2), level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),
+        x=float(x),
+        bit_exact=exact,
+        sinad_db=round(a.sinad_db, 2),
+        float_sinad_db=round(flt, 2),
+        snr_db=round(a.snr_db, 2),
+        thd_db=round(a.thd_db, 2),
+        level_db=round(20 * math.log10(max(a.level, 1e-12)), 3),
         predicted_db=None if predicted is None else round(float(predicted), 2),
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 2),
         flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")},
@@ -129,9 +139,11 @@ def _inputs(design: Design, sig: signals.FmSignal, seed: int, times: np.ndarray 
 
 def _tone(design: Design, tone_hz: float, dev_hz: float, seed: int, offset_hz: float = 0.0) -> signals.FmSignal:
     rng = np.random.default_rng(seed)
-    return signals.FmSignal(if_hz=design.if_hz + offset_hz,
-                            tones=(signals.Tone(tone_hz, dev_hz, float(rng.uniform(0, 2 * np.pi))),),
-                            start_phase=float(rng.uniform(0, 1)))
+    return signals.FmSignal(
+        if_hz=design.if_hz + offset_hz,
+        tones=(signals.Tone(tone_hz, dev_hz, float(rng.uniform(0, 2 * np.pi))),),
+        start_phase=float(rng.uniform(0, 1)),
+    )
 
 
 def chain_noise_gain_db(design: Design, tone_hz: float) -> float:
@@ -143,12 +155,18 @@ def chain_noise_gain_db(design: Design, tone_hz: float) -> float:
     f = np.linspace(design.test.band_lo_hz, w, 4001)
     q_db, _ = response.chain_response(design, np.append(f, tone_hz))
     g2 = 10 ** ((q_db[:-1] - q_db[-1]) / 10)
-    shaped = np.trapezoid(f ** 2 * g2, f) if hasattr(np, "trapezoid") else np.trapz(f ** 2 * g2, f)  # type: ignore[attr-defined]
-    return float(10 * math.log10((w ** 3 / 3) / shaped))
+    shaped = np.trapezoid(f**2 * g2, f) if hasattr(np, "trapezoid") else np.trapz(f**2 * g2, f)  # type: ignore[attr-defined]
+    return float(10 * math.log10((w**3 / 3) / shaped))
 
 
-def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed: int = 20261202,
-              host=None, progress: Callable[[int, int], None] | None = None) -> Sweep:
+def run_sweep(
+    design: Design,
+    kind: str,
+    points: list[float] | None = None,
+    seed: int = 20261202,
+    host=None,
+    progress: Callable[[int, int], None] | None = None,
+) -> Sweep:
     """One sweep: every point runs the emitted C (``host``, built if None) and the integer model on
     the same inputs and compares them in full. ``progress(done, total)`` after each point."""
     from ..check import hostbuild
@@ -165,13 +183,17 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
         fine = np.geomspace(min(xs), max(xs), 200)
         q_db, f_db = response.chain_response(design, fine)
         lvl = 20 * math.log10(level)
-        curves = {"designed, integer coefficients": (fine.tolist(), (q_db + lvl).tolist()),
-                  "designed, floating point": (fine.tolist(), (f_db + lvl).tolist())}
+        curves = {
+            "designed, integer coefficients": (fine.tolist(), (q_db + lvl).tolist()),
+            "designed, floating point": (fine.tolist(), (f_db + lvl).tolist()),
+        }
         notes.append(f"tone at {level:g} of full-scale deviation; level in dB of full-scale deviation")
     if kind == "cnr":
         gain = chain_noise_gain_db(design, tone)
-        notes.append(f"textbook above-threshold SNR 3 beta^2 (beta + 1) CNR (Haykin), beta = {dev:g} Hz / "
-                     f"{design.audio_hz:g} Hz, CNR in the Carson band; this chain's filters add {gain:.2f} dB")
+        notes.append(
+            f"textbook above-threshold SNR 3 beta^2 (beta + 1) CNR (Haykin), beta = {dev:g} Hz / "
+            f"{design.audio_hz:g} Hz, CNR in the Carson band; this chain's filters add {gain:.2f} dB"
+        )
     for n, x in enumerate(xs):
         predicted = None
         if kind == "cnr":
@@ -197,23 +219,33 @@ def run_sweep(design: Design, kind: str, points: list[float] | None = None, seed
             progress(n + 1, len(xs))
     if kind == "cnr":
         with_filters = [p.predicted_db + gain for p in out]  # type: ignore[operator]  # set on every cnr point
-        curves = {"formula 3 beta^2 (beta+1) CNR": (xs, [p.predicted_db for p in out]),
-                  "formula with this chain's filters": (xs, with_filters)}
+        curves = {
+            "formula 3 beta^2 (beta+1) CNR": (xs, [p.predicted_db for p in out]),
+            "formula with this chain's filters": (xs, with_filters),
+        }
     if kind == "deviation":
         inside = [p for p in out if p.x <= design.full_scale_hz and p.flags.get("clips", 0) == 0]
         if inside:
             per_khz = np.median([10 ** (p.level_db / 20) / (p.x / 1000) for p in inside])
-            notes.append(f"output {per_khz * 100:.4g} % of full scale per kHz of deviation "
-                         f"({per_khz * 2 ** 15:.5g} LSB of a 16-bit output per kHz, 1 kHz tone)")
+            notes.append(
+                f"output {per_khz * 100:.4g} % of full scale per kHz of deviation "
+                f"({per_khz * 2**15:.5g} LSB of a 16-bit output per kHz, 1 kHz tone)"
+            )
         notes.append(f"spec'd full-scale deviation {design.full_scale_hz:g} Hz; past it the output clips")
     if kind == "offset":
         curves = {"ideal: offset output = carrier offset": (xs, xs)}
-        tau = 2 ** design.scale.dc_shift / design.rates.out_hz
+        tau = 2**design.scale.dc_shift / design.rates.out_hz
         left = math.exp(-(LEAD_S + SECONDS) / tau)
-        notes.append(f"the offset output at the end of each run against the carrier's known offset; the offset "
-                     f"tracker's time constant is {tau * 1000:.0f} ms, so {left * 100:.2g} % of a step is still "
-                     "to come after the run")
-    labels = {"cnr": ("IF CNR in the Carson band (dB)", "dB"), "tone": ("tone frequency (Hz)", "Hz"),
-              "deviation": ("peak deviation (Hz)", "Hz"), "offset": ("carrier offset from the IF (Hz)", "Hz")}
+        notes.append(
+            f"the offset output at the end of each run against the carrier's known offset; the offset "
+            f"tracker's time constant is {tau * 1000:.0f} ms, so {left * 100:.2g} % of a step is still "
+            "to come after the run"
+        )
+    labels = {
+        "cnr": ("IF CNR in the Carson band (dB)", "dB"),
+        "tone": ("tone frequency (Hz)", "Hz"),
+        "deviation": ("peak deviation (Hz)", "Hz"),
+        "offset": ("carrier offset from the IF (Hz)", "Hz"),
+    }
     label, unit = labels[kind]
     return Sweep(kind=kind, label=label, unit=unit, points=tuple(out), curves=curves, notes=tuple(notes))

@@ -21,11 +21,11 @@ from ..ir import CountFront, StampFront
 from .schemes import Variant
 from ..spec import Spec, SpecError
 
-CIC_ORDER = 3          # Hogenauer CIC order; N >= 2 after a counter (DESIGN.md section 4)
+CIC_ORDER = 3  # Hogenauer CIC order; N >= 2 after a counter (DESIGN.md section 4)
 MAX_RATIO = 64
-MAX_PHASE_SHIFT = 24   # finer phase than 2^-24 of a stamp interval buys nothing at any timer rate
+MAX_PHASE_SHIFT = 24  # finer phase than 2^-24 of a stamp interval buys nothing at any timer rate
 MIN_PHASE_SHIFT = 8
-CUBIC_MIN_SHIFT = 12   # the cubic correction reads the fraction in Q12
+CUBIC_MIN_SHIFT = 12  # the cubic correction reads the fraction in Q12
 CUBIC_DELTA_LIMIT = 4096
 MAX_STEP_SHIFT = 12
 REG_BITS = 32          # CIC registers and the phase word are 32-bit on every target
@@ -51,10 +51,10 @@ class Option:
     quant_sinad_db: float
     curvature_sinad_db: float
     jitter_sinad_db: float
-    kept: bool             # the chosen option
+    kept: bool  # the chosen option
     reason: str
     feasible: bool = False
-    doubtful: bool = False     # the prediction may be several dB off (schemes.doubt)
+    doubtful: bool = False  # the prediction may be several dB off (schemes.doubt)
 
 
 @dataclass(frozen=True)
@@ -100,9 +100,13 @@ def _checked_filters(spec: Spec) -> list:
         except ValueError:
             fld = FILTER_FIELDS[role]
             val = sig.audio_hz if role == "lowpass" else sig.deemphasis_us
-            raise SpecError(fld, val, f"the {role} filter at {out.rate_hz} Hz output has poles too close to "
-                                      f"z = 1 for Q{iir.COEF_BITS} coefficients; its corner must be a larger "
-                                      "fraction of the output rate") from None
+            raise SpecError(
+                fld,
+                val,
+                f"the {role} filter at {out.rate_hz} Hz output has poles too close to "
+                f"z = 1 for Q{iir.COEF_BITS} coefficients; its corner must be a larger "
+                "fraction of the output rate",
+            ) from None
     return [sos for _, sos in filters]
 
 
@@ -144,22 +148,29 @@ def _count_front(spec: Spec, ratio: int, grid_hz: int, grid_ticks: int):
     f_hi = sig.if_hz + OVERDEVIATION * sig.deviation_hz
     f_lo = max(0.0, sig.if_hz - OVERDEVIATION * sig.deviation_hz)
     diff_limit = math.ceil(f_hi / grid_hz)
-    diff_low = max(0, math.floor(f_lo / grid_hz) - 1)     # one count of margin: the count's own +-1 error
+    diff_low = max(0, math.floor(f_lo / grid_hz) - 1)  # one count of margin: the count's own +-1 error
     growth = math.ceil(CIC_ORDER * math.log2(ratio) - 1e-12)
     for shift in range(min(MAX_STEP_SHIFT, REG_BITS - tgt.counter_bits), -1, -1):
         x_limit = diff_limit << shift
         in_bits = x_limit.bit_length() + 1
         if in_bits + growth <= REG_BITS - 1:
             front = CountFront(
-                counter_bits=tgt.counter_bits, grid_ticks=grid_ticks, step_shift=shift,
+                counter_bits=tgt.counter_bits,
+                grid_ticks=grid_ticks,
+                step_shift=shift,
                 gap_run=math.ceil(grid_hz / (GAP_FRACTION * (sig.if_hz - sig.deviation_hz))),
-                diff_limit=diff_limit, diff_low=diff_low, x_limit=x_limit, x_centre=round(sig.if_hz / grid_hz * (1 << shift)))
+                diff_limit=diff_limit,
+                diff_low=diff_low,
+                x_limit=x_limit,
+                x_centre=round(sig.if_hz / grid_hz * (1 << shift)),
+            )
             return (front, in_bits), None
     return None, "no 32-bit count word fits this ratio"
 
 
-def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, only_ratio: int | None,
-                exclude: dict | None = None) -> list[_Cand]:
+def _candidates(
+    spec: Spec, v: Variant, impossible: str | None, post_sos: list, only_ratio: int | None, exclude: dict | None = None
+) -> list[_Cand]:
     sig, out, tgt = spec.signal, spec.output, spec.target
     ticks_per_out = tgt.timer_hz // out.rate_hz
     edge_max = sig.if_hz + sig.deviation_hz
@@ -193,15 +204,29 @@ def _candidates(spec: Spec, v: Variant, impossible: str | None, post_sos: list, 
                            f"{tgt.cpu_budget:.0%} that the cycle estimates need")
         if reason is None and exclude and (v.scheme, v.label, ratio) in exclude:
             reason = exclude[(v.scheme, v.label, ratio)]
-        doubtful = schemes.doubt(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, grid_hz=grid_hz, pred=pr) is not None
-        opt = Option(v.scheme, v.label, ratio, grid_hz, ld.fraction, ld.ram_bytes, pr.sinad_db, pr.quant_sinad_db,
-                     pr.curvature_sinad_db, pr.jitter_sinad_db, reason is None, reason or "feasible",
-                     doubtful=doubtful)
+        doubtful = (
+            schemes.doubt(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, grid_hz=grid_hz, pred=pr) is not None
+        )
+        opt = Option(
+            v.scheme,
+            v.label,
+            ratio,
+            grid_hz,
+            ld.fraction,
+            ld.ram_bytes,
+            pr.sinad_db,
+            pr.quant_sinad_db,
+            pr.curvature_sinad_db,
+            pr.jitter_sinad_db,
+            reason is None,
+            reason or "feasible",
+            doubtful=doubtful,
+        )
         cands.append(_Cand(v, opt, words[0] if words else None, words[1] if words else 0, ld, pr, qlen))
     return cands
 
 
-DMA_CYCLES_PER_TRANSFER = 4   # estimate: one peripheral-to-memory transfer every 4 CPU cycles at most
+DMA_CYCLES_PER_TRANSFER = 4  # estimate: one peripheral-to-memory transfer every 4 CPU cycles at most
 
 
 def _rate_limit(spec: Spec, v: Variant, ld: schemes.Load, grid_hz: int) -> str | None:
@@ -211,10 +236,17 @@ def _rate_limit(spec: Spec, v: Variant, ld: schemes.Load, grid_hz: int) -> str |
     edge_max = sig.if_hz + sig.deviation_hz
     event_hz = edge_max / v.prescale if v.front == "stamp" else edge_max
     if ld.per_edge and ld.per_edge > tgt.cpu_hz / event_hz:
-        return (f"the edge ISR ({ld.per_edge} cycles) outlasts the shortest interval between edges "
-                f"({tgt.cpu_hz / event_hz:.0f} cycles)")
-    dma_hz = (edge_max / v.prescale if v.front == "stamp" and tgt.capture_dma
-              else grid_hz if v.scheme == "counter" and tgt.counter_dma else 0.0)
+        return (
+            f"the edge ISR ({ld.per_edge} cycles) outlasts the shortest interval between edges "
+            f"({tgt.cpu_hz / event_hz:.0f} cycles)"
+        )
+    dma_hz = (
+        edge_max / v.prescale
+        if v.front == "stamp" and tgt.capture_dma
+        else grid_hz
+        if v.scheme == "counter" and tgt.counter_dma
+        else 0.0
+    )
     if dma_hz * DMA_CYCLES_PER_TRANSFER > tgt.cpu_hz:
         return f"DMA would need {dma_hz:.0f} transfers a second, more than one per {DMA_CYCLES_PER_TRANSFER} cycles"
     return None
@@ -238,8 +270,13 @@ def _best_of_variant(spec: Spec, cands: list[_Cand]) -> _Cand | None:
     return _choose(feasible)
 
 
-def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, ratio: int | None = None,
-         exclude: dict | None = None) -> Plan:
+def plan(
+    spec: Spec,
+    scheme: str | None = None,
+    variant: str | None = None,
+    ratio: int | None = None,
+    exclude: dict | None = None,
+) -> Plan:
     """Plan the demodulator for ``spec``. ``scheme`` forces one of SCHEMES; ``variant`` (a label
     from the option table) and ``ratio`` narrow the choice further; ``exclude`` maps
     (scheme, variant, ratio) to the reason an option may not be used (e.g. its measured load)."""
@@ -256,9 +293,12 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
     if variant is not None and not per_variant:
         raise SpecError("--variant", variant, "is not a variant of " + (scheme or "any scheme") + " on this part")
     if not any(c for _, c, _ in per_variant):
-        raise SpecError("output.rate_hz", out.rate_hz,
-                        f"no CIC ratio from 2 to {MAX_RATIO} divides the {tgt.timer_hz // out.rate_hz} timer ticks "
-                        "of one output period; choose a rate that leaves a small factor")
+        raise SpecError(
+            "output.rate_hz",
+            out.rate_hz,
+            f"no CIC ratio from 2 to {MAX_RATIO} divides the {tgt.timer_hz // out.rate_hz} timer ticks "
+            "of one output period; choose a rate that leaves a small factor",
+        )
     bests = [b for _, _, b in per_variant if b is not None]
     # Trust the formulas only where they hold: an option whose prediction is in doubt is taken
     # only when no option without doubt is feasible.
@@ -280,25 +320,47 @@ def plan(spec: Spec, scheme: str | None = None, variant: str | None = None, rati
     notes = list(spec.warnings)
     droop = cic.droop_db(sig.audio_hz, out.rate_hz, CIC_ORDER, chosen.option.ratio)
     lim = spec.fixed.droop_limit_db
-    notes.append(f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB ("
-                 + ("flattened by a compensation FIR" if 0 < lim < droop else
-                    "within fixed.droop_limit_db" if lim > 0 else "not compensated: set fixed.droop_limit_db to flatten it")
-                 + ")")
+    notes.append(
+        f"CIC droop at the band edge {sig.audio_hz:g} Hz: {droop:.2f} dB ("
+        + (
+            "flattened by a compensation FIR"
+            if 0 < lim < droop
+            else "within fixed.droop_limit_db"
+            if lim > 0
+            else "not compensated: set fixed.droop_limit_db to flatten it"
+        )
+        + ")"
+    )
     pr = chosen.pred
     if pr.curvature_sinad_db < pr.quant_sinad_db - 3:
-        notes.append("linear interpolation (phase curvature within one stamp interval) limits quality "
-                     f"to about {pr.curvature_sinad_db:.1f} dB, below the timer's {pr.quant_sinad_db:.1f} dB")
-    why = schemes.doubt(chosen.variant, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz,
-                        grid_hz=chosen.option.grid_hz, pred=pr)
+        notes.append(
+            "linear interpolation (phase curvature within one stamp interval) limits quality "
+            f"to about {pr.curvature_sinad_db:.1f} dB, below the timer's {pr.quant_sinad_db:.1f} dB"
+        )
+    why = schemes.doubt(
+        chosen.variant, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, grid_hz=chosen.option.grid_hz, pred=pr
+    )
     if why:
-        notes.append(f"the prediction for the chosen option may be off by several dB: {why}; "
-                     "'plan --simulate' measures it")
+        notes.append(
+            f"the prediction for the chosen option may be off by several dB: {why}; 'plan --simulate' measures it"
+        )
     if scheme is not None:
         notes.append(f"scheme forced to {scheme}")
-    assert chosen.front is not None                  # a feasible option has its front end's words
-    return Plan(scheme=chosen.variant.scheme, variant=chosen.variant.label, front=chosen.front,
-                ratio=chosen.option.ratio, order=CIC_ORDER, grid_hz=chosen.option.grid_hz, cic_in_bits=chosen.in_bits,
-                queue_len=chosen.queue_len, load=chosen.load, prediction=pr, options=tuple(rows), notes=tuple(notes))
+    assert chosen.front is not None  # a feasible option has its front end's words
+    return Plan(
+        scheme=chosen.variant.scheme,
+        variant=chosen.variant.label,
+        front=chosen.front,
+        ratio=chosen.option.ratio,
+        order=CIC_ORDER,
+        grid_hz=chosen.option.grid_hz,
+        cic_in_bits=chosen.in_bits,
+        queue_len=chosen.queue_len,
+        load=chosen.load,
+        prediction=pr,
+        options=tuple(rows),
+        notes=tuple(notes),
+    )
 
 
 def _collapse_missing_hardware(rows: list[Option]) -> list[Option]:
@@ -323,13 +385,20 @@ def _refusal(spec: Spec, scheme: str | None, per_variant) -> SpecError:
         if not real:
             return SpecError("--scheme", scheme, f"impossible on this part: {cands[0].option.reason}")
         low = min(real, key=lambda c: c.option.load)
-        return SpecError("--scheme", scheme, f"infeasible: the cheapest {scheme} design ({low.variant.label}, "
-                                             f"R={low.option.ratio}) {low.option.reason}")
+        return SpecError(
+            "--scheme",
+            scheme,
+            f"infeasible: the cheapest {scheme} design ({low.variant.label}, R={low.option.ratio}) {low.option.reason}",
+        )
     loads = [c for c in cands if c.front is not None and not c.option.reason.startswith("the part")]
     if loads:
         low = min(loads, key=lambda c: c.option.load)
-        return SpecError("target.cpu_budget", tgt.cpu_budget,
-                         f"every design exceeds it: the cheapest ({low.variant.scheme} {low.variant.label}, "
-                         f"R={low.option.ratio}) needs {low.option.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core}")
-    return SpecError("target.timer_hz", tgt.timer_hz,
-                     "no design fits: " + "; ".join(sorted({c.option.reason for c in cands})))
+        return SpecError(
+            "target.cpu_budget",
+            tgt.cpu_budget,
+            f"every design exceeds it: the cheapest ({low.variant.scheme} {low.variant.label}, "
+            f"R={low.option.ratio}) needs {low.option.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core}",
+        )
+    return SpecError(
+        "target.timer_hz", tgt.timer_hz, "no design fits: " + "; ".join(sorted({c.option.reason for c in cands}))
+    )

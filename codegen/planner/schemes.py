@@ -65,8 +65,12 @@ TEST_LEVEL = standard.LEVEL   # fraction of full-scale deviation of the standard
 def _cubic_weight() -> float:
     """E over u in [0, 1) of the summed squared Lagrange weights of nodes -1, 0, 1, 2."""
     u = np.linspace(0.0, 1.0, 20001)
-    w = [-u * (u - 1) * (u - 2) / 6, (u + 1) * (u - 1) * (u - 2) / 2,
-         -(u + 1) * u * (u - 2) / 2, (u + 1) * u * (u - 1) / 6]
+    w = [
+        -u * (u - 1) * (u - 2) / 6,
+        (u + 1) * (u - 1) * (u - 2) / 2,
+        -(u + 1) * u * (u - 2) / 2,
+        (u + 1) * u * (u - 1) / 6,
+    ]
     return float(np.trapezoid(sum(x * x for x in w), u))
 
 
@@ -78,7 +82,7 @@ def _shape_var(shape) -> float:
 
 LINEAR_WEIGHT = 2.0 / 3.0
 CUBIC_WEIGHT = _cubic_weight()
-LINEAR_SHAPE_VAR = _shape_var(lambda u: u * (1 - u))                      # 1/180
+LINEAR_SHAPE_VAR = _shape_var(lambda u: u * (1 - u))  # 1/180
 CUBIC_SHAPE_VAR = _shape_var(lambda u: u * (u + 1) * (u - 1) * (u - 2))
 
 
@@ -86,10 +90,10 @@ CUBIC_SHAPE_VAR = _shape_var(lambda u: u * (u + 1) * (u - 1) * (u - 2))
 class Variant:
     """One way of seeing the edges."""
 
-    scheme: str                # "timestamp", "interrupt", "counter"
-    front: str                 # "stamp" or "count"
+    scheme: str  # "timestamp", "interrupt", "counter"
+    front: str  # "stamp" or "count"
     prescale: int = 1
-    order: str = "linear"      # stamp fronts: "linear" or "cubic"
+    order: str = "linear"  # stamp fronts: "linear" or "cubic"
 
     @property
     def label(self) -> str:
@@ -109,18 +113,22 @@ def variants(tgt: Target) -> list[tuple[Variant, str | None]]:
     out.append((Variant("interrupt", "count"), no_irq))
     for order in ("linear", "cubic"):
         out.append((Variant("interrupt", "stamp", 1, order), no_irq))
-    out.append((Variant("counter", "count"),
-                None if tgt.has_counter else "the part has no IF-clocked counter (target.has_counter)"))
+    out.append(
+        (
+            Variant("counter", "count"),
+            None if tgt.has_counter else "the part has no IF-clocked counter (target.has_counter)",
+        )
+    )
     return out
 
 
 @dataclass(frozen=True)
 class Prediction:
-    sinad_db: float            # all modelled sources together
-    quant_sinad_db: float      # timer or count quantisation alone
+    sinad_db: float  # all modelled sources together
+    quant_sinad_db: float  # timer or count quantisation alone
     curvature_sinad_db: float  # interpolation curvature alone
-    jitter_sinad_db: float     # interrupt latency jitter alone
-    output_sinad_db: float     # the 16-bit output word alone
+    jitter_sinad_db: float  # interrupt latency jitter alone
+    output_sinad_db: float  # the 16-bit output word alone
 
 
 def _post_gain2(sos_list, f: np.ndarray, out_hz: float) -> np.ndarray:
@@ -132,8 +140,7 @@ def _post_gain2(sos_list, f: np.ndarray, out_hz: float) -> np.ndarray:
     return g
 
 
-def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
-                post_sos=()) -> float:
+def _band_noise(sigma2: float, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float, post_sos=()) -> float:
     """In-band noise power (Hz^2) at the output from white phase noise sigma2 per grid sample.
 
     After decimation by R the output PSD at fo is the sum of the CIC-shaped input PSD over the R
@@ -171,10 +178,10 @@ def grid_error_vars(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz:
     else:
         w = CUBIC_WEIGHT if v.order == "cubic" else LINEAR_WEIGHT
         stamp_hz = if_hz / v.prescale
-        held = max(1.0, grid_hz / stamp_hz)          # no gain from grids faster than the stamps
-        sig_quant = w * ef2 / (12.0 * timer_hz ** 2) * held
+        held = max(1.0, grid_hz / stamp_hz)  # no gain from grids faster than the stamps
+        sig_quant = w * ef2 / (12.0 * timer_hz**2) * held
         if v.scheme == "interrupt":
-            sig_jit = w * ef2 * irq_jitter_cycles ** 2 / (12.0 * cpu_hz ** 2) * held
+            sig_jit = w * ef2 * irq_jitter_cycles**2 / (12.0 * cpu_hz**2) * held
         # Interpolation residual for a tone: phase amplitude dev / (2 pi fm) times theta^2 / 2 (linear)
         # or theta^4 / 24 (cubic), theta = 2 pi fm k / f0 the tone's phase advance per stamp
         # interval, times the shape u(1 - u) or u(u + 1)(u - 1)(u - 2) over the interval; its
@@ -182,9 +189,9 @@ def grid_error_vars(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz:
         theta = 2 * math.pi * tone_hz * v.prescale / if_hz
         amp = dev / (2 * math.pi * tone_hz)
         if v.order == "linear":
-            sig_curv = (amp * theta ** 2 / 2) ** 2 * LINEAR_SHAPE_VAR / 2
+            sig_curv = (amp * theta**2 / 2) ** 2 * LINEAR_SHAPE_VAR / 2
         else:
-            sig_curv = (amp * theta ** 4 / 24) ** 2 * CUBIC_SHAPE_VAR / 2
+            sig_curv = (amp * theta**4 / 24) ** 2 * CUBIC_SHAPE_VAR / 2
         sig_curv *= max(1.0, grid_hz / ((2.0 / 3.0) * if_hz / v.prescale))
     return sig_quant, sig_curv, sig_jit
 
@@ -202,6 +209,7 @@ def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, 
     tone = np.array([tone_hz])
     s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(tone_hz / out_hz, n, r) / 10) \
         * float(_post_gain2(post_sos, tone, out_hz)[0])
+    )
     lsb = full_scale_hz / 32768.0
     n_out = lsb ** 2 / 12.0 * (band_hz - test.band_lo_hz) / (out_hz / 2)
     parts = [_band_noise(s2, grid_hz, out_hz, r, n, band_hz, post_sos) if s2 else 0.0
@@ -213,24 +221,30 @@ def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, 
     return Prediction(db(sum(parts) + n_out), db(parts[0]), db(parts[1]), db(parts[2]), db(n_out))
 
 
-SMALL_RATIO_DEN = 4      # IF / grid = p / q with q up to this counts as commensurate
-RATIO_NEAR = 0.02        # how close to p / q (in units of 1 / q) counts as near
+SMALL_RATIO_DEN = 4  # IF / grid = p / q with q up to this counts as commensurate
+RATIO_NEAR = 0.02  # how close to p / q (in units of 1 / q) counts as near
 
 
 def doubt(v: Variant, *, if_hz: float, full_scale_hz: float, grid_hz: float, pred: Prediction) -> str | None:
     """Why the white-noise prediction may be far off for this option, or None."""
     if v.front == "stamp" and grid_hz > if_hz / v.prescale:
-        return ("the grid is faster than the stamps, so grid errors are correlated and the tone's "
-                "harmonics in the interpolation error are not modelled")
+        return (
+            "the grid is faster than the stamps, so grid errors are correlated and the tone's "
+            "harmonics in the interpolation error are not modelled"
+        )
     if v.front == "count" and TEST_LEVEL * full_scale_hz < grid_hz / 2:
-        return ("the test deviation is under half the grid rate, so the count error can form tones "
-                "(IF and grid nearly commensurate) instead of white noise")
+        return (
+            "the test deviation is under half the grid rate, so the count error can form tones "
+            "(IF and grid nearly commensurate) instead of white noise"
+        )
     if v.front == "count":
         ratio = if_hz / grid_hz
         for q in range(1, SMALL_RATIO_DEN + 1):
             if abs(ratio * q - round(ratio * q)) < RATIO_NEAR:
-                return (f"the IF is {round(ratio * q)}/{q} of the grid rate: near a small-integer ratio the "
-                        "count error forms tones (DESIGN.md: +-4 dB) instead of white noise")
+                return (
+                    f"the IF is {round(ratio * q)}/{q} of the grid rate: near a small-integer ratio the "
+                    "count error forms tones (DESIGN.md: +-4 dB) instead of white noise"
+                )
     if min(pred.curvature_sinad_db, pred.quant_sinad_db) < 40 and pred.curvature_sinad_db < pred.quant_sinad_db:
         return "the interpolation residual is large (few stamps per cycle of the tone): the small-error model is rough"
     return None
@@ -238,12 +252,12 @@ def doubt(v: Variant, *, if_hz: float, full_scale_hz: float, grid_hz: float, pre
 
 @dataclass(frozen=True)
 class Load:
-    per_edge: int        # cycles per IF edge (the edge or capture ISR; 0 when hardware does it)
-    per_input: int       # cycles per stamp or count processed in the main loop
-    per_grid: int        # cycles per grid instant
-    per_output: int      # cycles per output sample
-    fraction: float      # of the CPU at the spec's clock, at the highest edge rate
-    ram_bytes: int       # state size estimate (the queue included)
+    per_edge: int  # cycles per IF edge (the edge or capture ISR; 0 when hardware does it)
+    per_input: int  # cycles per stamp or count processed in the main loop
+    per_grid: int  # cycles per grid instant
+    per_output: int  # cycles per output sample
+    fraction: float  # of the CPU at the spec's clock, at the highest edge rate
+    ram_bytes: int  # state size estimate (the queue included)
 
 
 # Operation counts of the emitted C per event, in "ops" of the core profile's op_cycles, beside the
@@ -353,15 +367,15 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
             muls = QUOTIENT_COST[v.order][1] - 2 * divs          # the cubic's own products
             per_grid = divs * tgt.div32_cycles + muls * CORES[tgt.core].mul32_cycles + STAMP_GRID_OPS[v.order] * op + cic
         if v.scheme == "interrupt":
-            per_edge = isr + 12 * op                                     # read timer, queue the stamp
+            per_edge = isr + 12 * op  # read timer, queue the stamp
         else:
-            per_edge = 0 if tgt.capture_dma else isr + 8 * op            # queue the stamp
+            per_edge = 0 if tgt.capture_dma else isr + 8 * op  # queue the stamp
         cycles = stamp_rate * (per_edge + per_input) + grid_hz * per_grid
         in_bytes = 2 if tgt.timer_bits == 16 else 4
     else:
         per_input = COUNT_INPUT_OPS * op + cic
-        per_grid = 0 if (v.scheme == "counter" and tgt.counter_dma) else isr + 6 * op   # tick ISR queues
-        per_edge = isr + 3 * op if v.scheme == "interrupt" else 0        # the edge ISR counts
+        per_grid = 0 if (v.scheme == "counter" and tgt.counter_dma) else isr + 6 * op  # tick ISR queues
+        per_edge = isr + 3 * op if v.scheme == "interrupt" else 0  # the edge ISR counts
         cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
         in_bytes = 2 if tgt.counter_bits == 16 else 4
     cal = _calibrated_load(v, tgt, sections)
@@ -384,7 +398,16 @@ def variant_of(design: Design) -> Variant:
 def predict_design(design: Design) -> Prediction:
     """The planner's prediction for this design's rates and filters."""
     return predict(
-        variant_of(design), if_hz=design.if_hz, full_scale_hz=design.full_scale_hz, timer_hz=design.rates.timer_hz,
-        cpu_hz=design.budget.cpu_hz, irq_jitter_cycles=design.budget.irq_jitter_cycles,
-        grid_hz=design.rates.grid_hz, out_hz=design.rates.out_hz, r=design.cic.ratio, n=design.cic.order,
-        band_hz=design.audio_hz, post_sos=[np.array([list(s.float_sos) for s in design.filters.sections])])
+        variant_of(design),
+        if_hz=design.if_hz,
+        full_scale_hz=design.full_scale_hz,
+        timer_hz=design.rates.timer_hz,
+        cpu_hz=design.budget.cpu_hz,
+        irq_jitter_cycles=design.budget.irq_jitter_cycles,
+        grid_hz=design.rates.grid_hz,
+        out_hz=design.rates.out_hz,
+        r=design.cic.ratio,
+        n=design.cic.order,
+        band_hz=design.audio_hz,
+        post_sos=[np.array([list(s.float_sos) for s in design.filters.sections])],
+    )

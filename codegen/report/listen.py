@@ -39,7 +39,7 @@ from ..stimulus.inputs import DEFAULT_SEED, LEAD_S, make_inputs, standard_signal
 # a simple ratio, well inside the band), scaled down with a narrower audio band.
 TWO_TONE_HZ = (700.0, 1900.0)
 VOICE_BAND_HZ = 3000.0
-SWEEP_FROM_HZ = 300.0          # bottom of the telephone voice band (common practice, no source)
+SWEEP_FROM_HZ = 300.0  # bottom of the telephone voice band (common practice, no source)
 
 
 @dataclass(frozen=True)
@@ -55,7 +55,7 @@ class ChirpFm:
     start_s: float
     sweep_s: float
     mod_phase_rad: float = 0.0
-    start_phase: float = 0.0        # cycles, in [0, 1)
+    start_phase: float = 0.0  # cycles, in [0, 1)
 
     def __post_init__(self):
         if not (0 < self.from_hz < self.to_hz and self.sweep_s > 0 and self.start_s >= 0):
@@ -113,8 +113,8 @@ class ChirpFm:
 class Clip:
     """One listening clip: the emitted C's output samples (the design's output type) for a test signal."""
 
-    name: str                # file name of its WAV
-    caption: str             # what it is, in words
+    name: str  # file name of its WAV
+    caption: str  # what it is, in words
     samples: np.ndarray
     rate_hz: int
 
@@ -137,9 +137,16 @@ def sweep_signal(design: Design, seconds: float, rng: np.random.Generator) -> Ch
     """A chirp of the modulating tone from 300 Hz to the voice band top over ``seconds``, starting
     after verify's settling lead (whose output run_c drops), at the standard test deviation."""
     top = band_top_hz(design)
-    return ChirpFm(design.if_hz, schemes.TEST_LEVEL * design.full_scale_hz, min(SWEEP_FROM_HZ, top / 2), top,
-                   start_s=LEAD_S, sweep_s=seconds, mod_phase_rad=float(rng.uniform(0, 2 * np.pi)),
-                   start_phase=float(rng.uniform(0, 1)))
+    return ChirpFm(
+        design.if_hz,
+        schemes.TEST_LEVEL * design.full_scale_hz,
+        min(SWEEP_FROM_HZ, top / 2),
+        top,
+        start_s=LEAD_S,
+        sweep_s=seconds,
+        mod_phase_rad=float(rng.uniform(0, 2 * np.pi)),
+        start_phase=float(rng.uniform(0, 1)),
+    )
 
 
 def run_c(design: Design, sig, seconds: float, seed: int, host: hostbuild.HostDemod | None = None) -> np.ndarray:
@@ -147,7 +154,7 @@ def run_c(design: Design, sig, seconds: float, seed: int, host: hostbuild.HostDe
     samples are dropped): the hardware inputs from verify.make_inputs, processed by the host build."""
     host = host or hostbuild.build(design)
     out, _ = host.process(make_inputs(design, seconds, seed, sig=sig))
-    return out[int(round(LEAD_S * design.rates.out_hz)):]
+    return out[int(round(LEAD_S * design.rates.out_hz)) :]
 
 
 def clip_names(design: Design) -> tuple[str, str, str]:

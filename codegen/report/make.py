@@ -27,10 +27,10 @@ class _Quiet:
 
 @dataclass(frozen=True)
 class Made:
-    files: dict               # {file name: bytes}: the page and its WAVs
+    files: dict  # {file name: bytes}: the page and its WAVs
     verify: VerifyResult
-    sweeps: tuple             # edgetally.sweeps.Sweep, one per kind
-    hostile: tuple            # edgetally.hostile.ScenarioResult, one per scenario
+    sweeps: tuple  # edgetally.sweeps.Sweep, one per kind
+    hostile: tuple  # edgetally.hostile.ScenarioResult, one per scenario
 
     @property
     def failed_scenarios(self) -> list[str]:

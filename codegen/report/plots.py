@@ -25,8 +25,7 @@ def figure(w: float, h: float, rows: int = 1, **kw):
     from matplotlib.figure import Figure  # no pyplot: no global state, Agg renders the PNG
 
     fig = Figure(figsize=(w, h), dpi=DPI)
-    fig.subplots_adjust(left=0.95 / w, right=1 - 0.3 / w, bottom=0.5 / h, top=1 - 0.3 / h,
-                        hspace=0.7 / (h / rows))
+    fig.subplots_adjust(left=0.95 / w, right=1 - 0.3 / w, bottom=0.5 / h, top=1 - 0.3 / h, hspace=0.7 / (h / rows))
     axes = fig.subplots(rows, 1, **kw)
     return fig, axes
 
@@ -92,9 +91,14 @@ SINAD = [("sinad_db", "SINAD, C", "#1f4e9c"), ("float_sinad_db", "SINAD, float r
 SWEEP_PANELS = {
     "cnr": [("dB", SINAD + [("predicted_db", "formula 3 beta^2 (beta+1) CNR", "#b36b00")], True)],
     "tone": [("level (dB of full scale)", [("level_db", "C output level", "#1f4e9c")], True), ("dB", SINAD, False)],
-    "deviation": [("level (dB of full scale)", [("level_db", "C output level", "#1f4e9c"),
-                                                ("predicted_db", "linear response", "#b36b00")], False),
-                  ("dB", SINAD + [("thd_db", "THD, C", "#c0392b")], False)],
+    "deviation": [
+        (
+            "level (dB of full scale)",
+            [("level_db", "C output level", "#1f4e9c"), ("predicted_db", "linear response", "#b36b00")],
+            False,
+        ),
+        ("dB", SINAD + [("thd_db", "THD, C", "#c0392b")], False),
+    ],
     "offset": [("offset output (Hz)", [("offset_hz", "C offset output", "#1f4e9c")], True), ("dB", SINAD, False)],
 }
 
@@ -107,8 +111,15 @@ def sweep_plot(s) -> str:
     for ax, (ylabel, series, with_curves) in zip(axes, panels, strict=True):
         for attr, label, colour in series:
             # None: not measured; a THD at the float floor (about -313 dB): no harmonic was fitted
-            y = np.array([np.nan if getattr(p, attr) is None or (attr == "thd_db" and getattr(p, attr) < -300)
-                          else getattr(p, attr) for p in s.points], dtype=float)
+            y = np.array(
+                [
+                    np.nan
+                    if getattr(p, attr) is None or (attr == "thd_db" and getattr(p, attr) < -300)
+                    else getattr(p, attr)
+                    for p in s.points
+                ],
+                dtype=float,
+            )
             if np.all(np.isnan(y)):
                 continue
             style = "--" if attr == "predicted_db" else "-"

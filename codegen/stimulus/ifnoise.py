@@ -50,8 +50,8 @@ from scipy import fft as sfft
 
 from .signals import FmSignal
 
-OVERSAMPLE = 16    # samples per cycle of f_hi; see the error bound in the module docstring
-_PAD = 2           # samples before t = 0 and after the end, so every crossing has its four cubic nodes
+OVERSAMPLE = 16  # samples per cycle of f_hi; see the error bound in the module docstring
+_PAD = 2  # samples before t = 0 and after the end, so every crossing has its four cubic nodes
 
 
 def carson_bandwidth_hz(sig: FmSignal) -> float:
@@ -71,7 +71,7 @@ def above_threshold_snr_db(cnr_db: float, deviation_hz: float, audio_hz: float) 
     output SNR is (3/2) beta^2 * 2 (beta + 1) CNR = 3 beta^2 (beta + 1) CNR. The CNR must be the one
     in that band B_T, built from the same deviation and W."""
     beta = deviation_hz / audio_hz
-    return float(cnr_db + 10.0 * math.log10(3.0 * beta ** 2 * (beta + 1.0)))
+    return float(cnr_db + 10.0 * math.log10(3.0 * beta**2 * (beta + 1.0)))
 
 
 @dataclass(frozen=True)
@@ -81,8 +81,8 @@ class NoisyIf:
 
     fs: float
     t: np.ndarray
-    carrier: np.ndarray        # sin(2 pi phase(t))
-    noise: np.ndarray          # Im{n(t) exp(j 2 pi f0 t)}, band-limited to f0 +- noise_bw / 2
+    carrier: np.ndarray  # sin(2 pi phase(t))
+    noise: np.ndarray  # Im{n(t) exp(j 2 pi f0 t)}, band-limited to f0 +- noise_bw / 2
     noise_bw_hz: float
 
     @property
@@ -95,8 +95,14 @@ def sample_rate(sig: FmSignal, noise_bw_hz: float, oversample: float = OVERSAMPL
     return oversample * (sig.if_hz + 0.5 * max(carson_bandwidth_hz(sig), noise_bw_hz))
 
 
-def noisy_if(sig: FmSignal, duration_s: float, cnr_db: float, noise_bw_hz: float | None = None,
-             rng: np.random.Generator | None = None, oversample: float = OVERSAMPLE) -> NoisyIf:
+def noisy_if(
+    sig: FmSignal,
+    duration_s: float,
+    cnr_db: float,
+    noise_bw_hz: float | None = None,
+    rng: np.random.Generator | None = None,
+    oversample: float = OVERSAMPLE,
+) -> NoisyIf:
     """The IF plus Gaussian noise of carrier-to-noise ratio cnr_db in noise_bw_hz (default: the
     Carson bandwidth), sampled at sample_rate(). cnr_db = inf gives no noise. rng None: a fresh
     generator (not repeatable)."""
@@ -118,16 +124,16 @@ def noisy_if(sig: FmSignal, duration_s: float, cnr_db: float, noise_bw_hz: float
         noise = np.zeros(n)
     else:
         nfft = sfft.next_fast_len(n)
-        m = int(math.floor(0.5 * bw * nfft / fs))          # bins -m .. m: |f| <= noise_bw / 2
+        m = int(math.floor(0.5 * bw * nfft / fs))  # bins -m .. m: |f| <= noise_bw / 2
         bins = 2 * m + 1
         # E|n|^2 = bins * 2 s^2 = 1 / CNR (each bin's real and imaginary parts have std s)
         s = math.sqrt(1.0 / (cnr * 2 * bins))
         spec = np.zeros(nfft, dtype=np.complex128)
         vals = s * (rng.standard_normal(bins) + 1j * rng.standard_normal(bins))
-        spec[:m + 1] = vals[:m + 1]
+        spec[: m + 1] = vals[: m + 1]
         if m:
-            spec[-m:] = vals[m + 1:]
-        nb = sfft.ifft(spec, overwrite_x=True)[:n] * nfft       # sum_k X_k exp(j 2 pi k i / nfft)
+            spec[-m:] = vals[m + 1 :]
+        nb = sfft.ifft(spec, overwrite_x=True)[:n] * nfft  # sum_k X_k exp(j 2 pi k i / nfft)
         w = 2 * np.pi * np.mod(sig.if_hz / fs * k, 1.0)
         noise = nb.imag * np.cos(w) + nb.real * np.sin(w)
     return NoisyIf(fs=fs, t=t, carrier=carrier, noise=noise, noise_bw_hz=bw)
@@ -170,7 +176,7 @@ def crossings(w: NoisyIf, hysteresis: float = 0.0) -> np.ndarray:
     else:
         zone = np.where(r >= h, 1, np.where(r < -h, -1, 0)).astype(np.int8)
         last = np.maximum.accumulate(np.where(zone != 0, np.arange(r.size), 0))
-        state = zone[last]                         # the comparator output (0 before the first decision)
+        state = zone[last]  # the comparator output (0 before the first decision)
         k = np.flatnonzero((state[:-1] == -1) & (state[1:] == 1)) + 1
     k = k[(k >= 2) & (k <= r.size - 2)]
     y = r - h
@@ -179,9 +185,15 @@ def crossings(w: NoisyIf, hysteresis: float = 0.0) -> np.ndarray:
     return t[t >= 0]
 
 
-def noisy_edge_times(sig: FmSignal, duration_s: float, cnr_db: float, noise_bw_hz: float | None = None,
-                     rng: np.random.Generator | None = None, oversample: float = OVERSAMPLE,
-                     hysteresis: float = 0.0) -> np.ndarray:
+def noisy_edge_times(
+    sig: FmSignal,
+    duration_s: float,
+    cnr_db: float,
+    noise_bw_hz: float | None = None,
+    rng: np.random.Generator | None = None,
+    oversample: float = OVERSAMPLE,
+    hysteresis: float = 0.0,
+) -> np.ndarray:
     """Rising zero crossings (s) in [0, duration_s) of the IF plus Gaussian noise at cnr_db in
     noise_bw_hz (default: the Carson bandwidth), strictly increasing. With cnr_db = inf they equal
     signals.edge_times to within the refinement error of the module docstring."""

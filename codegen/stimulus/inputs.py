@@ -41,8 +41,9 @@ def standard_signal(design: Design, rng: np.random.Generator) -> signals.FmSigna
     return signals.test_tone(design.if_hz, design.full_scale_hz, test.level, test.tone_hz, rng)
 
 
-def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.random.Generator,
-                    start: int | None = None) -> np.ndarray:
+def hardware_inputs(
+    design: Design, times: np.ndarray, duration: float, rng: np.random.Generator, start: int | None = None
+) -> np.ndarray:
     """What the design's hardware delivers for these IF edge times (s) over ``duration`` seconds:
     capture stamps of every prescale-th edge, software stamps read by an edge interrupt (with its
     latency), or counts read at each grid instant. The timer's or counter's start value is
@@ -56,6 +57,7 @@ def hardware_inputs(design: Design, times: np.ndarray, duration: float, rng: np.
     if start is None:
         start = int(rng.integers(0, 1 << fr.timer_bits))
     if topo is Topology.EDGE_STAMP:
-        return signals.software_stamps(times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2,
-                                       b.irq_jitter_cycles, rng, start)
-    return signals.capture(times[::fr.prescale], design.rates.timer_hz, fr.timer_bits, start)
+        return signals.software_stamps(
+            times, design.rates.timer_hz, fr.timer_bits, b.cpu_hz, b.isr_cycles // 2, b.irq_jitter_cycles, rng, start
+        )
+    return signals.capture(times[:: fr.prescale], design.rates.timer_hz, fr.timer_bits, start)

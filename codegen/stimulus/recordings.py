@@ -45,13 +45,22 @@ from typing import Any, cast
 import numpy as np
 
 from ..ir import Design
-from .ifnoise import refine_crossing as cubic_root   # the IF simulator's crossing refinement
+from .ifnoise import refine_crossing as cubic_root  # the IF simulator's crossing refinement
 
 FORMATS = ("vcd", "csv", "bin", "wav", "sigmf")
-EXTENSIONS = {".vcd": "vcd", ".csv": "csv", ".txt": "csv", ".bin": "bin", ".raw": "bin", ".wav": "wav",
-              ".sigmf-meta": "sigmf", ".sigmf-data": "sigmf", ".sigmf": "sigmf"}
-PS = 10 ** 12                      # float edge times are kept in picoseconds (far below any timer tick)
-SETTLE_LEVEL = 0.01                # the IIR has settled when its slowest pole decayed to 1 % (-40 dB)
+EXTENSIONS = {
+    ".vcd": "vcd",
+    ".csv": "csv",
+    ".txt": "csv",
+    ".bin": "bin",
+    ".raw": "bin",
+    ".wav": "wav",
+    ".sigmf-meta": "sigmf",
+    ".sigmf-data": "sigmf",
+    ".sigmf": "sigmf",
+}
+PS = 10**12  # float edge times are kept in picoseconds (far below any timer tick)
+SETTLE_LEVEL = 0.01  # the IIR has settled when its slowest pole decayed to 1 % (-40 dB)
 _UNITS = {"s": 0, "ms": 3, "us": 6, "ns": 9, "ps": 12, "fs": 15, "as": 18, "zs": 21}
 
 
@@ -65,7 +74,7 @@ class RecordingError(ValueError):
 
 def _cut(v, n: int = 40) -> str:
     s = str(v)
-    return s if len(s) <= n else s[:n - 3] + "..."
+    return s if len(s) <= n else s[: n - 3] + "..."
 
 
 @dataclass(frozen=True)
@@ -76,7 +85,7 @@ class Edges:
     num: int
     den: int
     end: int
-    what: str                      # where they came from, in words
+    what: str  # where they came from, in words
 
     @property
     def seconds(self) -> float:
@@ -109,15 +118,16 @@ class Recording:
 
     path: str
     format: str
-    inputs: np.ndarray             # stamps or counts, the design's input type
-    seconds: float                 # the recording's length
-    edges: int                     # IF edges in it
-    what: str                      # what was read, in words
-    edge_times: np.ndarray | None = None   # s, when the recording holds the IF itself (not logged inputs)
+    inputs: np.ndarray  # stamps or counts, the design's input type
+    seconds: float  # the recording's length
+    edges: int  # IF edges in it
+    what: str  # what was read, in words
+    edge_times: np.ndarray | None = None  # s, when the recording holds the IF itself (not logged inputs)
 
 
 # ---------------------------------------------------------------------------------------------
 # VCD
+
 
 def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
     """The edges of one 1-bit signal of a value change dump, at the dump's time unit."""
@@ -126,7 +136,7 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
     path = Path(path)
     want = "1" if edge == "rising" else "0"
     scopes: list[str] = []
-    names: dict[str, list[str]] = {}            # id code -> full names of its 1-bit variables
+    names: dict[str, list[str]] = {}  # id code -> full names of its 1-bit variables
     unit = None
     ident = None
     end_line = None
@@ -140,7 +150,7 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
                 if k is TokenKind.CHANGE_SCALAR or k is TokenKind.CHANGE_VECTOR:
                     if ident is None:
                         continue
-                    code, v = cast(Any, tok.data)       # a change's payload (the kind narrows it)
+                    code, v = cast(Any, tok.data)  # a change's payload (the kind narrows it)
                     if code != ident:
                         continue
                     v = str(v).lower()
@@ -149,12 +159,13 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
                             at.append(last_time)
                         level = v
                     else:
-                        level = None                     # x or z: no edge into or out of it
+                        level = None  # x or z: no edge into or out of it
                 elif k is TokenKind.CHANGE_TIME:
                     now = cast(int, tok.data)
                     if now < last_time:
-                        raise RecordingError(path, f":{tok.span.start.line}",
-                                             f"time runs backwards (#{now} after #{last_time})")
+                        raise RecordingError(
+                            path, f":{tok.span.start.line}", f"time runs backwards (#{now} after #{last_time})"
+                        )
                     last_time, last_line = now, tok.span.start.line
                 elif k is TokenKind.SCOPE:
                     scopes.append(tok.data.ident)
@@ -171,18 +182,22 @@ def read_vcd(path, signal: str | None = None, edge: str = "rising") -> Edges:
                     end_line = tok.span.start.line
                     ident = _pick_signal(path, end_line, names, signal)
     except VCDParseError as e:
-        raise RecordingError(path, f":{e.loc.line}:{e.loc.column}", f"not a valid value change dump: {_cut(e, 80)}") from e
+        raise RecordingError(
+            path, f":{e.loc.line}:{e.loc.column}", f"not a valid value change dump: {_cut(e, 80)}"
+        ) from e
     except (OSError, UnicodeDecodeError) as e:
         raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}") from e
     if end_line is None:
-        raise RecordingError(path, f":{last_line}", "ends before $enddefinitions (truncated, or not a value change dump)")
+        raise RecordingError(
+            path, f":{last_line}", "ends before $enddefinitions (truncated, or not a value change dump)"
+        )
     if unit is None:
         raise RecordingError(path, f":{end_line}", "no $timescale in the header: the times have no unit")
     exp = _UNITS[unit.unit.value]
-    assert ident is not None                    # _pick_signal chose one or refused the file
+    assert ident is not None  # _pick_signal chose one or refused the file
     full = names[ident][0]
     what = f"VCD signal {full}, {edge} edges, timescale {unit.magnitude} {unit.unit.value}"
-    return Edges(np.array(at, dtype=np.int64), int(unit.magnitude), 10 ** exp, int(last_time), what)
+    return Edges(np.array(at, dtype=np.int64), int(unit.magnitude), 10**exp, int(last_time), what)
 
 
 def _pick_signal(path, line: int, names: dict[str, list[str]], signal: str | None) -> str:
@@ -192,7 +207,9 @@ def _pick_signal(path, line: int, names: dict[str, list[str]], signal: str | Non
     if signal is None:
         if len(names) == 1:
             return next(iter(names))
-        raise RecordingError(path, f":{line}", f"several 1-bit signals; choose one with --signal ({_cut(', '.join(every), 120)})")
+        raise RecordingError(
+            path, f":{line}", f"several 1-bit signals; choose one with --signal ({_cut(', '.join(every), 120)})"
+        )
     hits = [code for code, ns in names.items() if any(n == signal or n.split(".")[-1] == signal for n in ns)]
     if len(hits) != 1:
         why = "no 1-bit signal" if not hits else "more than one signal named"
@@ -202,6 +219,7 @@ def _pick_signal(path, line: int, names: dict[str, list[str]], signal: str | Non
 
 # ---------------------------------------------------------------------------------------------
 # logged stamps and counts: CSV and raw binary
+
 
 def read_csv(path, signal: str | None = None) -> tuple[list[int], list[int]]:
     """The integers of one column and the line number of each."""
@@ -222,7 +240,9 @@ def read_csv(path, signal: str | None = None) -> tuple[list[int], list[int]]:
             if header:
                 continue
         if col >= len(fields):
-            raise RecordingError(path, f":{ln}", f"has {len(fields)} column(s), column {col + 1} is missing (truncated row?)")
+            raise RecordingError(
+                path, f":{ln}", f"has {len(fields)} column(s), column {col + 1} is missing (truncated row?)"
+            )
         cell = fields[col]
         if not _is_int(cell):
             raise RecordingError(path, f":{ln}", f"{_cut(cell)!r} is not an integer stamp or count")
@@ -263,8 +283,11 @@ def read_bin(path, word_bits: int, endian: str = "little") -> np.ndarray:
         raise RecordingError(path, "", f"cannot read it: {_cut(e, 80)}") from e
     extra = len(raw) % nbytes
     if extra:
-        raise RecordingError(path, f": offset {len(raw) - extra}",
-                             f"{extra} trailing byte(s), not a whole {nbytes}-byte word (truncated?)")
+        raise RecordingError(
+            path,
+            f": offset {len(raw) - extra}",
+            f"{extra} trailing byte(s), not a whole {nbytes}-byte word (truncated?)",
+        )
     return np.frombuffer(raw, dtype=np.dtype(f"{'<' if endian == 'little' else '>'}u{nbytes}")).astype(np.uint64)
 
 
@@ -297,6 +320,7 @@ def logged_inputs(design: Design, path, values, where: list[str]) -> tuple[np.nd
 # ---------------------------------------------------------------------------------------------
 # WAV (the IF, or IQ) and SigMF (IQ)
 
+
 def read_wav(path) -> tuple[int, np.ndarray]:
     """(sample rate, samples as float64 of shape (n, channels)) of a PCM or float WAV, checked
     chunk by chunk so that a fault is named with its byte offset."""
@@ -309,36 +333,48 @@ def read_wav(path) -> tuple[int, np.ndarray]:
         raise RecordingError(path, ": offset 0", "not a RIFF/WAVE file")
     pos, fmt, data, data_at = 12, None, None, 0
     while pos + 8 <= len(raw):
-        cid, size = raw[pos:pos + 4], int.from_bytes(raw[pos + 4:pos + 8], "little")
+        cid, size = raw[pos : pos + 4], int.from_bytes(raw[pos + 4 : pos + 8], "little")
         body = pos + 8
         if body + size > len(raw):
-            raise RecordingError(path, f": offset {pos}", f"chunk {cid!r} claims {size} bytes, only "
-                                 f"{len(raw) - body} follow (truncated?)")
+            raise RecordingError(
+                path,
+                f": offset {pos}",
+                f"chunk {cid!r} claims {size} bytes, only {len(raw) - body} follow (truncated?)",
+            )
         if cid == b"fmt ":
             if size < 16:
                 raise RecordingError(path, f": offset {pos}", f"fmt chunk of {size} bytes, at least 16 needed")
-            tag, ch, fs = (int.from_bytes(raw[body + a:body + b], "little") for a, b in ((0, 2), (2, 4), (4, 8)))
-            align, bits = (int.from_bytes(raw[body + a:body + b], "little") for a, b in ((12, 14), (14, 16)))
-            if tag == 0xFFFE and size >= 40:        # WAVE_FORMAT_EXTENSIBLE: the sub-format's tag
-                tag = int.from_bytes(raw[body + 24:body + 26], "little")
+            tag, ch, fs = (int.from_bytes(raw[body + a : body + b], "little") for a, b in ((0, 2), (2, 4), (4, 8)))
+            align, bits = (int.from_bytes(raw[body + a : body + b], "little") for a, b in ((12, 14), (14, 16)))
+            if tag == 0xFFFE and size >= 40:  # WAVE_FORMAT_EXTENSIBLE: the sub-format's tag
+                tag = int.from_bytes(raw[body + 24 : body + 26], "little")
             fmt = (tag, ch, fs, align, bits, pos)
         elif cid == b"data":
-            data, data_at = raw[body:body + size], body
+            data, data_at = raw[body : body + size], body
         pos = body + size + (size & 1)
     if fmt is None or data is None:
         raise RecordingError(path, f": offset {pos}", f"no {'fmt' if fmt is None else 'data'} chunk (truncated?)")
     tag, ch, fs, align, bits, at = fmt
     kinds = {(1, 8): "u1", (1, 16): "<i2", (1, 32): "<i4", (3, 32): "<f4", (3, 64): "<f8"}
     if (tag, bits) not in kinds and not (tag == 1 and bits == 24):
-        raise RecordingError(path, f": offset {at}", f"sample format {tag} with {bits} bits is not read "
-                             "(PCM 8/16/24/32-bit or float 32/64-bit are)")
+        raise RecordingError(
+            path,
+            f": offset {at}",
+            f"sample format {tag} with {bits} bits is not read (PCM 8/16/24/32-bit or float 32/64-bit are)",
+        )
     if ch < 1 or fs < 1 or align != ch * bits // 8:
-        raise RecordingError(path, f": offset {at}", f"inconsistent fmt chunk ({ch} channels, {fs} Hz, "
-                             f"{align}-byte frames of {bits}-bit samples)")
+        raise RecordingError(
+            path,
+            f": offset {at}",
+            f"inconsistent fmt chunk ({ch} channels, {fs} Hz, {align}-byte frames of {bits}-bit samples)",
+        )
     extra = len(data) % align
     if extra:
-        raise RecordingError(path, f": offset {data_at + len(data) - extra}",
-                             f"{extra} trailing byte(s), not a whole {align}-byte frame (truncated?)")
+        raise RecordingError(
+            path,
+            f": offset {data_at + len(data) - extra}",
+            f"{extra} trailing byte(s), not a whole {align}-byte frame (truncated?)",
+        )
     if bits == 24:
         b = np.frombuffer(data, dtype=np.uint8).reshape(-1, 3).astype(np.int32)
         x = ((b[:, 0] | (b[:, 1] << 8) | (b[:, 2] << 16)) << 8) >> 8
@@ -370,7 +406,7 @@ def read_sigmf(path) -> tuple[float, np.ndarray, float | None]:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             rec = sigmffile.fromfile(str(meta), skip_checksum=True)
-    except Exception as e:   # the library raises several kinds (schema, file, key errors)
+    except Exception as e:  # the library raises several kinds (schema, file, key errors)
         raise RecordingError(meta, "", f"not a valid SigMF recording: {_cut(e, 100)}") from e
     dtype = str(rec.get_global_field("core:datatype"))
     if not dtype.startswith("c"):
@@ -382,8 +418,9 @@ def read_sigmf(path) -> tuple[float, np.ndarray, float | None]:
     size = data.stat().st_size
     extra = size % frame
     if extra:
-        raise RecordingError(data, f": offset {size - extra}",
-                             f"{extra} trailing byte(s), not a whole {frame}-byte sample (truncated?)")
+        raise RecordingError(
+            data, f": offset {size - extra}", f"{extra} trailing byte(s), not a whole {frame}-byte sample (truncated?)"
+        )
     if size == 0:
         raise RecordingError(data, ": offset 0", "no samples")
     fs = rec.get_global_field("core:sample_rate")
@@ -402,13 +439,21 @@ def _check_rate(path, fs: float, design: Design, offset_hz: float, iq: bool) -> 
     if iq:
         reach = abs(offset_hz) + half
         if reach >= fs / 2:
-            raise RecordingError(path, "", f"sample rate {fs:g} Hz is too low for the channel: it reaches "
-                                 f"{reach:g} Hz from the centre (offset {offset_hz:g} Hz + deviation and audio band), "
-                                 f"an IQ recording needs more than {2 * reach:g} Hz")
+            raise RecordingError(
+                path,
+                "",
+                f"sample rate {fs:g} Hz is too low for the channel: it reaches "
+                f"{reach:g} Hz from the centre (offset {offset_hz:g} Hz + deviation and audio band), "
+                f"an IQ recording needs more than {2 * reach:g} Hz",
+            )
     elif design.if_hz + half >= fs / 2:
         top = design.if_hz + half
-        raise RecordingError(path, "", f"sample rate {fs:g} Hz is too low for the IF: its band reaches {top:g} Hz, "
-                             f"a real recording of it needs more than {2 * top:g} Hz")
+        raise RecordingError(
+            path,
+            "",
+            f"sample rate {fs:g} Hz is too low for the IF: its band reaches {top:g} Hz, "
+            f"a real recording of it needs more than {2 * top:g} Hz",
+        )
 
 
 def _crossings(phi: np.ndarray, fs: float) -> np.ndarray:
@@ -449,6 +494,7 @@ def _float_edges(times: np.ndarray, n: int, fs: float, what: str) -> Edges:
 # ---------------------------------------------------------------------------------------------
 # edges -> inputs, settling, and the one entry point
 
+
 def edges_to_inputs(design: Design, edges: Edges, start: int = 0) -> np.ndarray:
     """The design's inputs for these edges (see the module docstring); the timer or counter
     starts at ``start``."""
@@ -456,7 +502,7 @@ def edges_to_inputs(design: Design, edges: Edges, start: int = 0) -> np.ndarray:
     ticks = edges.ticks(design.rates.timer_hz)
     if fr.kind == "stamp":
         bits = fr.timer_bits
-        v = ticks[::fr.prescale] + start
+        v = ticks[:: fr.prescale] + start
     else:
         bits = fr.counter_bits
         end = int(_floor_scaled(np.array([edges.end]), edges.num * design.rates.timer_hz, edges.den)[0])
@@ -486,8 +532,16 @@ def guess_format(path) -> str | None:
     return next((f for ext, f in EXTENSIONS.items() if name.endswith(ext)), None)
 
 
-def load(design: Design, path, fmt: str | None = None, signal: str | None = None, edge: str = "rising",
-         offset_hz: float = 0.0, endian: str = "little", word_bits: int | None = None) -> Recording:
+def load(
+    design: Design,
+    path,
+    fmt: str | None = None,
+    signal: str | None = None,
+    edge: str = "rising",
+    offset_hz: float = 0.0,
+    endian: str = "little",
+    word_bits: int | None = None,
+) -> Recording:
     """Read a recording and turn it into the design's inputs; RecordingError (naming the file and
     the line or offset) when it cannot be used. ``fmt`` None: from the file name's extension."""
     path = Path(path)
@@ -508,8 +562,9 @@ def load(design: Design, path, fmt: str | None = None, signal: str | None = None
         else:
             wb = word_bits or bits
             if wb not in (16, 32, 64) or wb < bits:
-                raise RecordingError(path, "", f"{wb}-bit words cannot hold {bits}-bit inputs (16, 32 or 64, "
-                                     f"at least {bits})")
+                raise RecordingError(
+                    path, "", f"{wb}-bit words cannot hold {bits}-bit inputs (16, 32 or 64, at least {bits})"
+                )
             values = read_bin(path, wb, endian)  # type: ignore[assignment]
             where = [f": offset {i * (wb // 8)}" for i in range(len(values))]
         inputs, seconds, nedges = logged_inputs(design, path, values, where)
@@ -526,7 +581,11 @@ def load(design: Design, path, fmt: str | None = None, signal: str | None = None
             _check_rate(path, fs, design, offset_hz, iq)
             if iq and not np.any(x):
                 raise RecordingError(path, "", "every IQ sample is zero: no carrier, no edges")
-            t = iq_edges(x[:, 0] + 1j * x[:, 1], fs, design.if_hz, offset_hz, edge) if iq else real_edges(x[:, 0], fs, edge)
+            t = (
+                iq_edges(x[:, 0] + 1j * x[:, 1], fs, design.if_hz, offset_hz, edge)
+                if iq
+                else real_edges(x[:, 0], fs, edge)
+            )
             kind = f"IQ WAV, channel offset {offset_hz:g} Hz" if iq else "IF WAV"
             e = _float_edges(t, x.shape[0], fs, f"{kind}, {fs} Hz, {x.shape[0]} samples, {edge} crossings")
         else:
@@ -535,14 +594,20 @@ def load(design: Design, path, fmt: str | None = None, signal: str | None = None
                 raise RecordingError(path, "", "every IQ sample is zero: no carrier, no edges")
             _check_rate(path, fs, design, offset_hz, True)
             c = f", centre {centre:g} Hz" if isinstance(centre, (int, float)) else ""
-            e = _float_edges(iq_edges(x, fs, design.if_hz, offset_hz, edge), x.size, fs,
-                             f"SigMF IQ, {fs:g} Hz{c}, channel offset {offset_hz:g} Hz, {x.size} samples, {edge} crossings")
+            e = _float_edges(
+                iq_edges(x, fs, design.if_hz, offset_hz, edge),
+                x.size,
+                fs,
+                f"SigMF IQ, {fs:g} Hz{c}, channel offset {offset_hz:g} Hz, {x.size} samples, {edge} crossings",
+            )
         if e.at.size < 2:
-            raise RecordingError(path, "", f"{e.at.size} {edge} edge(s) in {e.seconds:g} s: nothing to demodulate "
-                                 f"({e.what})")
+            raise RecordingError(
+                path, "", f"{e.at.size} {edge} edge(s) in {e.seconds:g} s: nothing to demodulate ({e.what})"
+            )
         inputs, seconds, nedges, what, times = edges_to_inputs(design, e), e.seconds, int(e.at.size), e.what, e.times()
     need = settle_s(design)
     if seconds < need:
-        raise RecordingError(path, "", f"lasts {seconds * 1e3:.3g} ms, shorter than the chain's settling time "
-                             f"{need * 1e3:.3g} ms")
+        raise RecordingError(
+            path, "", f"lasts {seconds * 1e3:.3g} ms, shorter than the chain's settling time {need * 1e3:.3g} ms"
+        )
     return Recording(str(path), fmt, inputs, seconds, nedges, what, times)

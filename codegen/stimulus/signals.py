@@ -19,7 +19,7 @@ from ..fixedpoint import wrap_bits
 @dataclass(frozen=True)
 class Tone:
     freq_hz: float
-    deviation_hz: float      # peak frequency deviation this tone causes
+    deviation_hz: float  # peak frequency deviation this tone causes
     phase_rad: float = 0.0
 
 
@@ -27,7 +27,7 @@ class Tone:
 class FmSignal:
     if_hz: float
     tones: tuple[Tone, ...]
-    start_phase: float = 0.0   # cycles, in [0, 1)
+    start_phase: float = 0.0  # cycles, in [0, 1)
 
     def phase(self, t):
         """Phase in cycles at times t (s)."""
@@ -91,8 +91,16 @@ def capture(times: np.ndarray, timer_hz: float, timer_bits: int, offset_ticks: i
     return wrap_bits(ticks, timer_bits).astype(dtype)
 
 
-def software_stamps(times: np.ndarray, timer_hz: float, timer_bits: int, cpu_hz: float, latency_cycles: int,
-                    jitter_cycles: int, rng: np.random.Generator, offset_ticks: int = 0) -> np.ndarray:
+def software_stamps(
+    times: np.ndarray,
+    timer_hz: float,
+    timer_bits: int,
+    cpu_hz: float,
+    latency_cycles: int,
+    jitter_cycles: int,
+    rng: np.random.Generator,
+    offset_ticks: int = 0,
+) -> np.ndarray:
     """What an edge interrupt reads from a free-running timer: the edge time plus the interrupt
     latency, a fixed part and a part uniform over [0, jitter_cycles] CPU cycles, then quantised and
     wrapped like a capture. The stamps stay in order (a later edge cannot be read earlier)."""
@@ -100,8 +108,9 @@ def software_stamps(times: np.ndarray, timer_hz: float, timer_bits: int, cpu_hz:
     return capture(np.maximum.accumulate(times + late), timer_hz, timer_bits, offset_ticks)
 
 
-def counts_at(times: np.ndarray, grid_hz: float, duration_s: float, counter_bits: int,
-              offset: int = 0, start_s: float = 0.0) -> np.ndarray:
+def counts_at(
+    times: np.ndarray, grid_hz: float, duration_s: float, counter_bits: int, offset: int = 0, start_s: float = 0.0
+) -> np.ndarray:
     """What an IF-clocked counter reads at each grid instant start_s + k / grid_hz: the number of
     edges before that instant plus the counter's start value, wrapped to counter_bits."""
     k = np.arange(int(np.floor((duration_s - start_s) * grid_hz)) + 1)
@@ -111,8 +120,10 @@ def counts_at(times: np.ndarray, grid_hz: float, duration_s: float, counter_bits
     return wrap_bits(n, counter_bits).astype(dtype)
 
 
-def test_tone(if_hz: float, full_scale_hz: float, level: float, tone_hz: float,
-              rng: np.random.Generator) -> FmSignal:
+def test_tone(if_hz: float, full_scale_hz: float, level: float, tone_hz: float, rng: np.random.Generator) -> FmSignal:
     """A single tone at ``level`` of full-scale deviation with random start and modulation phase."""
-    return FmSignal(if_hz=if_hz, tones=(Tone(tone_hz, level * full_scale_hz, float(rng.uniform(0, 2 * np.pi))),),
-                    start_phase=float(rng.uniform(0, 1)))
+    return FmSignal(
+        if_hz=if_hz,
+        tones=(Tone(tone_hz, level * full_scale_hz, float(rng.uniform(0, 2 * np.pi))),),
+        start_phase=float(rng.uniform(0, 1)),
+    )

@@ -46,19 +46,19 @@ FREESTANDING_FLAGS = ("-ffreestanding", "-nostdlib", "-fno-common")
 class CoreTarget:
     """How one emulated core is built and run."""
 
-    name: str                        # the core profile's name in edgetally.cores
-    arch: str                        # "arm", "riscv" or "avr"
-    cc: str                          # the cross compiler (overridable through the environment variable env)
+    name: str  # the core profile's name in edgetally.cores
+    arch: str  # "arm", "riscv" or "avr"
+    cc: str  # the cross compiler (overridable through the environment variable env)
     env: str
-    package: str                     # the Debian package that has the compiler
-    flags: tuple[str, ...]           # code generation flags of the integer build
-    float_flags: tuple[str, ...]     # the same for the single-precision float baseline
-    float_hw: bool                   # the float baseline uses a hardware FPU
-    emulator: str                    # "unicorn" or "simavr"
-    in_len: int                      # harness input buffer, elements
-    out_len: int                     # harness output buffer, samples
-    link: tuple[str, ...] = ()       # extra link flags
-    libs: tuple[str, ...] = ("-lgcc",)   # run-time libraries (avr-libc keeps the soft float in libm)
+    package: str  # the Debian package that has the compiler
+    flags: tuple[str, ...]  # code generation flags of the integer build
+    float_flags: tuple[str, ...]  # the same for the single-precision float baseline
+    float_hw: bool  # the float baseline uses a hardware FPU
+    emulator: str  # "unicorn" or "simavr"
+    in_len: int  # harness input buffer, elements
+    out_len: int  # harness output buffer, samples
+    link: tuple[str, ...] = ()  # extra link flags
+    libs: tuple[str, ...] = ("-lgcc",)  # run-time libraries (avr-libc keeps the soft float in libm)
 
 
 _M0 = ("-mcpu=cortex-m0plus", "-mthumb", "-mfloat-abi=soft")
@@ -69,26 +69,82 @@ AVR_PART = "atmega1284p"
 _AVR = (f"-mmcu={AVR_PART}",)
 
 TARGETS: dict[str, CoreTarget] = {
-    "cortex-m0plus": CoreTarget("cortex-m0plus", "arm", "arm-none-eabi-gcc", "ARM_CC", "gcc-arm-none-eabi",
-                                _M0, _M0, False, "unicorn", 4096, 4096),
+    "cortex-m0plus": CoreTarget(
+        "cortex-m0plus",
+        "arm",
+        "arm-none-eabi-gcc",
+        "ARM_CC",
+        "gcc-arm-none-eabi",
+        _M0,
+        _M0,
+        False,
+        "unicorn",
+        4096,
+        4096,
+    ),
     # the M4F class: the integer build as on any M4; the float baseline on its single-precision FPU
-    "cortex-m4": CoreTarget("cortex-m4", "arm", "arm-none-eabi-gcc", "ARM_CC", "gcc-arm-none-eabi",
-                            _M4, ("-mcpu=cortex-m4", "-mthumb", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard"), True,
-                            "unicorn", 4096, 4096),
-    "rv32imc": CoreTarget("rv32imc", "riscv", "riscv64-unknown-elf-gcc", "RISCV_CC", "gcc-riscv64-unknown-elf",
-                          _RV_IMC, _RV_IMC, False, "unicorn", 4096, 4096),
-    "rv32ec": CoreTarget("rv32ec", "riscv", "riscv64-unknown-elf-gcc", "RISCV_CC", "gcc-riscv64-unknown-elf",
-                         _RV_EC, _RV_EC, False, "unicorn", 4096, 4096),
-    "avr": CoreTarget("avr", "avr", "avr-gcc", "AVR_CC", "gcc-avr", _AVR, _AVR, False, "simavr", 512, 512,
-                      link=("-Wl,--section-start=.text=0x100",), libs=("-lm", "-lgcc")),
+    "cortex-m4": CoreTarget(
+        "cortex-m4",
+        "arm",
+        "arm-none-eabi-gcc",
+        "ARM_CC",
+        "gcc-arm-none-eabi",
+        _M4,
+        ("-mcpu=cortex-m4", "-mthumb", "-mfpu=fpv4-sp-d16", "-mfloat-abi=hard"),
+        True,
+        "unicorn",
+        4096,
+        4096,
+    ),
+    "rv32imc": CoreTarget(
+        "rv32imc",
+        "riscv",
+        "riscv64-unknown-elf-gcc",
+        "RISCV_CC",
+        "gcc-riscv64-unknown-elf",
+        _RV_IMC,
+        _RV_IMC,
+        False,
+        "unicorn",
+        4096,
+        4096,
+    ),
+    "rv32ec": CoreTarget(
+        "rv32ec",
+        "riscv",
+        "riscv64-unknown-elf-gcc",
+        "RISCV_CC",
+        "gcc-riscv64-unknown-elf",
+        _RV_EC,
+        _RV_EC,
+        False,
+        "unicorn",
+        4096,
+        4096,
+    ),
+    "avr": CoreTarget(
+        "avr",
+        "avr",
+        "avr-gcc",
+        "AVR_CC",
+        "gcc-avr",
+        _AVR,
+        _AVR,
+        False,
+        "simavr",
+        512,
+        512,
+        link=("-Wl,--section-start=.text=0x100",),
+        libs=("-lm", "-lgcc"),
+    ),
 }
 
 # Memory map of the unicorn machines (the AVR's is the part's own).
 FLASH_BASE, FLASH_SIZE = 0x08000000, 0x00100000
 RAM_BASE, RAM_SIZE = 0x20000000, 0x00040000
-STOP_BASE = 0x00F00000                  # an extra mapped page; the return address points here
+STOP_BASE = 0x00F00000  # an extra mapped page; the return address points here
 STACK_TOP = RAM_BASE + RAM_SIZE - 16
-MAX_INSNS_PER_CALL = 200_000_000        # a runaway guard for one emulated call
+MAX_INSNS_PER_CALL = 200_000_000  # a runaway guard for one emulated call
 
 LINKER_SCRIPT = f"""\
 /* Minimal image for the emulator: code and constants in flash, data and bss in RAM (loaded in
@@ -135,12 +191,15 @@ def emulator_available(core: str = "cortex-m0plus") -> bool:
     pyelftools and simavr's library with its headers and a host C compiler (AVR)."""
     try:
         import elftools  # noqa: F401
+
         if _target(core).emulator == "unicorn":
             import unicorn  # noqa: F401
+
             return True
     except ImportError:
         return False
     from . import simavr
+
     return simavr.available()
 
 
@@ -161,9 +220,9 @@ def toolchain() -> str | None:
 @dataclass(frozen=True)
 class Symbol:
     name: str
-    addr: int          # Thumb bit cleared; AVR: byte address in flash, or in data space for RAM
+    addr: int  # Thumb bit cleared; AVR: byte address in flash, or in data space for RAM
     size: int
-    kind: str          # "FUNC" or "OBJECT"
+    kind: str  # "FUNC" or "OBJECT"
     section: str
 
 
@@ -172,18 +231,18 @@ class TargetBuild:
     design_name: str
     core: str
     opt: str
-    elf: Path | None                       # the ELF file while the build folder exists (workdir given)
+    elf: Path | None  # the ELF file while the build folder exists (workdir given)
     elf_bytes: bytes
     workdir: Path | None
     symbols: dict[str, Symbol]
-    flash_by_function: dict[str, int]      # FUNC symbols of the demodulator (code bytes)
-    flash_by_object: dict[str, int]        # const tables of the demodulator (flash)
-    ram_by_object: dict[str, int]          # RAM objects: the state and the harness buffers
-    flash_demod: int                       # demodulator code + constants
-    flash_runtime: int                     # libgcc helpers the demodulator pulled in
-    flash_total: int                       # everything in flash, harness included
-    ram_state: int                         # sizeof(<name>_state_t)
-    ram_total: int                         # .data + .bss, harness buffers included
+    flash_by_function: dict[str, int]  # FUNC symbols of the demodulator (code bytes)
+    flash_by_object: dict[str, int]  # const tables of the demodulator (flash)
+    ram_by_object: dict[str, int]  # RAM objects: the state and the harness buffers
+    flash_demod: int  # demodulator code + constants
+    flash_runtime: int  # libgcc helpers the demodulator pulled in
+    flash_total: int  # everything in flash, harness included
+    ram_state: int  # sizeof(<name>_state_t)
+    ram_total: int  # .data + .bss, harness buffers included
     input_ctype: str
     sample_dtype: type
     input_dtype: type
@@ -213,10 +272,12 @@ def harness(design: Design, in_len: int, out_len: int) -> str:
         call = f"    {p}_edge_isr(&harness_state, ({p}_input_t)value);\n"
     elif topo is Topology.EDGE_COUNT:
         mask = (1 << fr.counter_bits) - 1
-        call = (f"    uint32_t k = (value - harness_last) & UINT32_C(0x{mask:X});\n"
-                f"    harness_last = value;\n"
-                f"    while (k > 0u) {{\n        {p}_edge_isr(&harness_state);\n        k--;\n    }}\n"
-                f"    {p}_tick_isr(&harness_state);\n")
+        call = (
+            f"    uint32_t k = (value - harness_last) & UINT32_C(0x{mask:X});\n"
+            f"    harness_last = value;\n"
+            f"    while (k > 0u) {{\n        {p}_edge_isr(&harness_state);\n        k--;\n    }}\n"
+            f"    {p}_tick_isr(&harness_state);\n"
+        )
     else:
         call = f"    {p}_tick_isr(&harness_state, ({p}_input_t)value);\n"
     return f"""\
@@ -320,8 +381,13 @@ def compile_and_link(core: str, sources: dict[str, str], cflags: list[str], wd: 
     return run_compiler([cc, *cflags, *FREESTANDING_FLAGS, *cfiles, *link_script, *t.link, *t.libs, "-o", elf_name], wd)
 
 
-def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str | None = None,
-                emitted: dict[str, str] | None = None) -> TargetBuild:
+def cross_build(
+    design: Design,
+    core: str,
+    opt: str = "-Os",
+    workdir: Path | str | None = None,
+    emitted: dict[str, str] | None = None,
+) -> TargetBuild:
     """Emit the C (or take ``emitted``, the output of ``edgetally.emit.emit(design)``), add the
     harness, compile and link for ``core`` (a key of TARGETS) with the strict flags (warnings are
     errors). Files go to ``workdir`` (made if needed, kept) or to a temporary folder removed before
@@ -329,8 +395,9 @@ def cross_build(design: Design, core: str, opt: str = "-Os", workdir: Path | str
     t = _target(core)
     # the demodulator's header and source; the wiring skeleton (<name>_port.c) needs the user's
     # hardware functions and is compiled by its own tests
-    sources = {n: t for n, t in (emitted if emitted is not None else emit(design)).items()
-               if n != f"{design.name}_port.c"}
+    sources = {
+        n: t for n, t in (emitted if emitted is not None else emit(design)).items() if n != f"{design.name}_port.c"
+    }
     sources["harness.c"] = harness(design, t.in_len, t.out_len)
     # -g only adds debug sections (the DWARF ranges cycles.measure uses); it does not change the code.
     flags = [*STRICT_FLAGS, opt, *t.flags, "-gdwarf-4"]
@@ -377,9 +444,9 @@ def describe(design: Design, core: str, opt: str, elf_path: Path | bytes, wd: Pa
         syms[s.name] = Symbol(s.name, addr, s["st_size"], kind[4:], secnames[s["st_shndx"]])
     state_sym = syms["harness_state_size"]
     sec = elf.get_section_by_name(state_sym.section)
-    assert sec is not None                           # the symbol's own section
+    assert sec is not None  # the symbol's own section
     off = state_sym.addr - sec["sh_addr"]
-    state_size = int.from_bytes(sec.data()[off:off + 4], "little")
+    state_size = int.from_bytes(sec.data()[off : off + 4], "little")
 
     def ours(n: str) -> bool:
         return n.startswith(p + "_")
@@ -393,11 +460,24 @@ def describe(design: Design, core: str, opt: str, elf_path: Path | bytes, wd: Pa
     flash_total = sum(sec_sizes.get(n, 0) for n in (".text", ".rodata", ".ARM.exidx", ".data"))
     ram_total = sum(sec_sizes.get(n, 0) for n in (".data", ".bss"))
     return TargetBuild(
-        design_name=p, core=core, opt=opt, elf=None if isinstance(elf_path, bytes) else Path(elf_path), elf_bytes=data,
-        workdir=wd, symbols=syms,
-        flash_by_function=dict(sorted(fn.items())), flash_by_object=dict(sorted(fobj.items())),
-        ram_by_object=dict(sorted(ram.items())), flash_demod=sum(fn.values()) + sum(fobj.values()),
-        flash_runtime=runtime, flash_total=flash_total, ram_state=state_size, ram_total=ram_total,
+        design_name=p,
+        core=core,
+        opt=opt,
+        elf=None if isinstance(elf_path, bytes) else Path(elf_path),
+        elf_bytes=data,
+        workdir=wd,
+        symbols=syms,
+        flash_by_function=dict(sorted(fn.items())),
+        flash_by_object=dict(sorted(fobj.items())),
+        ram_by_object=dict(sorted(ram.items())),
+        flash_demod=sum(fn.values()) + sum(fobj.values()),
+        flash_runtime=runtime,
+        flash_total=flash_total,
+        ram_state=state_size,
+        ram_total=ram_total,
         input_ctype=input_type(design),
         sample_dtype=np.int16 if design.output.ctype == "int16_t" else np.uint16,
-        input_dtype=np.uint16 if input_type(design) == "uint16_t" else np.uint32, compile_log=log, target=t)
+        input_dtype=np.uint16 if input_type(design) == "uint16_t" else np.uint32,
+        compile_log=log,
+        target=t,
+    )

@@ -21,8 +21,9 @@ MAX_ENTRIES = 256
 
 
 def folder() -> Path:
-    d = os.environ.get("EDGETALLY_CACHE") or os.path.join(tempfile.gettempdir(),
-                                                          f"edgetally-cache-{os.getuid() if hasattr(os, 'getuid') else 0}")
+    d = os.environ.get("EDGETALLY_CACHE") or os.path.join(
+        tempfile.gettempdir(), f"edgetally-cache-{os.getuid() if hasattr(os, 'getuid') else 0}"
+    )
     p = Path(d)
     p.mkdir(parents=True, exist_ok=True)
     return p
@@ -43,7 +44,7 @@ def _trim(d: Path) -> None:
         except OSError:
             pass
     dated.sort(key=lambda item: item[0])
-    for _, f in dated[:max(0, len(dated) - MAX_ENTRIES)]:
+    for _, f in dated[: max(0, len(dated) - MAX_ENTRIES)]:
         f.unlink(missing_ok=True)
 
 
@@ -110,8 +111,11 @@ def host_library(name: str, libs: tuple[str, ...] = ()) -> Path:
         c = Path(tmp) / f"{name}.c"
         c.write_text(src, encoding="utf-8")
         so = Path(tmp) / "lib.so"
-        res = subprocess.run([cc, "-O2", "-shared", "-fPIC", "-o", str(so), str(c), *[f"-l{x}" for x in libs]],
-                             capture_output=True, text=True)
+        res = subprocess.run(
+            [cc, "-O2", "-shared", "-fPIC", "-o", str(so), str(c), *[f"-l{x}" for x in libs]],
+            capture_output=True,
+            text=True,
+        )
         if res.returncode != 0:
             raise HostLibError(f"compiling {name}.c: {res.stderr.strip()[:2000]}")
         os.replace(so, out)

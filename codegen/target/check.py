@@ -22,7 +22,7 @@ TARGET_SECONDS = 0.1
 # simavr runs about 10 million AVR instructions a second here and an AVR needs several times the
 # instructions of a 32-bit core per input: its bit-exact run covers the first inputs only.
 MAX_INPUTS = {"avr": 6000}
-ISR_INPUTS = 1000        # the ISR path's per-call costs
+ISR_INPUTS = 1000  # the ISR path's per-call costs
 
 
 @dataclass
@@ -47,7 +47,7 @@ class CoreCheck:
     # has one; double precision as an extra column
     cycles_per_output_sample: float
     float_cycles_per_output_sample: float
-    float_ratio: float               # float cycles / integer cycles: below 1 means float is faster
+    float_ratio: float  # float cycles / integer cycles: below 1 means float is faster
     float_fpu: bool
     double_cycles_per_output_sample: float
     double_ratio: float
@@ -82,8 +82,14 @@ class _Models:
             return self.runs[n]
 
 
-def check_core(design: Design, core: str, inputs: np.ndarray, bench: np.ndarray,
-               emitted: dict[str, str] | None = None, models: _Models | None = None) -> CoreCheck:
+def check_core(
+    design: Design,
+    core: str,
+    inputs: np.ndarray,
+    bench: np.ndarray,
+    emitted: dict[str, str] | None = None,
+    models: _Models | None = None,
+) -> CoreCheck:
     """Build ``design`` for ``core`` once (-Os), run it on ``inputs`` (at least WARM + N of the
     float baseline) against the model, measure the cycles per event and per output sample over
     inputs [WARM, WARM + N), check its instructions, and compare with the float baseline on
@@ -96,7 +102,7 @@ def check_core(design: Design, core: str, inputs: np.ndarray, bench: np.ndarray,
     from . import run as target_run
 
     models = models or _Models(design, inputs)
-    inputs = np.ascontiguousarray(inputs[:MAX_INPUTS.get(core, inputs.size)])
+    inputs = np.ascontiguousarray(inputs[: MAX_INPUTS.get(core, inputs.size)])
     W, N = float_baseline.WARM, float_baseline.N
     b = target.cross_build(design, core, "-Os", emitted=emitted)
     x: np.ndarray = inputs.astype(b.input_dtype)
@@ -108,39 +114,52 @@ def check_core(design: Design, core: str, inputs: np.ndarray, bench: np.ndarray,
     m.call("harness_init")
     chunks = target_run.feed_process(m, b, x[:W], b.in_len)
     prof.start()
-    window = target_run.feed_process(m, b, x[W:W + N], b.in_len)
+    window = target_run.feed_process(m, b, x[W : W + N], b.in_len)
     prof.stop()
-    chunks += window + target_run.feed_process(m, b, x[W + N:], b.in_len)
+    chunks += window + target_run.feed_process(m, b, x[W + N :], b.in_len)
     outputs = np.concatenate(chunks)
     want, before, upto = models.prefix(inputs.size), models.prefix(W), models.prefix(W + N)
     n_out = int(upto.out.size - before.out.size)
     if sum(c.size for c in window) != n_out:
-        raise target.TargetRunError(f"{core}: the measured window made {sum(c.size for c in window)} outputs, "
-                                    f"the model {n_out}")
+        raise target.TargetRunError(
+            f"{core}: the measured window made {sum(c.size for c in window)} outputs, the model {n_out}"
+        )
     t = prof.result()
     t_isr, isr_stack = target_cycles.isr_tally(b, design, x[:ISR_INPUTS], rl, entries)
-    c = target_cycles.costs(b, design, t, N, int(upto.steps.size - before.steps.size), n_out, t_isr,
-                            max(m.stack_used(), isr_stack))
+    c = target_cycles.costs(
+        b, design, t, N, int(upto.steps.size - before.steps.size), n_out, t_isr, max(m.stack_used(), isr_stack)
+    )
     int_cycles = sum(t.cycles.values()) / n_out
     base = float_baseline.baseline(design, core, bench)
     out = CoreCheck(
-        core=core, bit_exact=bool(np.array_equal(outputs, want.out)), samples=int(outputs.size),
-        inputs=int(inputs.size), cycles_per_edge_isr=max(c.isr_cycles_with_entry.values(), default=0.0),
-        cycles_per_input=c.cycles_per_input, cycles_per_grid=c.cycles_per_grid, cycles_per_output=c.cycles_per_output,
-        flash_bytes=b.flash_demod + b.flash_runtime, state_bytes=b.ram_state, stack_bytes=c.stack_bytes,
-        cycle_method=c.method, isr_cycles_with_entry=dict(c.isr_cycles_with_entry),
+        core=core,
+        bit_exact=bool(np.array_equal(outputs, want.out)),
+        samples=int(outputs.size),
+        inputs=int(inputs.size),
+        cycles_per_edge_isr=max(c.isr_cycles_with_entry.values(), default=0.0),
+        cycles_per_input=c.cycles_per_input,
+        cycles_per_grid=c.cycles_per_grid,
+        cycles_per_output=c.cycles_per_output,
+        flash_bytes=b.flash_demod + b.flash_runtime,
+        state_bytes=b.ram_state,
+        stack_bytes=c.stack_bytes,
+        cycle_method=c.method,
+        isr_cycles_with_entry=dict(c.isr_cycles_with_entry),
         cycles_per_output_sample=round(int_cycles, 1),
         float_cycles_per_output_sample=round(base.single.cycles, 1),
-        float_ratio=round(base.single.cycles / int_cycles, 2), float_fpu=base.fpu,
+        float_ratio=round(base.single.cycles / int_cycles, 2),
+        float_fpu=base.fpu,
         double_cycles_per_output_sample=round(base.double.cycles, 1),
         double_ratio=round(base.double.cycles / int_cycles, 2),
-        isa_violations=[str(v) for v in isa.violations(b)])
+        isa_violations=[str(v) for v in isa.violations(b)],
+    )
     out.load_fraction = measured_load(design, out)
     return out
 
 
-def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARGET_SECONDS,
-                 cores: tuple[str, ...] | None = None) -> dict:
+def target_check(
+    design: Design, seed: int = DEFAULT_SEED, seconds: float = TARGET_SECONDS, cores: tuple[str, ...] | None = None
+) -> dict:
     """The same C cross-compiled for each emulated core (-Os) and run on the first ``seconds`` of
     the standard test: bit-exact against the model, the measured cycles per event, the instruction-
     set check, and cycles per output sample against the hand-written float baseline. The cores run
@@ -154,7 +173,7 @@ def target_check(design: Design, seed: int = DEFAULT_SEED, seconds: float = TARG
     from ..emit import emit
 
     inputs = make_inputs(design, seconds, seed)
-    if inputs.size < float_baseline.WARM + float_baseline.N:      # the float baseline's window must fit
+    if inputs.size < float_baseline.WARM + float_baseline.N:  # the float baseline's window must fit
         inputs = float_baseline.bench_inputs(design, seed)
     bench = inputs
     emitted, models = emit(design), _Models(design, inputs)

@@ -44,10 +44,42 @@ from .run import feed_isr, feed_process, machine
 # multiplier option: ALU 1, load 2, store 1, branch taken 3 (not taken 1), JAL 2, JALR 3, MUL/MULH 1,
 # DIV/REM 34 (a bit-serial divider). The RV32EC class has no multiply or divide instruction.
 TIMING = {
-    "cortex-m0plus": dict(alu=1, load=2, store=2, multi_base=1, pop_pc_extra=2, branch_taken=2, branch_not=1, bl=3,
-                          bx=2, mul=1, mul_long=1, div=12, fpu=1, fpu_mem=2, fpu_mac=3, fpu_div=14),
-    "cortex-m4": dict(alu=1, load=2, store=2, multi_base=1, pop_pc_extra=2, branch_taken=3, branch_not=1, bl=3,
-                      bx=3, mul=1, mul_long=1, div=12, fpu=1, fpu_mem=2, fpu_mac=3, fpu_div=14),
+    "cortex-m0plus": dict(
+        alu=1,
+        load=2,
+        store=2,
+        multi_base=1,
+        pop_pc_extra=2,
+        branch_taken=2,
+        branch_not=1,
+        bl=3,
+        bx=2,
+        mul=1,
+        mul_long=1,
+        div=12,
+        fpu=1,
+        fpu_mem=2,
+        fpu_mac=3,
+        fpu_div=14,
+    ),
+    "cortex-m4": dict(
+        alu=1,
+        load=2,
+        store=2,
+        multi_base=1,
+        pop_pc_extra=2,
+        branch_taken=3,
+        branch_not=1,
+        bl=3,
+        bx=3,
+        mul=1,
+        mul_long=1,
+        div=12,
+        fpu=1,
+        fpu_mem=2,
+        fpu_mac=3,
+        fpu_div=14,
+    ),
     "rv32imc": dict(alu=1, load=2, store=1, branch_taken=3, branch_not=1, jal=2, jalr=3, mul=1, div=34),
     "rv32ec": dict(alu=1, load=2, store=1, branch_taken=3, branch_not=1, jal=2, jalr=3, mul=1, div=34),
 }
@@ -64,21 +96,21 @@ CYCLE_SOURCE = {
 class Costs:
     core: str
     opt: str
-    method: str                      # where the cycles come from (CYCLE_SOURCE)
+    method: str  # where the cycles come from (CYCLE_SOURCE)
     inputs: int
     grid_instants: int
     outputs: int
-    instr_per_input: float           # <name>_process/_input and the front end, per input
-    instr_per_grid: float            # <name>_grid without post, per grid instant (CIC, 1-in-R combs)
-    instr_per_output: float          # <name>_post, per output sample
-    instr_per_output_total: float    # the whole process run divided by the outputs
+    instr_per_input: float  # <name>_process/_input and the front end, per input
+    instr_per_grid: float  # <name>_grid without post, per grid instant (CIC, 1-in-R combs)
+    instr_per_output: float  # <name>_post, per output sample
+    instr_per_output_total: float  # the whole process run divided by the outputs
     cycles_per_input: float
     cycles_per_grid: float
     cycles_per_output: float
     cycles_per_output_total: float
-    isr_instr: dict[str, float]      # per call of each ISR function (body only, no entry/exit)
+    isr_instr: dict[str, float]  # per call of each ISR function (body only, no entry/exit)
     isr_cycles: dict[str, float]
-    isr_cycles_with_entry: dict[str, float]   # + exception entry and exit from ..cores (estimate)
+    isr_cycles_with_entry: dict[str, float]  # + exception entry and exit from ..cores (estimate)
     class_counts: dict[str, int] = field(default_factory=dict)
     stack_bytes: int = 0
 
@@ -127,8 +159,24 @@ def _arm_class(insn, c) -> tuple[str, float, str]:
     return "alu", c["alu"], ""
 
 
-_RV_COND = {"beq", "bne", "blt", "bge", "bltu", "bgeu", "beqz", "bnez", "blez", "bgez", "bltz", "bgtz",
-            "bgt", "ble", "bgtu", "bleu"}
+_RV_COND = {
+    "beq",
+    "bne",
+    "blt",
+    "bge",
+    "bltu",
+    "bgeu",
+    "beqz",
+    "bnez",
+    "blez",
+    "bgez",
+    "bltz",
+    "bgtz",
+    "bgt",
+    "ble",
+    "bgtu",
+    "bleu",
+}
 
 
 def _rv_class(insn, c) -> tuple[str, float, str]:
@@ -255,8 +303,7 @@ class Profiler:
     role count for the role of the code that ran last (its caller). ``entries`` maps function
     addresses to the names whose calls are counted. Call ``start()`` before the measured part."""
 
-    def __init__(self, m, build: TargetBuild, roles: list[tuple[str, list[tuple[int, int]]]],
-                 entries: dict[int, str]):
+    def __init__(self, m, build: TargetBuild, roles: list[tuple[str, list[tuple[int, int]]]], entries: dict[int, str]):
         self.m, self.build, self.entries = m, build, entries
         self.names = ["other"] + [n for n, _ in roles]
         avr = build.target.arch == "avr"
@@ -313,7 +360,7 @@ class Profiler:
                     items.append((int(self.role[(insn.address - self.base) // 2]), cls, cyc, kind))
                 decoded[(addr, size)] = items
             k, kind = ctx, ""
-            for r, cls, cyc, kind in items:    # noqa: B007 (the last instruction's kind is read below)
+            for r, cls, cyc, kind in items:  # noqa: B007 (the last instruction's kind is read below)
                 if r:
                     k = r
                 counts[names[k]] = counts.get(names[k], 0) + n
@@ -356,8 +403,9 @@ def isr_tally(build: TargetBuild, design: Design, inputs: np.ndarray, rl, entrie
     return prof.result(), m.stack_used()
 
 
-def costs(build: TargetBuild, design: Design, t: Tally, n_in: int, n_grid: int, n_out: int, t_isr: Tally,
-          stack: int) -> Costs:
+def costs(
+    build: TargetBuild, design: Design, t: Tally, n_in: int, n_grid: int, n_out: int, t_isr: Tally, stack: int
+) -> Costs:
     """Per-event figures from a process-path tally over ``n_in`` inputs (that made ``n_grid`` grid
     instants and ``n_out`` samples) and an ISR-path tally."""
     from ..cores import CORES
@@ -372,16 +420,26 @@ def costs(build: TargetBuild, design: Design, t: Tally, n_in: int, n_grid: int, 
     work = ("input", "grid", "output")
     cnt, cyc = t.counts, t.cycles
     return Costs(
-        core=build.core, opt=build.opt, method=CYCLE_SOURCE[build.core], inputs=n_in, grid_instants=n_grid,
-        outputs=n_out, instr_per_input=per(cnt, "input", n_in), instr_per_grid=per(cnt, "grid", n_grid),
+        core=build.core,
+        opt=build.opt,
+        method=CYCLE_SOURCE[build.core],
+        inputs=n_in,
+        grid_instants=n_grid,
+        outputs=n_out,
+        instr_per_input=per(cnt, "input", n_in),
+        instr_per_grid=per(cnt, "grid", n_grid),
         instr_per_output=per(cnt, "output", n_out),
         instr_per_output_total=round(sum(cnt.get(k, 0) for k in work) / n_out, 2) if n_out else 0.0,
-        cycles_per_input=per(cyc, "input", n_in), cycles_per_grid=per(cyc, "grid", n_grid),
+        cycles_per_input=per(cyc, "input", n_in),
+        cycles_per_grid=per(cyc, "grid", n_grid),
         cycles_per_output=per(cyc, "output", n_out),
         cycles_per_output_total=round(sum(cyc.get(k, 0) for k in work) / n_out, 2) if n_out else 0.0,
-        isr_instr=isr_instr, isr_cycles=isr_cyc,
+        isr_instr=isr_instr,
+        isr_cycles=isr_cyc,
         isr_cycles_with_entry={n: round(v + entry, 2) for n, v in isr_cyc.items()},
-        class_counts=dict(t.classes), stack_bytes=stack)
+        class_counts=dict(t.classes),
+        stack_bytes=stack,
+    )
 
 
 def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: int = 3000, ref=None) -> Costs:
@@ -403,5 +461,5 @@ def measure(build: TargetBuild, design: Design, inputs: np.ndarray, max_inputs: 
     n_grid, n_out, n_in = int(ref.steps.size), int(ref.out.size), int(inputs.size)
     if produced != n_out:
         raise TargetRunError(f"measured run made {produced} outputs, the model {n_out}")
-    t_isr, isr_stack = isr_tally(build, design, inputs[:min(n_in, 1000)], rl, entries)
+    t_isr, isr_stack = isr_tally(build, design, inputs[: min(n_in, 1000)], rl, entries)
     return costs(build, design, prof.result(), n_in, n_grid, n_out, t_isr, max(m.stack_used(), isr_stack))

@@ -29,7 +29,7 @@ from .cycles import Profiler, code_end
 from .run import feed_process, machine
 
 WARM, N = 1024, 3072
-CPACR = 0xE000ED88      # Armv7-M System Control Block: Coprocessor Access Control Register
+CPACR = 0xE000ED88  # Armv7-M System Control Block: Coprocessor Access Control Register
 
 
 def bench_inputs(design: Design, seed: int) -> np.ndarray:
@@ -57,24 +57,28 @@ def float_params(design: Design, precision: str, in_len: int, out_len: int) -> s
     bits = fr.timer_bits if stamp else fr.counter_bits
     # phase (stamp intervals, or edges) per grid instant at full-scale deviation: the audio scale
     fs_step = design.full_scale_hz / fr.prescale / design.rates.grid_hz
-    gain = 1.0 / (fs_step * c.ratio ** c.order)
+    gain = 1.0 / (fs_step * c.ratio**c.order)
     rows = ",\n".join("    {" + ", ".join(repr(float(v)) for v in s.float_sos) + "}" for s in design.filters.sections)
     real = "float" if precision == "single" else "double"
-    return (f"#define FLT_REAL {real}\n#define FLT_IN_LEN {in_len}u\n#define FLT_OUT_LEN {out_len}u\n"
-            f"#define FLT_STAMP {1 if stamp else 0}\n"
-            f"#define FLT_INPUT_T {'uint16_t' if bits == 16 else 'uint32_t'}\n"
-            f"#define FLT_INPUT_MASK 0x{(1 << bits) - 1:X}u\n"
-            f"#define FLT_GRID_TICKS (({real}){float(fr.grid_ticks)!r})\n"
-            f"#define FLT_CIC_ORDER {c.order}u\n#define FLT_CIC_RATIO {c.ratio}u\n"
-            f"#define FLT_NSEC {len(design.filters.sections)}u\n"
-            f"#define FLT_GAIN (({real}){gain!r})\n#define FLT_DC_ALPHA (({real}){2.0 ** -design.scale.dc_shift!r})\n"
-            f"static const {real} flt_sos[FLT_NSEC][6] = {{\n{rows}\n}};\n")
+    return (
+        f"#define FLT_REAL {real}\n#define FLT_IN_LEN {in_len}u\n#define FLT_OUT_LEN {out_len}u\n"
+        f"#define FLT_STAMP {1 if stamp else 0}\n"
+        f"#define FLT_INPUT_T {'uint16_t' if bits == 16 else 'uint32_t'}\n"
+        f"#define FLT_INPUT_MASK 0x{(1 << bits) - 1:X}u\n"
+        f"#define FLT_GRID_TICKS (({real}){float(fr.grid_ticks)!r})\n"
+        f"#define FLT_CIC_ORDER {c.order}u\n#define FLT_CIC_RATIO {c.ratio}u\n"
+        f"#define FLT_NSEC {len(design.filters.sections)}u\n"
+        f"#define FLT_GAIN (({real}){gain!r})\n#define FLT_DC_ALPHA (({real}){2.0**-design.scale.dc_shift!r})\n"
+        f"static const {real} flt_sos[FLT_NSEC][6] = {{\n{rows}\n}};\n"
+    )
 
 
 def _fpu_enable() -> str:
-    return (f"void harness_fpu_on(void);\nvoid harness_fpu_on(void)\n{{\n"
-            f"    /* CP10 and CP11 full access, as a startup routine does before any float instruction */\n"
-            f"    *(volatile uint32_t *)0x{CPACR:08X}u |= (uint32_t)0xFu << 20;\n}}\n")
+    return (
+        f"void harness_fpu_on(void);\nvoid harness_fpu_on(void)\n{{\n"
+        f"    /* CP10 and CP11 full access, as a startup routine does before any float instruction */\n"
+        f"    *(volatile uint32_t *)0x{CPACR:08X}u |= (uint32_t)0xFu << 20;\n}}\n"
+    )
 
 
 def float_build(design: Design, core: str, wd: Path, precision: str = "single") -> target.TargetBuild:
@@ -84,8 +88,16 @@ def float_build(design: Design, core: str, wd: Path, precision: str = "single") 
     wd.mkdir(parents=True, exist_ok=True)
     hw = precision == "single" and t.float_hw
     src = source() + (_fpu_enable() if hw else "")
-    flags = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-Wdouble-promotion", "-Os",
-             *(t.float_flags if hw else t.flags), "-gdwarf-4"]
+    flags = [
+        "-std=c99",
+        "-Wall",
+        "-Wextra",
+        "-Werror",
+        "-Wdouble-promotion",
+        "-Os",
+        *(t.float_flags if hw else t.flags),
+        "-gdwarf-4",
+    ]
     sources = {"float_params.h": float_params(design, precision, t.in_len, t.out_len), "float_chain.c": src}
     log = target.compile_and_link(core, sources, flags, wd, "float.elf")
     return target.describe(design, core, "-Os", wd / "float.elf", wd, log)
@@ -108,7 +120,7 @@ def per_output(build: target.TargetBuild, x: np.ndarray) -> PerOutput:
     if "harness_fpu_on" in build.symbols:
         m.call("harness_fpu_on")
     m.call("harness_init")
-    x = np.ascontiguousarray(x[:WARM + N], dtype=build.input_dtype)
+    x = np.ascontiguousarray(x[: WARM + N], dtype=build.input_dtype)
     feed_process(m, build, x[:WARM], build.in_len)
     prof.start()
     produced = sum(c.size for c in feed_process(m, build, x[WARM:], build.in_len))
@@ -121,10 +133,10 @@ class Baseline:
     """The float baseline's cost on one core: single precision (the honest comparison) and double."""
 
     core: str
-    fpu: bool                      # the single-precision build used a hardware FPU
+    fpu: bool  # the single-precision build used a hardware FPU
     single: PerOutput
     double: PerOutput
-    single_flash: int              # code + constants + libgcc helpers
+    single_flash: int  # code + constants + libgcc helpers
     double_flash: int
 
 
@@ -136,17 +148,31 @@ def _code_bytes(b: target.TargetBuild) -> int:
 def baseline(design: Design, core: str, x: np.ndarray) -> Baseline:
     """The float baseline on ``core`` for ``design`` on inputs ``x`` (cached by their hash)."""
     t = target.TARGETS[core]
-    k = cache.key("float-baseline", 2, design.to_json(), core, t, source(), np.asarray(x[:WARM + N]).tobytes())
+    k = cache.key("float-baseline", 2, design.to_json(), core, t, source(), np.asarray(x[: WARM + N]).tobytes())
     got = cache.load_json(k)
     if got is not None:
-        return Baseline(core, got["fpu"], PerOutput(**got["single"]), PerOutput(**got["double"]),
-                        got["single_flash"], got["double_flash"])
+        return Baseline(
+            core,
+            got["fpu"],
+            PerOutput(**got["single"]),
+            PerOutput(**got["double"]),
+            got["single_flash"],
+            got["double_flash"],
+        )
     res = {}
     with tempfile.TemporaryDirectory(prefix="edgetally-float-") as wd:
         for prec in ("single", "double"):
             b = float_build(design, core, Path(wd) / prec, prec)
             res[prec] = (per_output(b, x), _code_bytes(b))
     out = Baseline(core, t.float_hw, res["single"][0], res["double"][0], res["single"][1], res["double"][1])
-    cache.store_json(k, {"fpu": out.fpu, "single": asdict(out.single), "double": asdict(out.double),
-                         "single_flash": out.single_flash, "double_flash": out.double_flash})
+    cache.store_json(
+        k,
+        {
+            "fpu": out.fpu,
+            "single": asdict(out.single),
+            "double": asdict(out.double),
+            "single_flash": out.single_flash,
+            "double_flash": out.double_flash,
+        },
+    )
     return out

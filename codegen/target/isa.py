@@ -32,7 +32,7 @@ _AVR_ABSENT = {"eicall", "eijmp", "des", "xch", "las", "lac", "lat"}
 @dataclass(frozen=True)
 class Violation:
     address: int
-    text: str          # the instruction as disassembled
+    text: str  # the instruction as disassembled
     reason: str
 
     def __str__(self) -> str:
@@ -41,12 +41,15 @@ class Violation:
 
 def _arm_data_ranges(elf) -> list[tuple[int, int]]:
     """Literal pools inside .text: from a $d mapping symbol to the next $t (ARM ELF ABI)."""
-    marks = sorted((s["st_value"], s.name[:2]) for s in elf.get_section_by_name(".symtab").iter_symbols()
-                   if s.name in ("$d", "$t") or s.name.startswith(("$d.", "$t.")))
+    marks = sorted(
+        (s["st_value"], s.name[:2])
+        for s in elf.get_section_by_name(".symtab").iter_symbols()
+        if s.name in ("$d", "$t") or s.name.startswith(("$d.", "$t."))
+    )
     out = []
     for i, (addr, kind) in enumerate(marks):
         if kind == "$d":
-            end = next((a for a, k in marks[i + 1:] if k == "$t"), 1 << 32)
+            end = next((a for a, k in marks[i + 1 :] if k == "$t"), 1 << 32)
             out.append((addr, end))
     return out
 
@@ -65,6 +68,7 @@ def _arm_rule(core: str, fpu: bool):
             if ".f64" in insn.mnemonic or re.search(r"\bd\d+\b", insn.op_str):
                 return "double precision: fpv4-sp-d16 is single precision only"
         return None
+
     return rule
 
 
@@ -82,6 +86,7 @@ def _rv_rule(core: str):
             if _RV_UPPER.search(insn.op_str):
                 return "a register above x15: RV32E has 16 registers"
         return None
+
     return rule
 
 
@@ -99,7 +104,7 @@ def _capstone_violations(build: TargetBuild, fpu: bool) -> list[Violation]:
         rule, data, step = _rv_rule(build.core), [], 2
     out: list[Violation] = []
     for sec in elf.iter_sections():
-        if not sec["sh_flags"] & 0x4 or sec["sh_type"] != "SHT_PROGBITS":      # SHF_EXECINSTR
+        if not sec["sh_flags"] & 0x4 or sec["sh_type"] != "SHT_PROGBITS":  # SHF_EXECINSTR
             continue
         code, base = sec.data(), sec["sh_addr"]
         off = 0
@@ -109,12 +114,12 @@ def _capstone_violations(build: TargetBuild, fpu: bool) -> list[Violation]:
             if hole is not None:
                 off = hole[1] - base
                 continue
-            if code[off:off + 2] == b"\0\0" and arch == "riscv":       # alignment padding
+            if code[off : off + 2] == b"\0\0" and arch == "riscv":  # alignment padding
                 off += 2
                 continue
-            insn = next(cs.disasm(code[off:off + 4], addr, 1), None)
+            insn = next(cs.disasm(code[off : off + 4], addr, 1), None)
             if insn is None:
-                out.append(Violation(addr, code[off:off + 4].hex(), "not a valid instruction"))
+                out.append(Violation(addr, code[off : off + 4].hex(), "not a valid instruction"))
                 off += step
                 continue
             why = rule(insn)
@@ -136,8 +141,13 @@ def _avr_violations(build: TargetBuild) -> list[Violation]:
     for line in text.splitlines():
         m = re.match(r"\s*([0-9a-f]+):\s+(?:[0-9a-f]{2} )+\s*(\S+)\s*(.*)", line)
         if m and m.group(2) in _AVR_ABSENT:
-            out.append(Violation(int(m.group(1), 16), f"{m.group(2)} {m.group(3)}".strip(),
-                                 "not on this AVR part (more than 128 KB of flash or XMEGA only)"))
+            out.append(
+                Violation(
+                    int(m.group(1), 16),
+                    f"{m.group(2)} {m.group(3)}".strip(),
+                    "not on this AVR part (more than 128 KB of flash or XMEGA only)",
+                )
+            )
         elif m and m.group(2) == ".word":
             out.append(Violation(int(m.group(1), 16), m.group(3), "not a valid instruction"))
     return out

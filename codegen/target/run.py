@@ -15,8 +15,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from .build import (COUNTERS, FLASH_BASE, FLASH_SIZE, RAM_BASE, RAM_SIZE, STACK_TOP, STOP_BASE,
-                                    TargetBuild, TargetRunError)
+from .build import (
+    COUNTERS,
+    FLASH_BASE,
+    FLASH_SIZE,
+    RAM_BASE,
+    RAM_SIZE,
+    STACK_TOP,
+    STOP_BASE,
+    TargetBuild,
+    TargetRunError,
+)
 
 # A runaway guard for one emulated call, in executed blocks (csrc/tally.c counts them in C). unicorn's
 # own instruction-count limit adds a hook to every instruction and its timeout a thread to every
@@ -30,10 +39,19 @@ class _GuardStruct(ctypes.Structure):
 
 
 class _TallyStruct(ctypes.Structure):
-    _fields_ = [("base", ctypes.c_uint64), ("nslots", ctypes.c_uint64), ("nctx", ctypes.c_uint32),
-                ("ctx", ctypes.c_uint32), ("role", ctypes.c_void_p), ("count", ctypes.c_void_p),
-                ("fall", ctypes.c_void_p), ("size", ctypes.c_void_p), ("prev", ctypes.c_int64),
-                ("prev_end", ctypes.c_uint64), ("active", ctypes.c_uint32)]
+    _fields_ = [
+        ("base", ctypes.c_uint64),
+        ("nslots", ctypes.c_uint64),
+        ("nctx", ctypes.c_uint32),
+        ("ctx", ctypes.c_uint32),
+        ("role", ctypes.c_void_p),
+        ("count", ctypes.c_void_p),
+        ("fall", ctypes.c_void_p),
+        ("size", ctypes.c_void_p),
+        ("prev", ctypes.c_int64),
+        ("prev_end", ctypes.c_uint64),
+        ("active", ctypes.c_uint32),
+    ]
 
 
 @dataclass
@@ -42,11 +60,11 @@ class BlockTally:
     Python call per executed block. ``role`` maps each 2-byte slot of the code to a role index."""
 
     base: int
-    role: np.ndarray            # uint8 [nslots]
+    role: np.ndarray  # uint8 [nslots]
     nctx: int
-    count: np.ndarray           # uint64 [nslots * nctx]
+    count: np.ndarray  # uint64 [nslots * nctx]
     fall: np.ndarray
-    size: np.ndarray            # uint32 [nslots]
+    size: np.ndarray  # uint32 [nslots]
     struct: _TallyStruct
 
     def start(self) -> None:
@@ -67,6 +85,7 @@ def _tally_lib():
     global _TALLY_LIB
     if _TALLY_LIB is None:
         from .cache import host_library
+
         _TALLY_LIB = ctypes.CDLL(str(host_library("tally")))
     return _TALLY_LIB
 
@@ -85,12 +104,14 @@ class UnicornMachine:
         arch = build.target.arch
         if arch == "arm":
             from unicorn import arm_const as A
+
             self.mu = mu = uc.Uc(uc.UC_ARCH_ARM, uc.UC_MODE_THUMB | uc.UC_MODE_MCLASS)
             mu.ctl_set_cpu_model(A.UC_CPU_ARM_CORTEX_M0 if build.core == "cortex-m0plus" else A.UC_CPU_ARM_CORTEX_M4)
             self.regs = (A.UC_ARM_REG_R0, A.UC_ARM_REG_R1, A.UC_ARM_REG_R2, A.UC_ARM_REG_R3)
             self.sp, self.ra, self.pc, self.thumb = A.UC_ARM_REG_SP, A.UC_ARM_REG_LR, A.UC_ARM_REG_PC, 1
         elif arch == "riscv":
             from unicorn import riscv_const as R
+
             self.mu = mu = uc.Uc(uc.UC_ARCH_RISCV, uc.UC_MODE_RISCV32)
             self.regs = (R.UC_RISCV_REG_A0, R.UC_RISCV_REG_A1, R.UC_RISCV_REG_A2, R.UC_RISCV_REG_A3)
             self.sp, self.ra, self.pc, self.thumb = R.UC_RISCV_REG_SP, R.UC_RISCV_REG_RA, R.UC_RISCV_REG_PC, 0
@@ -99,7 +120,7 @@ class UnicornMachine:
         mu.mem_map(FLASH_BASE, FLASH_SIZE, uc.UC_PROT_READ | uc.UC_PROT_EXEC)
         mu.mem_map(RAM_BASE, RAM_SIZE, uc.UC_PROT_READ | uc.UC_PROT_WRITE)
         mu.mem_map(STOP_BASE, 0x1000, uc.UC_PROT_READ | uc.UC_PROT_EXEC)
-        if arch == "arm":      # the System Control Space as plain memory: a startup write to CPACR lands here
+        if arch == "arm":  # the System Control Space as plain memory: a startup write to CPACR lands here
             mu.mem_map(SCS_BASE, 0x1000, uc.UC_PROT_READ | uc.UC_PROT_WRITE)
         for seg in ELFFile(io.BytesIO(build.elf_bytes)).iter_segments():
             if seg["p_type"] == "PT_LOAD" and seg["p_filesz"]:
@@ -107,6 +128,7 @@ class UnicornMachine:
         self._hooks: list[object] = []
         self.guard = _GuardStruct(0, MAX_BLOCKS_PER_CALL, None)
         from unicorn.unicorn_py3.unicorn import uclib
+
         self.guard.stop = ctypes.cast(uclib.uc_emu_stop, ctypes.c_void_p)
         self._hook_c(_tally_lib().et_guard_block, self.guard, FLASH_BASE, FLASH_BASE + FLASH_SIZE - 1)
 
@@ -117,16 +139,22 @@ class UnicornMachine:
         from unicorn.unicorn_py3.unicorn import uc_hook_h, uclib
 
         handle = uc_hook_h()
-        status = uclib.uc_hook_add(self.mu._uch, ctypes.byref(handle), self.uc_mod.UC_HOOK_BLOCK,
-                                   ctypes.cast(fn, ctypes.c_void_p), ctypes.cast(ctypes.pointer(struct), ctypes.c_void_p),
-                                   ctypes.c_uint64(begin), ctypes.c_uint64(end))
+        status = uclib.uc_hook_add(
+            self.mu._uch,
+            ctypes.byref(handle),
+            self.uc_mod.UC_HOOK_BLOCK,
+            ctypes.cast(fn, ctypes.c_void_p),
+            ctypes.cast(ctypes.pointer(struct), ctypes.c_void_p),
+            ctypes.c_uint64(begin),
+            ctypes.c_uint64(end),
+        )
         if status != 0:
             raise TargetRunError(f"unicorn refused a block hook (error {status})")
 
     def call(self, name: str, *args: int) -> int:
         mu = self.mu
         self.guard.blocks = 0
-        for reg, v in zip(self.regs, args, strict=False):       # fewer args than registers
+        for reg, v in zip(self.regs, args, strict=False):  # fewer args than registers
             mu.reg_write(reg, v & 0xFFFFFFFF)
         mu.reg_write(self.sp, STACK_TOP)
         mu.reg_write(self.ra, STOP_BASE | self.thumb)
@@ -150,7 +178,7 @@ class UnicornMachine:
         """Deepest stack use so far: RAM starts zeroed, so the lowest nonzero word below the top."""
         size = 0x4000
         data = bytes(self.mu.mem_read(STACK_TOP - size, size))
-        nz = next((i for i in range(0, size, 4) if data[i:i + 4] != b"\0\0\0\0"), size)
+        nz = next((i for i in range(0, size, 4) if data[i : i + 4] != b"\0\0\0\0"), size)
         return size - nz
 
     def block_tally(self, role: np.ndarray, nctx: int) -> BlockTally:
@@ -158,14 +186,20 @@ class UnicornMachine:
         only to code translated after it was added); counting starts with ``start()``."""
         lib = _tally_lib()
         n = role.size
-        t = BlockTally(FLASH_BASE, np.ascontiguousarray(role, dtype=np.uint8), nctx,
-                       np.zeros(n * nctx, np.uint64), np.zeros(n * nctx, np.uint64), np.zeros(n, np.uint32),
-                       _TallyStruct())
+        t = BlockTally(
+            FLASH_BASE,
+            np.ascontiguousarray(role, dtype=np.uint8),
+            nctx,
+            np.zeros(n * nctx, np.uint64),
+            np.zeros(n * nctx, np.uint64),
+            np.zeros(n, np.uint32),
+            _TallyStruct(),
+        )
         s = t.struct
         s.base, s.nslots, s.nctx, s.ctx, s.prev, s.active = FLASH_BASE, n, nctx, 0, -1, 0
         s.role, s.count, s.fall, s.size = (a.ctypes.data for a in (t.role, t.count, t.fall, t.size))
         self._hook_c(lib.et_tally_block, s, FLASH_BASE, FLASH_BASE + 2 * n - 1)
-        self._hooks.append(t)          # keeps the arrays alive as long as the machine
+        self._hooks.append(t)  # keeps the arrays alive as long as the machine
         return t
 
 
@@ -173,6 +207,7 @@ def machine(build: TargetBuild):
     """The emulated core for ``build``, with the ELF loaded and RAM zeroed."""
     if build.target.emulator == "simavr":
         from .simavr import AvrMachine
+
         return AvrMachine(build)
     return UnicornMachine(build)
 
@@ -196,7 +231,7 @@ def feed_process(m, build: TargetBuild, inputs: np.ndarray, block: int) -> list[
     """Feed ``inputs`` through harness_process in blocks of ``block``; the output chunks."""
     chunks = []
     for start in range(0, inputs.size, block):
-        blk = inputs[start:start + block]
+        blk = inputs[start : start + block]
         m.write("harness_in", blk)
         done = 0
         while done < blk.size:
@@ -219,7 +254,7 @@ def feed_isr(m, build: TargetBuild, inputs: np.ndarray, service_every: int) -> l
                 return
 
     for start in range(0, inputs.size, service_every):
-        blk = inputs[start:start + service_every]
+        blk = inputs[start : start + service_every]
         m.write("harness_in", blk)
         m.call("harness_isr_feed", 0, blk.size)
         if blk.size == service_every:
@@ -228,8 +263,14 @@ def feed_isr(m, build: TargetBuild, inputs: np.ndarray, service_every: int) -> l
     return chunks
 
 
-def run(build: TargetBuild, design: Design, inputs: np.ndarray, block: int | None = None, isr: bool = False,
-        service_every: int | None = None) -> TargetRun:
+def run(
+    build: TargetBuild,
+    design: Design,
+    inputs: np.ndarray,
+    block: int | None = None,
+    isr: bool = False,
+    service_every: int | None = None,
+) -> TargetRun:
     """Run the cross-built C in the emulator on ``inputs``. Default: blocks of ``block`` inputs
     (at most the harness buffer) through <name>_process. ``isr=True``: one input at a time through
     the scheme's ISR function(s) (for an edge-counting interrupt design, the edge ISR once per new

@@ -19,22 +19,32 @@ import numpy as np
 
 from .build import AVR_PART, MAX_INSNS_PER_CALL, TargetBuild, TargetRunError
 
-DATA_SPACE = 0x800000      # avr-gcc's ELF address of data-space byte 0
+DATA_SPACE = 0x800000  # avr-gcc's ELF address of data-space byte 0
 
 
 def available() -> bool:
     """simavr's library and headers and a host C compiler are present."""
     import os
 
-    return (shutil.which(os.environ.get("CC", "gcc")) is not None and os.path.isfile("/usr/include/simavr/sim_avr.h")
-            and ctypes.util.find_library("simavr") is not None)
-
+    return (
+        shutil.which(os.environ.get("CC", "gcc")) is not None
+        and os.path.isfile("/usr/include/simavr/sim_avr.h")
+        and ctypes.util.find_library("simavr") is not None
+    )
 
 
 class _AvrTallyStruct(ctypes.Structure):
-    _fields_ = [("nslots", ctypes.c_uint32), ("nctx", ctypes.c_uint32), ("ctx", ctypes.c_uint32),
-                ("role", ctypes.c_void_p), ("insns", ctypes.c_void_p), ("cycles", ctypes.c_void_p),
-                ("calls", ctypes.c_void_p), ("entry", ctypes.c_void_p), ("active", ctypes.c_uint32)]
+    _fields_ = [
+        ("nslots", ctypes.c_uint32),
+        ("nctx", ctypes.c_uint32),
+        ("ctx", ctypes.c_uint32),
+        ("role", ctypes.c_void_p),
+        ("insns", ctypes.c_void_p),
+        ("cycles", ctypes.c_void_p),
+        ("calls", ctypes.c_void_p),
+        ("entry", ctypes.c_void_p),
+        ("active", ctypes.c_uint32),
+    ]
 
 
 @dataclass
@@ -59,6 +69,7 @@ def _lib():
     global _LIB
     if _LIB is None:
         from .cache import host_library
+
         lib = ctypes.CDLL(str(host_library("avrsim", libs=("simavr",))))
         lib.et_avr_new.restype = ctypes.c_void_p
         lib.et_avr_new.argtypes = [ctypes.c_char_p]
@@ -67,8 +78,15 @@ def _lib():
             getattr(lib, f).argtypes = [ctypes.c_void_p]
         for f in ("et_avr_flash", "et_avr_write", "et_avr_read"):
             getattr(lib, f).argtypes = [ctypes.c_void_p, ctypes.c_uint32, ctypes.c_void_p, ctypes.c_uint32]
-        lib.et_avr_call.argtypes = [ctypes.c_void_p, ctypes.c_uint32, ctypes.c_uint32, ctypes.c_uint32,
-                                    ctypes.c_uint64, ctypes.POINTER(ctypes.c_uint32), ctypes.c_void_p]
+        lib.et_avr_call.argtypes = [
+            ctypes.c_void_p,
+            ctypes.c_uint32,
+            ctypes.c_uint32,
+            ctypes.c_uint32,
+            ctypes.c_uint64,
+            ctypes.POINTER(ctypes.c_uint32),
+            ctypes.c_void_p,
+        ]
         lib.et_avr_call.restype = ctypes.c_int
         lib.et_avr_free.argtypes = [ctypes.c_void_p]
         _LIB = lib
@@ -93,8 +111,8 @@ class AvrMachine:
             if seg["p_type"] != "PT_LOAD" or not seg["p_filesz"]:
                 continue
             data = seg.data()
-            self.lib.et_avr_flash(self.avr, seg["p_paddr"], data, len(data))      # the flash image
-            if seg["p_vaddr"] >= DATA_SPACE:                                      # .data: also in RAM
+            self.lib.et_avr_flash(self.avr, seg["p_paddr"], data, len(data))  # the flash image
+            if seg["p_vaddr"] >= DATA_SPACE:  # .data: also in RAM
                 self.lib.et_avr_write(self.avr, seg["p_vaddr"] - DATA_SPACE, data, len(data))
         self.tally: AvrTally | None = None
         self._keep: list[object] = []
@@ -111,8 +129,15 @@ class AvrMachine:
         a = list(args) + [0, 0]
         ret = ctypes.c_uint32(0)
         tp = ctypes.cast(ctypes.pointer(self.tally.struct), ctypes.c_void_p) if self.tally else None
-        st = self.lib.et_avr_call(self.avr, self.build.address(name), a[0] & 0xFFFFFFFF, a[1] & 0xFFFFFFFF,
-                                  MAX_INSNS_PER_CALL, ctypes.byref(ret), tp)
+        st = self.lib.et_avr_call(
+            self.avr,
+            self.build.address(name),
+            a[0] & 0xFFFFFFFF,
+            a[1] & 0xFFFFFFFF,
+            MAX_INSNS_PER_CALL,
+            ctypes.byref(ret),
+            tp,
+        )
         if st == 1:
             raise TargetRunError(f"{name} did not return (instruction limit)")
         if st == 2:
@@ -135,7 +160,7 @@ class AvrMachine:
         size = 0x800
         buf = ctypes.create_string_buffer(size)
         self.lib.et_avr_read(self.avr, self.ramend + 1 - size, buf, size)
-        data = buf.raw[:size - 2]
+        data = buf.raw[: size - 2]
         nz = next((i for i, b in enumerate(data) if b), len(data))
         return len(data) - nz
 
@@ -143,11 +168,18 @@ class AvrMachine:
         """Count instructions and cycles by role (``role`` per flash word) from now on, and calls at
         the words where ``entries`` is 1; counting starts with ``start()``."""
         n = role.size
-        t = AvrTally(np.ascontiguousarray(role, np.uint8), np.ascontiguousarray(entries, np.uint8),
-                     np.zeros(nctx, np.uint64), np.zeros(nctx, np.uint64), np.zeros(n, np.uint64), _AvrTallyStruct())
+        t = AvrTally(
+            np.ascontiguousarray(role, np.uint8),
+            np.ascontiguousarray(entries, np.uint8),
+            np.zeros(nctx, np.uint64),
+            np.zeros(nctx, np.uint64),
+            np.zeros(n, np.uint64),
+            _AvrTallyStruct(),
+        )
         s = t.struct
         s.nslots, s.nctx, s.ctx, s.active = n, nctx, 0, 0
-        s.role, s.insns, s.cycles, s.calls, s.entry = (x.ctypes.data for x in (t.role, t.insns, t.cycles, t.calls,
-                                                                              t.entry))
+        s.role, s.insns, s.cycles, s.calls, s.entry = (
+            x.ctypes.data for x in (t.role, t.insns, t.cycles, t.calls, t.entry)
+        )
         self.tally = t
         return t
