@@ -56,8 +56,9 @@ def ratio_floor(num, shift: int, den):
     return (num << shift) // den
 
 
-def section_step(coefs, z: list, x: int, coef_bits: int, limit: int, narrow: bool,
-                 split: bool = False) -> tuple[int, bool]:
+def section_step(
+    coefs, z: list, x: int, coef_bits: int, limit: int, narrow: bool, split: bool = False
+) -> tuple[int, bool]:
     """One direct form I IIR section on Python ints, the output chain's only recursion:
     acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 (coefs = (b0, b1, b2, a1, a2), z = [x1, x2, y1, y2],
     updated in place), summed modulo 2**32 when ``narrow`` (exact 32-bit products whose final sum
@@ -119,9 +120,9 @@ CUBIC_CORR_SHIFT = 3 * CUBIC_U_BITS + INV6_BITS - CUBIC_T_BITS  # Q24 * Q12 * Q1
 # the quotient unchanged.
 
 RECIP_ONE = (1 << 32) - 1
-RECIP_TABLE_BITS = 6          # at most 64 seeds; two Newton steps then reach the exact value +-2
+RECIP_TABLE_BITS = 6  # at most 64 seeds; two Newton steps then reach the exact value +-2
 RECIP_MAX_STEPS = 3
-RECIP_MAX_FIX = 2             # remainder corrections per direction the exact reciprocal may need
+RECIP_MAX_FIX = 2  # remainder corrections per direction the exact reciprocal may need
 
 
 @dataclass(frozen=True)
@@ -139,10 +140,10 @@ class RecipPlan:
     steps: tuple[tuple[int, int], ...]
     fix_down: int
     fix_up: int
-    fix_linear: int           # quotient corrections with lbits = 0 (the linear fraction)
-    fix_cubic: int            # and with lbits = CUBIC_T_BITS (the cubic's corrected fraction)
-    error_max: int = 0        # the largest |2**32 - d r| a Newton step reads (an int32)
-    product_max: int = 0      # the largest |(r >> a) (e >> b)| a Newton step forms (an int32)
+    fix_linear: int  # quotient corrections with lbits = 0 (the linear fraction)
+    fix_cubic: int  # and with lbits = CUBIC_T_BITS (the cubic's corrected fraction)
+    error_max: int = 0  # the largest |2**32 - d r| a Newton step reads (an int32)
+    product_max: int = 0  # the largest |(r >> a) (e >> b)| a Newton step forms (an int32)
 
 
 def _select(cond, a, b):
@@ -167,7 +168,7 @@ def recip_norm(d, d_lo: int):
 
 
 def _newton(d, r, a: int, b: int):
-    e = wrap_s32(-(d * r))                                  # 2**32 - d r, an int32 by the plan's proof
+    e = wrap_s32(-(d * r))  # 2**32 - d r, an int32 by the plan's proof
     return r + (((r >> a) * (e >> b)) >> (32 - a - b))
 
 
@@ -179,10 +180,10 @@ def reciprocal(d, plan: RecipPlan):
     for a, b in plan.steps:
         r = _newton(d, r, a, b)
     rem = wrap_bits(RECIP_ONE - d * r, 32)
-    for _ in range(plan.fix_down):                         # r too large: the remainder went negative
+    for _ in range(plan.fix_down):  # r too large: the remainder went negative
         neg = wrap_s32(rem) < 0
         r, rem = _select(neg, r - 1, r), _select(neg, wrap_bits(rem + d, 32), rem)
-    for _ in range(plan.fix_up):                           # r too small: a whole d is left over
+    for _ in range(plan.fix_up):  # r too small: a whole d is left over
         big = rem >= d
         r, rem = _select(big, r + 1, r), _select(big, rem - d, rem)
     return r
@@ -251,7 +252,7 @@ def recip_plan(bits: int, shift: int) -> RecipPlan:
         if len(steps) == RECIP_MAX_STEPS:
             raise ValueError(f"the reciprocal of {d_lo}..{d_hi} does not converge in {RECIP_MAX_STEPS} steps")
         e = wrap_s32(-(d * r))
-        if not (_fits_i32(2 ** 32 - d * r) and np.all(r > 0) and np.all(r < (1 << 31))):
+        if not (_fits_i32(2**32 - d * r) and np.all(r > 0) and np.all(r < (1 << 31))):
             raise ValueError(f"the reciprocal seed of {d_lo}..{d_hi} is too coarse for 32 bits")
         need = max(0, int(np.max(r)).bit_length() + int(np.max(np.abs(e))).bit_length() + 1 - 31)
         best = None
@@ -273,9 +274,10 @@ def recip_plan(bits: int, shift: int) -> RecipPlan:
     fix_down, fix_up = max(0, int(np.max(err))), max(0, -int(np.min(err)))
     fix_linear = -(-(d_hi + 1) // (1 << (32 - shift)))
     fix_cubic = -(-(d_hi + (1 << CUBIC_T_BITS)) // (1 << (32 - shift)))
-    plan = RecipPlan(d_lo, d_hi, shift, ts, seeds, tuple(steps), fix_down, fix_up, fix_linear, fix_cubic,
-                     error_max, product_max)
-    if not np.array_equal(reciprocal(d, plan), exact):     # the whole chain, as the C runs it
+    plan = RecipPlan(
+        d_lo, d_hi, shift, ts, seeds, tuple(steps), fix_down, fix_up, fix_linear, fix_cubic, error_max, product_max
+    )
+    if not np.array_equal(reciprocal(d, plan), exact):  # the whole chain, as the C runs it
         raise ValueError(f"the reciprocal plan of {d_lo}..{d_hi} is not exact")
     return plan
 
@@ -284,18 +286,22 @@ def recip_c_text(prefix: str, plan: RecipPlan) -> str:
     """The C of ``reciprocal``, ``recip_norm`` and ``ratio_recip`` for one plan (its seed table and
     shifts printed in), the twins of the Python functions above."""
     p = prefix
-    rows = ",\n        ".join(", ".join(f"UINT32_C({v})" for v in plan.seeds[i:i + 4]) for i in range(0, len(plan.seeds), 4))
+    rows = ",\n        ".join(
+        ", ".join(f"UINT32_C({v})" for v in plan.seeds[i : i + 4]) for i in range(0, len(plan.seeds), 4)
+    )
     newton = "".join(
         f"    e = {p}_wrap_s32(0u - (d * r));                   /* 2^32 - d r */\n"
         f"    ra = r >> {a}u;\n"
         f"    e = {p}_asr32((int32_t)ra * {p}_asr32(e, {b}u), {32 - a - b}u);   /* the step, signed */\n"
         f"    r += (uint32_t)e;\n"
-        for a, b in plan.steps)
+        for a, b in plan.steps
+    )
     # each correction but the last updates the remainder for the next one (the last's would be unread)
-    fixes = ([(f"    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n        r--;\n",
-               "        rem += d;\n")] * plan.fix_down
-             + [("    if (rem >= d) {                      /* r one too small */\n        r++;\n",
-                 "        rem -= d;\n")] * plan.fix_up)
+    fixes = [
+        (f"    if ({p}_wrap_s32(rem) < 0) {{         /* r one too large */\n        r--;\n", "        rem += d;\n")
+    ] * plan.fix_down + [
+        ("    if (rem >= d) {                      /* r one too small */\n        r++;\n", "        rem -= d;\n")
+    ] * plan.fix_up
     fix = "".join(head + (upd if i < len(fixes) - 1 else "") + "    }\n" for i, (head, upd) in enumerate(fixes))
     decl = ("    uint32_t rem;\n" if fixes else "") + ("    int32_t e;\n    uint32_t ra;\n" if plan.steps else "")
     fix = "    rem = 0xFFFFFFFFu - (d * r);\n" + fix if fixes else ""
@@ -343,6 +349,7 @@ static inline uint32_t {p}_reciprocal(uint32_t d)
 
 # --- the cubic's curvature correction, in 32-bit words -------------------------------------------
 
+
 def _rshr0(x, s: int):
     return rshr(x, s) if s > 0 else x
 
@@ -370,11 +377,14 @@ def cubic_shifts(delta_limit: int) -> tuple[int, int, int, int, float]:
         for sg in range(0, CUBIC_CORR_SHIFT - sh - sq):
             so = CUBIC_CORR_SHIFT - sh - sq - sg
             if _rshr0(qmax, sq) * _rshr0(gmax, sg) + (1 << (so - 1)) < (1 << 31):
-                err = (qmax * INV6 * (2 ** (sh - 1) if sh else 0) + gmax * 2 ** (sh + sq - 1) * (sq > 0)
-                       + qmax * 2 ** (sh + sg - 1) * (sg > 0)) / 2 ** CUBIC_CORR_SHIFT
+                err = (
+                    qmax * INV6 * (2 ** (sh - 1) if sh else 0)
+                    + gmax * 2 ** (sh + sq - 1) * (sq > 0)
+                    + qmax * 2 ** (sh + sg - 1) * (sg > 0)
+                ) / 2**CUBIC_CORR_SHIFT
                 if best is None or err < best[4]:
                     best = (sh, sq, sg, so, err)
-                break                                        # a larger sg only adds error
+                break  # a larger sg only adds error
     if best is None:
         raise ValueError(f"no 32-bit shift split holds the cubic correction for second differences up to {delta_limit}")
     return best
@@ -413,8 +423,9 @@ def cubic_fraction(e1, d, d_prev, d_next, delta_limit: int, shift: int, quot):
 
 def reciprocal_quotient(k, dn, r, plan: RecipPlan):
     """``quot`` of ``cubic_fraction`` through the interval's reciprocal (``interval_reciprocal``)."""
-    return lambda x, lbits: ratio_recip(x << k, lbits, plan.shift, dn, r,
-                                        plan.fix_linear if lbits == 0 else plan.fix_cubic)
+    return lambda x, lbits: ratio_recip(
+        x << k, lbits, plan.shift, dn, r, plan.fix_linear if lbits == 0 else plan.fix_cubic
+    )
 
 
 def division_quotient(d, shift: int):
@@ -434,13 +445,16 @@ def squelch_level(lvl, a, shift: int, cap: int):
 # clang-tidy's bugprone-easily-swappable-parameters flags helpers that take several words of one
 # kind whose order no expression ties together; each emitted call is checked against the integer
 # model bit for bit, so the order is held by test, and the signature says so where it is flagged.
-_NOLINT_BEGIN = ("/* NOLINTBEGIN(bugprone-easily-swappable-parameters): several words of one kind by design;\n"
-                 " * every call is checked against the integer model bit for bit (tests/test_bitexact.py) */\n")
+_NOLINT_BEGIN = (
+    "/* NOLINTBEGIN(bugprone-easily-swappable-parameters): several words of one kind by design;\n"
+    " * every call is checked against the integer model bit for bit (tests/test_bitexact.py) */\n"
+)
 _NOLINT_END = "/* NOLINTEND(bugprone-easily-swappable-parameters) */\n"
 
 # split_mac's five products (b0 v, b1 z0, b2 z1, -a1 z2, -a2 z3): the top byte by an arithmetic
 # shift, the middle and low bytes from the word's unsigned bit pattern (the same bits).
-_SPLIT_TERMS = "".join(f"""\
+_SPLIT_TERMS = "".join(
+    f"""\
     x = {x}; k = {k};
     w = (uint32_t)x;
     b = (w >> 8) & 0xFFu;
@@ -448,9 +462,17 @@ _SPLIT_TERMS = "".join(f"""\
     mid += k * (int32_t)b;
     b = w & 0xFFu;
     lo += k * (int32_t)b;
-""" for x, k in (("v", "(int32_t)c[0]"), ("z[0]", "(int32_t)c[1]"), ("z[1]", "(int32_t)c[2]"),
-                 ("z[2]", "-(int32_t)c[3]"), ("z[3]", "-(int32_t)c[4]")))
-_SPLIT_MAC_C = """\
+"""
+    for x, k in (
+        ("v", "(int32_t)c[0]"),
+        ("z[0]", "(int32_t)c[1]"),
+        ("z[1]", "(int32_t)c[2]"),
+        ("z[2]", "-(int32_t)c[3]"),
+        ("z[3]", "-(int32_t)c[4]"),
+    )
+)
+_SPLIT_MAC_C = (
+    """\
 static inline int32_t {p}_split_section(const int16_t *c, int32_t v, const int32_t *z, unsigned shift)
 {{
     /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3, each 27 x 16 product as three 16 x 16 -> 32 products of
@@ -463,10 +485,13 @@ static inline int32_t {p}_split_section(const int16_t *c, int32_t v, const int32
     int32_t k;
     uint32_t w;
     uint32_t b;
-""" + _SPLIT_TERMS.replace("{", "{{").replace("}", "}}").replace("{{p}}", "{p}") + """\
+"""
+    + _SPLIT_TERMS.replace("{", "{{").replace("}", "}}").replace("{{p}}", "{p}")
+    + """\
     return {p}_split_round(hi, mid, lo, shift);
 }}
 """
+)
 C_DEFINITIONS = {
     "wrap_s32": """\
 static inline int32_t {p}_wrap_s32(uint32_t x)
@@ -504,9 +529,12 @@ static inline uint32_t {p}_ratio_floor(uint32_t num, unsigned shift, uint32_t de
     return (uint32_t)(num << shift) / den;
 }}
 """,
-    "squelch_level": _NOLINT_BEGIN + """\
+    "squelch_level": _NOLINT_BEGIN
+    + """\
 static inline uint64_t {p}_squelch_level(uint64_t lvl, uint32_t a, unsigned shift, uint64_t cap)
-""" + _NOLINT_END + """\
+"""
+    + _NOLINT_END
+    + """\
 {{
     /* min(lvl - (lvl >> shift) + a, cap): the squelch's one-pole average of the noise measure */
     uint64_t v = lvl - (lvl >> shift) + (uint64_t)a;
@@ -556,6 +584,7 @@ def cubic_c_text(prefix: str, delta_limit: int, recip: RecipPlan | None, shift: 
 
     def r0(x, n):
         return f"{p}_rshr32({x}, {n}u)" if n else x
+
     if recip is not None:
         args = ",\n                                          unsigned k, uint32_t dn, uint32_t r"
         q0 = f"{p}_ratio_recip(e1 << k, 0u, {shift}u, dn, r, {recip.fix_linear}u)"
@@ -588,16 +617,18 @@ def cubic_c_text(prefix: str, delta_limit: int, recip: RecipPlan | None, shift: 
 _ASR_USERS = {"split_round", "split_mac", "rshr32", "cubic_fraction"}
 
 
-def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0,
-                  shift: int = 0) -> str:
+def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0, shift: int = 0) -> str:
     """The C text of the named operations (all when ``names`` is None), in definition order, with
     ``prefix`` on each name. Emit only what a design calls: unused static functions draw warnings.
     "reciprocal" (the seed table, ``recip_norm``, ``reciprocal``, ``ratio_recip``) needs its plan;
     "cubic_fraction" its delta_limit and phase shift (and the plan when it divides by reciprocal)."""
     wanted = None if names is None else set(names)
-    if wanted is not None and wanted & _ASR_USERS or (wanted is not None and "reciprocal" in wanted
-                                                       and recip is not None and recip.steps):
-        wanted.add("asr32")                   # the one signed shift the others call
+    if (
+        wanted is not None
+        and wanted & _ASR_USERS
+        or (wanted is not None and "reciprocal" in wanted and recip is not None and recip.steps)
+    ):
+        wanted.add("asr32")  # the one signed shift the others call
     chosen = [n for n in C_DEFINITIONS if wanted is None or n in wanted]
     text = "".join(C_DEFINITIONS[n] for n in chosen).format(p=prefix)
     if recip is not None and (names is None or "reciprocal" in names):

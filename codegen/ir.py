@@ -70,9 +70,9 @@ class StampFront:
     x_limit: int  # largest legal phase step per grid period
     x_centre: int  # phase step of the IF centre, used while the carrier is lost
     order: str = "linear"  # "linear" or "cubic"
-    delta_limit: int = 0   # cubic: second differences of stamp times are clamped to +-delta_limit
-    max_delta: int = 0     # a stamp interval is taken as at most this (a long gap is just a gap)
-    x_low: int = 0         # smallest legal phase step per grid period
+    delta_limit: int = 0  # cubic: second differences of stamp times are clamped to +-delta_limit
+    max_delta: int = 0  # a stamp interval is taken as at most this (a long gap is just a gap)
+    x_low: int = 0  # smallest legal phase step per grid period
     divide: str = "reciprocal"  # quotients by one reciprocal per interval, or "division" (a divide per instant)
     kind: str = "stamp"
 
@@ -147,12 +147,12 @@ class Filters:
     the certificate proves for any input (two's complement wrap of partial sums is harmless); with
     acc_bits 64 nothing can wrap."""
 
-    data_bits: int                     # 16 or 32: every section input, output and state word
-    coef_bits: int                     # Q format of the coefficients
-    coef_width: int                    # 16 or 32: their storage
-    acc_bits: int                      # 32, 48 (three 32-bit sums of split products) or 64
-    scaling: str                       # "l1", "l2" or "linf": the norm that set each q_out
-    limit: int                         # 2**(data_bits - 1) - 1: every node saturates here
+    data_bits: int  # 16 or 32: every section input, output and state word
+    coef_bits: int  # Q format of the coefficients
+    coef_width: int  # 16 or 32: their storage
+    acc_bits: int  # 32, 48 (three 32-bit sums of split products) or 64
+    scaling: str  # "l1", "l2" or "linf": the norm that set each q_out
+    limit: int  # 2**(data_bits - 1) - 1: every node saturates here
     sections: tuple[Section, ...]
 
 
@@ -194,19 +194,19 @@ class Squelch:
     lvl > close_level until lvl < open_level; closed means every output sample is mid-scale. Starts
     closed with lvl = cap."""
 
-    cnr_db: float          # the spec's signal.squelch_cnr_db: open at and above this IF CNR (Carson band)
-    shift: int             # the level averages 2**shift output samples
-    penalty: int           # e of a muted grid instant
+    cnr_db: float  # the spec's signal.squelch_cnr_db: open at and above this IF CNR (Carson band)
+    shift: int  # the level averages 2**shift output samples
+    penalty: int  # e of a muted grid instant
     open_level: int
     close_level: int
     cap: int
-    open_cnr_db: float     # the model's CNR at open_level (at or below cnr_db)
-    close_cnr_db: float    # the model's CNR at close_level
-    floor_limited: bool    # the counting noise floor, not cnr_db, set the levels
-    edge_tone_db: float    # a full-deviation tone at the band edge alone, against close_level (dB)
-    open_ms: float         # bound on the time to open on a carrier at cnr_db (from closed and capped)
-    reopen_ms: float       # bound on the time to open on the clean standard test (from closed and capped)
-    blind: bool = False    # one-bit counts: the detector cannot tell noise from a carrier; always open
+    open_cnr_db: float  # the model's CNR at open_level (at or below cnr_db)
+    close_cnr_db: float  # the model's CNR at close_level
+    floor_limited: bool  # the counting noise floor, not cnr_db, set the levels
+    edge_tone_db: float  # a full-deviation tone at the band edge alone, against close_level (dB)
+    open_ms: float  # bound on the time to open on a carrier at cnr_db (from closed and capped)
+    reopen_ms: float  # bound on the time to open on the clean standard test (from closed and capped)
+    blind: bool = False  # one-bit counts: the detector cannot tell noise from a carrier; always open
 
 
 @dataclass(frozen=True)

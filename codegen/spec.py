@@ -24,25 +24,25 @@ C_KEYWORDS = frozenset(
     _Noreturn _Static_assert _Thread_local bool true false NULL""".split()
 )
 MAX_NAME = 24
-SHOW_CHARS = 60          # an error line echoes at most this much of the bad value (or field name)
+SHOW_CHARS = 60  # an error line echoes at most this much of the bad value (or field name)
 
 _REPR = reprlib.Repr()
 _REPR.maxlevel, _REPR.maxlist, _REPR.maxdict, _REPR.maxtuple = 2, 4, 3, 4
 _REPR.maxstring, _REPR.maxother, _REPR.maxlong = SHOW_CHARS, SHOW_CHARS, SHOW_CHARS
 
 
-PATH_CHARS = 300        # a file path is shown whole up to this length (its end names the file)
+PATH_CHARS = 300  # a file path is shown whole up to this length (its end names the file)
 
 
 def cut(text: str, limit: int = SHOW_CHARS) -> str:
     """``text`` cut to about ``limit`` characters."""
-    return text if len(text) <= limit else text[:limit - 3] + "..."
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def cut_path(path) -> str:
     """A path as an error line shows it: whole up to PATH_CHARS, else its end."""
     text = str(path)
-    return text if len(text) <= PATH_CHARS else "..." + text[-(PATH_CHARS - 3):]
+    return text if len(text) <= PATH_CHARS else "..." + text[-(PATH_CHARS - 3) :]
 
 
 def show(value) -> str:
@@ -73,8 +73,8 @@ class SpecError(ValueError):
         return self.field.startswith("-")
 
 
-SQUELCH_CNR_DB = 8.0               # a little below the FM threshold near 10 dB CNR (DESIGN.md, Haykin)
-SQUELCH_CNR_RANGE = (0.0, 40.0)    # dB: from deep below threshold to far above it
+SQUELCH_CNR_DB = 8.0  # a little below the FM threshold near 10 dB CNR (DESIGN.md, Haykin)
+SQUELCH_CNR_RANGE = (0.0, 40.0)  # dB: from deep below threshold to far above it
 
 
 # A flat band by default: the CIC droop is compensated when it exceeds this at the band edge (a spec
@@ -82,13 +82,14 @@ SQUELCH_CNR_RANGE = (0.0, 40.0)    # dB: from deep below threshold to far above 
 # for a voice or audio band.
 DROOP_LIMIT_DB = 1.0
 
+
 @dataclass(frozen=True)
 class Signal:
     if_hz: float
     deviation_hz: float
     audio_hz: float
     deemphasis_us: float = 0.0
-    squelch_cnr_db: float = 8.0   # the noise squelch opens at and above this IF CNR in the Carson band
+    squelch_cnr_db: float = 8.0  # the noise squelch opens at and above this IF CNR in the Carson band
 
 
 @dataclass(frozen=True)
@@ -136,10 +137,10 @@ class Target:
 class Fixed:
     """Word-length targets of the output chain."""
 
-    loss_limit_db: float = 0.5         # largest implementation loss (float SINAD minus fixed SINAD)
-    response_tol_db: float = 0.05      # largest gain error of the quantised filters over the band
-    scaling: str = "l1"                # "l1" (no overflow for any input), "l2" or "linf" (wide only)
-    arith: str = "auto"                # "auto" (cheapest that meets the loss), "narrow", "mid" (split 27 x 16) or "wide"
+    loss_limit_db: float = 0.5  # largest implementation loss (float SINAD minus fixed SINAD)
+    response_tol_db: float = 0.05  # largest gain error of the quantised filters over the band
+    scaling: str = "l1"  # "l1" (no overflow for any input), "l2" or "linf" (wide only)
+    arith: str = "auto"  # "auto" (cheapest that meets the loss), "narrow", "mid" (split 27 x 16) or "wide"
     droop_limit_db: float = DROOP_LIMIT_DB  # compensate the CIC droop when it exceeds this in the band (0: never)
 
 
@@ -190,7 +191,7 @@ UINT32_MAX = (1 << 32) - 1
 # The narrowest audio band the standard test (edgetally.standard) fits a tone and a measured span
 # into, and the narrowest the tests verify (tests/test_standard_test.py).
 MIN_AUDIO_HZ = 5.0
-FULL_SCALE_SPAN = 4096   # the IF is at most this many full scales (see _physics)
+FULL_SCALE_SPAN = 4096  # the IF is at most this many full scales (see _physics)
 
 # The finite range of every number, from what the design code and the emitted C can hold. A value
 # outside is refused here, before any design code runs; cross-field rules follow in _physics.
@@ -221,7 +222,7 @@ LIMITS: dict[str, tuple[float, float, str]] = {
 
 def _range(fname: str, v) -> None:
     lo, hi, unit = LIMITS[fname]
-    if not lo <= v <= hi:   # exact for integers of any size (no conversion to float)
+    if not lo <= v <= hi:  # exact for integers of any size (no conversion to float)
         raise SpecError(fname, v, f"must be from {lo:g} to {hi:g} {unit}")
 
 
@@ -247,8 +248,11 @@ def _integer(tbl: dict, sec: str, key: str, *, default=None, choices=None) -> in
             raise SpecError(fname, None, "is required (a whole number)")
         return default
     v = tbl[key]
-    if (isinstance(v, bool) or not isinstance(v, (int, float))
-            or (isinstance(v, float) and not (math.isfinite(v) and v.is_integer()))):
+    if (
+        isinstance(v, bool)
+        or not isinstance(v, (int, float))
+        or (isinstance(v, float) and not (math.isfinite(v) and v.is_integer()))
+    ):
         raise SpecError(fname, v, "must be a whole number")
     if choices is not None:
         if v not in choices:
@@ -270,8 +274,12 @@ PRESCALERS = (1, 2, 4, 8)
 
 def _prescalers(tbl: dict, default: tuple[int, ...]) -> tuple[int, ...]:
     v = tbl.get("capture_prescalers", list(default))
-    if (not isinstance(v, list) or not v
-            or any(type(k) is not int or k not in PRESCALERS for k in v) or len(set(v)) != len(v)):
+    if (
+        not isinstance(v, list)
+        or not v
+        or any(type(k) is not int or k not in PRESCALERS for k in v)
+        or len(set(v)) != len(v)
+    ):
         raise SpecError("target.capture_prescalers", v, "must be a list of distinct whole numbers from 1, 2, 4, 8")
     return tuple(sorted(v))
 
@@ -326,8 +334,11 @@ def parse_spec(raw: dict) -> Spec:
         squelch_cnr_db=_number(s, "signal", "squelch_cnr_db", default=SQUELCH_CNR_DB),
     )
     if not SQUELCH_CNR_RANGE[0] <= sig.squelch_cnr_db <= SQUELCH_CNR_RANGE[1]:
-        raise SpecError("signal.squelch_cnr_db", sig.squelch_cnr_db,
-                        f"must lie in [{SQUELCH_CNR_RANGE[0]:g}, {SQUELCH_CNR_RANGE[1]:g}] dB")
+        raise SpecError(
+            "signal.squelch_cnr_db",
+            sig.squelch_cnr_db,
+            f"must lie in [{SQUELCH_CNR_RANGE[0]:g}, {SQUELCH_CNR_RANGE[1]:g}] dB",
+        )
     o = _section(raw, "output")
     fmt = o.get("format", "s16")
     if not isinstance(fmt, str) or not re.fullmatch(r"s16|u([89]|1[0-6])", fmt):
@@ -402,11 +413,16 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
         )
     if f0 < 2 * df:
         # Common practice, no source: an IF of two to four times the peak deviation is usual.
-        warnings.append(f"signal.if_hz {f0:g} Hz is under twice the peak deviation ({df:g} Hz); "
-                        "two to four times is usual, and the lowest edge rate is small")
+        warnings.append(
+            f"signal.if_hz {f0:g} Hz is under twice the peak deviation ({df:g} Hz); "
+            "two to four times is usual, and the lowest edge rate is small"
+        )
     if sig.audio_hz < MIN_AUDIO_HZ:
-        raise SpecError("signal.audio_hz", sig.audio_hz,
-                        f"must be at least {MIN_AUDIO_HZ:g} Hz, the narrowest band the standard test measures")
+        raise SpecError(
+            "signal.audio_hz",
+            sig.audio_hz,
+            f"must be at least {MIN_AUDIO_HZ:g} Hz, the narrowest band the standard test measures",
+        )
     if out.rate_hz <= 2 * sig.audio_hz:
         raise SpecError("output.rate_hz", out.rate_hz, f"must exceed twice signal.audio_hz ({2 * sig.audio_hz:g} Hz)")
     if sig.audio_hz >= f0 - df:
@@ -449,16 +465,22 @@ def _physics(sig: Signal, out: Output, tgt: Target, warnings: list[str]) -> None
             "the part must see the IF somehow: set has_capture, has_edge_irq or has_counter",
         )
     if tgt.timer_hz % out.rate_hz:
-        raise SpecError("output.rate_hz", out.rate_hz,
-                        f"must divide target.timer_hz ({tgt.timer_hz}) exactly, so the sample grid locks to the timer")
+        raise SpecError(
+            "output.rate_hz",
+            out.rate_hz,
+            f"must divide target.timer_hz ({tgt.timer_hz}) exactly, so the sample grid locks to the timer",
+        )
     # The output's full scale is a frequency swing about the IF: a swing of the IF or more would
     # take the frequency through zero, and one far below the IF leaves the scale stage no bits
     # for the swing from the IF down to zero (the data word holds about 2**12 full scales at the
     # least, 16-bit data with headroom for the step limit).
     if not f0 / FULL_SCALE_SPAN <= out.full_scale_hz < f0:
-        raise SpecError("output.full_scale_hz", out.full_scale_hz,
-                        f"must be below signal.if_hz ({f0:g} Hz) and at least 1/{FULL_SCALE_SPAN} of it "
-                        f"({f0 / FULL_SCALE_SPAN:.4g} Hz)")
+        raise SpecError(
+            "output.full_scale_hz",
+            out.full_scale_hz,
+            f"must be below signal.if_hz ({f0:g} Hz) and at least 1/{FULL_SCALE_SPAN} of it "
+            f"({f0 / FULL_SCALE_SPAN:.4g} Hz)",
+        )
     if out.full_scale_hz < 0.5 * df:
         warnings.append(
             f"output.full_scale_hz {out.full_scale_hz:g} Hz is under half the peak deviation; "

@@ -27,32 +27,34 @@ import math
 from dataclasses import dataclass
 
 PREFERRED_TONE_HZ = 1000.0
-PREFERRED_MIN_BAND = 2000.0    # 1 kHz when it lies at most half way up the band
-LEVEL = 0.7                    # fraction of full-scale deviation
-BAND_LOW_HZ = 20.0             # the measured band starts here (or at band / LOW_RATIO when lower)
+PREFERRED_MIN_BAND = 2000.0  # 1 kHz when it lies at most half way up the band
+LEVEL = 0.7  # fraction of full-scale deviation
+BAND_LOW_HZ = 20.0  # the measured band starts here (or at band / LOW_RATIO when lower)
 LOW_RATIO = 20.0
-MIN_BINS = 4                   # periodogram bins below band_lo
-MIN_PERIODS = 20               # tone periods in the measured record
-LEAD_PERIODS = 2               # periods of band_lo left to settle before measuring
+MIN_BINS = 4  # periodogram bins below band_lo
+MIN_PERIODS = 20  # tone periods in the measured record
+LEAD_PERIODS = 2  # periods of band_lo left to settle before measuring
 MIN_LEAD_S = 0.1
 MIN_SECONDS = 1.0
-DC_CORNER_MAX_HZ = 2.0         # offset tracker corner: far below any audio band (common practice, no source)
-DC_CORNER_RATIO = 10.0         # and at least this factor below the measured band's low edge
+DC_CORNER_MAX_HZ = 2.0  # offset tracker corner: far below any audio band (common practice, no source)
+DC_CORNER_RATIO = 10.0  # and at least this factor below the measured band's low edge
 
 
 @dataclass(frozen=True)
 class StandardTest:
     tone_hz: float
-    level: float               # fraction of full-scale deviation
+    level: float  # fraction of full-scale deviation
     band_lo_hz: float
     band_hi_hz: float
-    lead_s: float              # settling time before the measured record
-    min_seconds: float         # shortest measured record the SINAD figure is valid for
-    default_seconds: float     # the measured record when none is asked for
+    lead_s: float  # settling time before the measured record
+    min_seconds: float  # shortest measured record the SINAD figure is valid for
+    default_seconds: float  # the measured record when none is asked for
 
     def describe(self) -> str:
-        return (f"{self.tone_hz:g} Hz tone at {self.level:.0%} of full-scale deviation, noise counted over "
-                f"{self.band_lo_hz:g}-{self.band_hi_hz:g} Hz")
+        return (
+            f"{self.tone_hz:g} Hz tone at {self.level:.0%} of full-scale deviation, noise counted over "
+            f"{self.band_lo_hz:g}-{self.band_hi_hz:g} Hz"
+        )
 
 
 def tone_hz(band_hz: float) -> float:
@@ -79,5 +81,12 @@ def standard_test(band_hz: float) -> StandardTest:
     tone, lo = tone_hz(band_hz), band_lo_hz(band_hz)
     seconds = max(MIN_BINS / lo, MIN_PERIODS / tone)
     lead = max(MIN_LEAD_S, LEAD_PERIODS / lo)
-    return StandardTest(tone_hz=tone, level=LEVEL, band_lo_hz=lo, band_hi_hz=float(band_hz), lead_s=lead,
-                        min_seconds=seconds, default_seconds=max(MIN_SECONDS, seconds))
+    return StandardTest(
+        tone_hz=tone,
+        level=LEVEL,
+        band_lo_hz=lo,
+        band_hi_hz=float(band_hz),
+        lead_s=lead,
+        min_seconds=seconds,
+        default_seconds=max(MIN_SECONDS, seconds),
+    )

@@ -26,7 +26,7 @@ from ..planner.choose import TIE_DB, Option, Plan, plan
 from ..spec import Spec
 from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
-CLOSE_DB = 3.0          # options predicted within this of the chosen one are simulated before choosing
+CLOSE_DB = 3.0  # options predicted within this of the chosen one are simulated before choosing
 # A doubtful prediction (a grid faster than the stamps, count errors that form tones) was seen off by
 # up to about 15 dB in either direction on the bundled examples (plan --simulate); doubtful options
 # predicted further below the chosen one than that cannot win and are not simulated.
@@ -34,7 +34,7 @@ DOUBT_DB = 15.0
 # The calibrated cycle tables hold the planned loads within a few per cent of the emulated ones
 # (tests/test_cost_tables.py bounds them at 10 %): options closer in load than this are equal in cost.
 COST_TIE = 0.03
-SIM_SECONDS = 0.2       # of the standard test, after its lead-in: enough tone periods for the SINAD meter
+SIM_SECONDS = 0.2  # of the standard test, after its lead-in: enough tone periods for the SINAD meter
 
 
 def _sinad(design: Design, samples) -> float:
@@ -51,26 +51,35 @@ def _seconds(design: Design, seconds: float) -> float:
 def simulate_option(spec: Spec, o: Option, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
     """SINAD of the float reference of plan option ``o`` on ``seconds`` of the standard test."""
     # the float reference does not depend on the filter arithmetic: one (wide) is designed, not all
-    d = assemble.design(spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio),
-                        overrides={"arith": "wide"})
+    d = assemble.design(
+        spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio), overrides={"arith": "wide"}
+    )
     return _sinad(d, reference.run(d, make_inputs(d, _seconds(d, seconds), seed)))
 
 
-def simulate_options(spec: Spec, plan_obj: Plan, seconds: float = 0.25, seed: int = DEFAULT_SEED
-                     ) -> dict[tuple[str, str], float]:
+def simulate_options(
+    spec: Spec, plan_obj: Plan, seconds: float = 0.25, seed: int = DEFAULT_SEED
+) -> dict[tuple[str, str], float]:
     """SINAD of the float reference of every feasible option row of a plan (``plan --simulate``)."""
-    return {(o.scheme, o.variant): round(simulate_option(spec, o, seconds, seed), 2)
-            for o in plan_obj.options if o.feasible}
+    return {
+        (o.scheme, o.variant): round(simulate_option(spec, o, seconds, seed), 2) for o in plan_obj.options if o.feasible
+    }
 
 
 def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> Plan:
     """The plan, with the choice among doubtful or close options made on simulated SINAD."""
     p = plan(spec, scheme)
     chosen = next(o for o in p.options if o.kept)
-    top = max(o.predicted_sinad_db for o in p.options if o.feasible and not o.doubtful) if any(
-        o.feasible and not o.doubtful for o in p.options) else chosen.predicted_sinad_db
-    contenders = [o for o in p.options if o.feasible and
-                  (o is chosen or o.predicted_sinad_db >= top - (DOUBT_DB if o.doubtful else CLOSE_DB))]
+    top = (
+        max(o.predicted_sinad_db for o in p.options if o.feasible and not o.doubtful)
+        if any(o.feasible and not o.doubtful for o in p.options)
+        else chosen.predicted_sinad_db
+    )
+    contenders = [
+        o
+        for o in p.options
+        if o.feasible and (o is chosen or o.predicted_sinad_db >= top - (DOUBT_DB if o.doubtful else CLOSE_DB))
+    ]
     if len(contenders) < 2:
         return p
     sims = {o: simulate_option(spec, o, seconds, seed) for o in contenders}
@@ -81,11 +90,15 @@ def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, 
         same_cost = best is not None and o.load <= best.load * (1 + COST_TIE)
         if best is None or sims[o] > sims[best] + (0.0 if same_cost else TIE_DB):
             best = o
-    figures = ", ".join(f"{o.scheme} {o.variant} {sims[o]:.1f} dB (predicted {o.predicted_sinad_db:.1f}, "
-                        f"CPU {o.load:.1%})" for o in sorted(contenders, key=lambda o: o.load))
-    note = (f"chosen on simulated SINAD (float reference, {seconds:g} s of the standard test): {figures}; "
-            f"{best.scheme} {best.variant} " + ("confirms the formulas' choice" if best is chosen else
-                                                 f"replaces {chosen.scheme} {chosen.variant}"))
+    figures = ", ".join(
+        f"{o.scheme} {o.variant} {sims[o]:.1f} dB (predicted {o.predicted_sinad_db:.1f}, CPU {o.load:.1%})"
+        for o in sorted(contenders, key=lambda o: o.load)
+    )
+    note = (
+        f"chosen on simulated SINAD (float reference, {seconds:g} s of the standard test): {figures}; "
+        f"{best.scheme} {best.variant} "
+        + ("confirms the formulas' choice" if best is chosen else f"replaces {chosen.scheme} {chosen.variant}")
+    )
     rows = []
     for o in p.options:
         if o in sims:
@@ -119,8 +132,13 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     return design_and_plan(spec, scheme)[0]
 
 
-def design_and_plan(spec: Spec, scheme: str | None = None, chosen: Plan | None = None,
-                    seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> tuple[Design, Plan]:
+def design_and_plan(
+    spec: Spec,
+    scheme: str | None = None,
+    chosen: Plan | None = None,
+    seconds: float = SIM_SECONDS,
+    seed: int = DEFAULT_SEED,
+) -> tuple[Design, Plan]:
     """The design of the settled plan (or of ``chosen``), its arithmetic confirmed by simulated loss."""
     p = chosen or settle(spec, scheme, seconds, seed)
     d = assemble.design(spec, p)
@@ -135,11 +153,18 @@ def design_and_plan(spec: Spec, scheme: str | None = None, chosen: Plan | None =
         tried.append(f"{opt.arith} {loss:.2f} dB")
         if loss <= spec.fixed.loss_limit_db:
             if cand is not d:
-                p = dataclasses.replace(p, notes=p.notes + (
-                    f"filter arithmetic {opt.arith}: the simulated implementation loss of the cheaper arithmetic "
-                    f"exceeds {spec.fixed.loss_limit_db:g} dB ({'; '.join(tried)})",))
+                p = dataclasses.replace(
+                    p,
+                    notes=p.notes
+                    + (
+                        f"filter arithmetic {opt.arith}: the simulated implementation loss of the cheaper arithmetic "
+                        f"exceeds {spec.fixed.loss_limit_db:g} dB ({'; '.join(tried)})",
+                    ),
+                )
             return cand, p
-    note = f"no filter arithmetic meets the {spec.fixed.loss_limit_db:g} dB loss limit in simulation ({'; '.join(tried)})"
+    note = (
+        f"no filter arithmetic meets the {spec.fixed.loss_limit_db:g} dB loss limit in simulation ({'; '.join(tried)})"
+    )
     return d, dataclasses.replace(p, notes=p.notes + (note,))
 
 
@@ -148,4 +173,8 @@ def arith_name(d: Design) -> str:
     from ..designer.wordlength import ARITHS
 
     f = d.filters
-    return next(name for name, a in ARITHS.items() if (a.data_bits, a.coef_width, a.acc_bits) == (f.data_bits, f.coef_width, f.acc_bits))
+    return next(
+        name
+        for name, a in ARITHS.items()
+        if (a.data_bits, a.coef_width, a.acc_bits) == (f.data_bits, f.coef_width, f.acc_bits)
+    )

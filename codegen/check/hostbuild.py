@@ -89,14 +89,20 @@ class HostDemod:
         return np.int16 if self.design.output.ctype == "int16_t" else np.uint16
 
     def counters(self, st) -> dict:
-        return {"gaps": int(self._fn("gap_count")(st)), "clamps": int(self._fn("clamp_count")(st)),
-                "overruns": int(self._fn("overrun_count")(st)), "carrier": bool(self._fn("carrier_present")(st)),
-                "squelch_open": bool(self._fn("squelch_open")(st)),
-                "saturations": int(self._fn("saturation_count")(st)), "clips": int(self._fn("clip_count")(st)),
-                "offset": int(self._fn("offset")(st))}
+        return {
+            "gaps": int(self._fn("gap_count")(st)),
+            "clamps": int(self._fn("clamp_count")(st)),
+            "overruns": int(self._fn("overrun_count")(st)),
+            "carrier": bool(self._fn("carrier_present")(st)),
+            "squelch_open": bool(self._fn("squelch_open")(st)),
+            "saturations": int(self._fn("saturation_count")(st)),
+            "clips": int(self._fn("clip_count")(st)),
+            "offset": int(self._fn("offset")(st)),
+        }
 
-    def process(self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024,
-                lost=None, clock=None) -> tuple[np.ndarray, dict]:
+    def process(
+        self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024, lost=None, clock=None
+    ) -> tuple[np.ndarray, dict]:
         """Feed the inputs (stamps or counts) in blocks of ``block`` through <name>_process,
         collecting every output; before each index in ``lost`` (inputs lost there, as after a DMA
         overrun) a block ends and <name>_inputs_lost is called. ``clock`` (stamp designs): (k, now)
@@ -113,7 +119,7 @@ class HostDemod:
         ctype = f"{self.design.name}_input_t *"
         lost_set = {int(i) for i in (lost if lost is not None else ())}
         calls: dict[int, list[int]] = {}
-        for k, now in (clock if clock is not None else ()):
+        for k, now in clock if clock is not None else ():
             calls.setdefault(int(k), []).append(int(now))
         breaks = sorted(lost_set | set(range(0, inputs.size, block)) | {k for k in calls if k < inputs.size})
 
@@ -134,7 +140,7 @@ class HostDemod:
             done = 0
             while done < blk.size:
                 done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
-                chunks.append(out[:produced[0]].copy())
+                chunks.append(out[: produced[0]].copy())
         if inputs.size:
             advance(inputs.size)
         return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)

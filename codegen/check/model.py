@@ -16,18 +16,28 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
-from ..fixedpoint import (cubic_fraction, division_quotient, interval_reciprocal, reciprocal_quotient, rshr, sat,
-                          section_step, squelch_level, wrap_bits, wrap_s32)
+from ..fixedpoint import (
+    cubic_fraction,
+    division_quotient,
+    interval_reciprocal,
+    reciprocal_quotient,
+    rshr,
+    sat,
+    section_step,
+    squelch_level,
+    wrap_bits,
+    wrap_s32,
+)
 
 
 @dataclass(frozen=True)
 class ModelRun:
-    out: np.ndarray          # output samples, int16 or uint16 (the output format's type)
-    gaps: int                # grid instants with no carrier (gaps, lost inputs, resyncs)
-    clamps: int              # steps outside the legal range, muted (fed the centre step)
-    saturations: int         # internal data nodes that saturated
-    clips: int               # output samples clipped to the output range
-    steps: np.ndarray        # the phase step per grid instant (CIC input), int64
+    out: np.ndarray  # output samples, int16 or uint16 (the output format's type)
+    gaps: int  # grid instants with no carrier (gaps, lost inputs, resyncs)
+    clamps: int  # steps outside the legal range, muted (fed the centre step)
+    saturations: int  # internal data nodes that saturated
+    clips: int  # output samples clipped to the output range
+    steps: np.ndarray  # the phase step per grid instant (CIC input), int64
     # run() sets both; None only in results made without the squelch
     squelch_open: np.ndarray = None  # type: ignore[assignment]   # per output sample: the squelch passed it
     unmuted: np.ndarray = None  # type: ignore[assignment]        # the output as it would be with the squelch open
@@ -71,7 +81,7 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     last = t.size - 2 if cubic else t.size - 1  # instants before this stamp are complete
     if last <= first:
         return np.zeros(0, dtype=np.int64), 0, 0, np.zeros(0, dtype=bool)
-    count = (t[last] - t[first] - 1) // fr.grid_ticks      # instants strictly before t[last]
+    count = (t[last] - t[first] - 1) // fr.grid_ticks  # instants strictly before t[last]
     g = t[first] + fr.grid_ticks * np.arange(1, count + 1, dtype=np.int64)
     i = np.searchsorted(t, g, side="right")  # the stamp after each instant
     t1, d = t[i - 1], t[i] - t[i - 1]
@@ -95,13 +105,20 @@ def phase_steps(design: Design, stamps: np.ndarray, lost=None) -> tuple[np.ndarr
     e1 = np.where(gap, 0, g - t1)
     plan = design.recip
     if plan is not None:
-        k, dn, r = interval_reciprocal(safe_d, plan)      # the C computes it once per interval
+        k, dn, r = interval_reciprocal(safe_d, plan)  # the C computes it once per interval
         quot = reciprocal_quotient(k, dn, r, plan)
     else:
         quot = division_quotient(safe_d, fr.phase_shift)
     if cubic:
-        frac = cubic_fraction(e1, safe_d, np.where(gap, 1, t1 - t[i - 2]), np.where(gap, 1, t[i + 1] - t[i]),
-                              fr.delta_limit, fr.phase_shift, quot)
+        frac = cubic_fraction(
+            e1,
+            safe_d,
+            np.where(gap, 1, t1 - t[i - 2]),
+            np.where(gap, 1, t[i + 1] - t[i]),
+            fr.delta_limit,
+            fr.phase_shift,
+            quot,
+        )
     else:
         frac = quot(e1, 0)
     p = (i - 1).astype(np.int64) * (1 << fr.phase_shift) + np.where(gap, 0, frac)
@@ -147,7 +164,7 @@ def squelch_gates(design: Design, x: np.ndarray, muted: np.ndarray) -> np.ndarra
     h = wrap_s32(xs[2:] - 2 * xs[1:-1] + xs[:-2])
     e = np.where(muted, sq.penalty, np.abs(h))
     n = e.size // r
-    sums = wrap_bits(e[:n * r].reshape(n, r).sum(axis=1), 32)
+    sums = wrap_bits(e[: n * r].reshape(n, r).sum(axis=1), 32)
     gates = np.zeros(n, dtype=bool)
     lvl, is_open = sq.cap, False
     for j, a in enumerate(sums.tolist()):
@@ -219,10 +236,11 @@ def run(design: Design, inputs: np.ndarray, lost=None) -> ModelRun:
     which inputs were lost (the C is told by <name>_inputs_lost(), or finds its queue full)."""
     x, gaps, clamps, muted = front_steps(design, inputs, lost)
     out, sats, clips = post_chain(design, cic_decimate(design, x))
-    gates = squelch_gates(design, x, muted)[design.cic.order:][:out.size]
+    gates = squelch_gates(design, x, muted)[design.cic.order :][: out.size]
     muted = np.where(gates, out, design.output.mid).astype(out.dtype)
-    return ModelRun(out=muted, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x, squelch_open=gates,
-                    unmuted=out)
+    return ModelRun(
+        out=muted, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x, squelch_open=gates, unmuted=out
+    )
 
 
 def service_due(done: int, service_every: int, stall: tuple[int, int] | None = None) -> bool:
@@ -262,7 +280,7 @@ def clocked(design: Design, inputs: np.ndarray, calls, lost=None) -> tuple[np.nd
     fr = design.front
     mask, half = (1 << fr.timer_bits) - 1, 1 << (fr.timer_bits - 1)
     x = np.asarray(inputs, dtype=np.int64)
-    virtual: list[tuple[int, int]] = []          # (original index it precedes, value)
+    virtual: list[tuple[int, int]] = []  # (original index it precedes, value)
     last, last_k = None, 0
     for k, now in calls:
         if k > last_k or last is None:
@@ -279,7 +297,7 @@ def clocked(design: Design, inputs: np.ndarray, calls, lost=None) -> tuple[np.nd
     at = np.array([k for k, _ in virtual], dtype=np.int64)
     out = np.insert(x, at, [v for _, v in virtual])
     new_pos = np.arange(x.size) + np.searchsorted(at, np.arange(x.size), side="right")
-    v_pos = at + np.arange(at.size)                            # where each virtual stamp landed
+    v_pos = at + np.arange(at.size)  # where each virtual stamp landed
     after = {int(p) + 1 for p in v_pos if p + 1 < out.size}
     after |= {int(new_pos[i]) for i in (lost if lost is not None else ())}
     return out.astype(x.dtype), sorted(after)

@@ -222,8 +222,10 @@ def summary_lines(design: Design, res: ReplayResult) -> list[str]:
         f"  offset output at the end: {res.offset_hz:+.1f} Hz from the IF ({design.if_hz:g} Hz)",
     ]
     if res.tone_hz is not None:
-        lines.append(f"  steady tone {res.tone_hz:.1f} Hz: SINAD {res.sinad_db:.1f} dB "
-                     f"({design.test.band_lo_hz:g} Hz to {design.audio_hz:g} Hz, after {res.settle_s * 1e3:.3g} ms settling)")
+        lines.append(
+            f"  steady tone {res.tone_hz:.1f} Hz: SINAD {res.sinad_db:.1f} dB "
+            f"({design.test.band_lo_hz:g} Hz to {design.audio_hz:g} Hz, after {res.settle_s * 1e3:.3g} ms settling)"
+        )
     else:
         lines.append("  no steady tone in the output: no SINAD")
     return lines

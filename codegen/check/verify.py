@@ -42,12 +42,12 @@ class VerifyResult:
     predicted_curvature_sinad_db: float
     predicted_jitter_sinad_db: float
     implementation_loss_db: float
-    quant_gap_db: float        # how far the float reference falls short of the quantisation-only prediction
-    tone_hz: float             # the standard test of this band (edgetally.standard)
+    quant_gap_db: float  # how far the float reference falls short of the quantisation-only prediction
+    tone_hz: float  # the standard test of this band (edgetally.standard)
     test_level: float
     band_lo_hz: float
     lead_s: float
-    prediction_doubt: str | None   # why the prediction may be several dB off (planner's schemes.doubt), or None
+    prediction_doubt: str | None  # why the prediction may be several dB off (planner's schemes.doubt), or None
     gaps: int
     clamps: int
     saturations: int
@@ -57,8 +57,8 @@ class VerifyResult:
     model_seconds: float
     widths: dict
     squelch: dict = None  # type: ignore[assignment]                      # the design's squelch and, when measured, its figures on the noisy IF
-    target_bit_exact: bool | None = None     # None: not run (no cross compiler or emulator)
-    target: dict | None = None                # per core: bit_exact, cycles per event, sizes
+    target_bit_exact: bool | None = None  # None: not run (no cross compiler or emulator)
+    target: dict | None = None  # per core: bit_exact, cycles per event, sizes
 
     @property
     def ok(self) -> bool:
@@ -70,25 +70,34 @@ class VerifyResult:
         return {**asdict(self), "ok": self.ok}
 
 
-HARMONIC_FLOOR_DB = 75.0   # our band sweeps (tests/test_standard_test.py) measured the front end's tone
-                           # harmonics at -74 to -89 dB THD: above this the noise-only prediction may miss them
-CURVATURE_LEAD_DB = 3.0    # the interpolation part dominates when it is this far below the quantisation part
+HARMONIC_FLOOR_DB = 75.0  # our band sweeps (tests/test_standard_test.py) measured the front end's tone
+# harmonics at -74 to -89 dB THD: above this the noise-only prediction may miss them
+CURVATURE_LEAD_DB = 3.0  # the interpolation part dominates when it is this far below the quantisation part
 
 
 def measured_doubt(design: Design, pred) -> str | None:
     """Why the measured SINAD may sit several dB from the prediction, or None: the planner's reasons
     (``schemes.doubt``), and two of the measurement: the prediction models noise, while a dominant
     interpolation residual, and any front end past HARMONIC_FLOOR_DB, make the tone's harmonics."""
-    why = schemes.doubt(schemes.variant_of(design), if_hz=design.if_hz, full_scale_hz=design.full_scale_hz,
-                        grid_hz=design.rates.grid_hz, pred=pred)
+    why = schemes.doubt(
+        schemes.variant_of(design),
+        if_hz=design.if_hz,
+        full_scale_hz=design.full_scale_hz,
+        grid_hz=design.rates.grid_hz,
+        pred=pred,
+    )
     if why:
         return why
     if pred.curvature_sinad_db < pred.quant_sinad_db - CURVATURE_LEAD_DB:
-        return ("the interpolation residual dominates: for a tone it is the tone's harmonics, which the "
-                "white-noise model covers only roughly")
+        return (
+            "the interpolation residual dominates: for a tone it is the tone's harmonics, which the "
+            "white-noise model covers only roughly"
+        )
     if pred.sinad_db > HARMONIC_FLOOR_DB:
-        return (f"above {HARMONIC_FLOOR_DB:g} dB the front end's tone harmonics (the 1/f curvature of the stamp "
-                "times, not in the noise model) can set the figure")
+        return (
+            f"above {HARMONIC_FLOOR_DB:g} dB the front end's tone harmonics (the 1/f curvature of the stamp "
+            "times, not in the noise model) can set the figure"
+        )
     return None
 
 
@@ -105,14 +114,23 @@ def test_seconds(design: Design, seconds: float | None) -> float:
     if not seconds > 0:
         raise ValueError("seconds must be positive")
     if seconds < test.min_seconds:
-        raise TooShort(f"{seconds:g} s is too short to measure the {test.tone_hz:g} Hz test tone of a "
-                       f"{test.band_hi_hz:g} Hz band (it needs {test.min_seconds:g} s: 20 tone periods and 4 "
-                       f"periodogram bins below {test.band_lo_hz:g} Hz)")
+        raise TooShort(
+            f"{seconds:g} s is too short to measure the {test.tone_hz:g} Hz test tone of a "
+            f"{test.band_hi_hz:g} Hz band (it needs {test.min_seconds:g} s: 20 tone periods and 4 "
+            f"periodogram bins below {test.band_lo_hz:g} Hz)"
+        )
     return seconds
 
 
-def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEED, cnr_db: float | None = None,
-           progress: Callable[[str], None] | None = None, targets: bool = False, squelch: bool = False) -> VerifyResult:
+def verify(
+    design: Design,
+    seconds: float | None = None,
+    seed: int = DEFAULT_SEED,
+    cnr_db: float | None = None,
+    progress: Callable[[str], None] | None = None,
+    targets: bool = False,
+    squelch: bool = False,
+) -> VerifyResult:
     """Run the whole check. ``progress`` (optional) is told each step as it starts; ``targets``
     adds the cross-compiled runs in the emulator (target_check); ``squelch`` measures the noise
     squelch's switching CNRs on the simulated noisy IF (measure.squelch)."""
@@ -158,7 +176,7 @@ def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEE
     skip = int(round(test.lead_s * fs))
     band = (test.band_lo_hz, test.band_hi_hz)
     fixed = metrics.sinad_db(c_out[skip:], fs, test.tone_hz, *band)
-    flt = metrics.sinad_db(ref[skip:ref.size], fs, test.tone_hz, *band)
+    flt = metrics.sinad_db(ref[skip : ref.size], fs, test.tone_hz, *band)
     pred = schemes.predict_design(design)
     tgt = {}
     if pending is not None:
@@ -184,10 +202,21 @@ def verify(design: Design, seconds: float | None = None, seed: int = DEFAULT_SEE
         predicted_curvature_sinad_db=round(pred.curvature_sinad_db, 2),
         predicted_jitter_sinad_db=round(pred.jitter_sinad_db, 2),
         implementation_loss_db=round(flt - fixed, 2) + 0.0,
-        quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0, tone_hz=test.tone_hz, test_level=test.level,
-        band_lo_hz=test.band_lo_hz, lead_s=test.lead_s, prediction_doubt=doubt, gaps=m.gaps, clamps=m.clamps,
-        saturations=m.saturations, clips=m.clips,
+        quant_gap_db=round(pred.quant_sinad_db - flt, 2) + 0.0,
+        tone_hz=test.tone_hz,
+        test_level=test.level,
+        band_lo_hz=test.band_lo_hz,
+        lead_s=test.lead_s,
+        prediction_doubt=doubt,
+        gaps=m.gaps,
+        clamps=m.clamps,
+        saturations=m.saturations,
+        clips=m.clips,
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 3),
-        c_seconds=round(t1 - t0, 4), model_seconds=round(t2 - t1, 4), widths=design.word_lengths,
-        squelch=sq, target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None, target=tgt,
+        c_seconds=round(t1 - t0, 4),
+        model_seconds=round(t2 - t1, 4),
+        widths=design.word_lengths,
+        squelch=sq,
+        target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None,
+        target=tgt,
     )

@@ -64,21 +64,29 @@ def _global_options(defaults: bool) -> argparse.ArgumentParser:
     """The options every command accepts anywhere on the line. Only the top level sets defaults,
     so that a subcommand's parser does not reset what was given before the command."""
     g = _Parser(add_help=False)
-    g.add_argument("--debug", action="store_true", default=False if defaults else argparse.SUPPRESS,
-                   help="show tracebacks on errors")
+    g.add_argument(
+        "--debug",
+        action="store_true",
+        default=False if defaults else argparse.SUPPRESS,
+        help="show tracebacks on errors",
+    )
     return g
 
 
 def _parser() -> argparse.ArgumentParser:
     ap = _Parser(
-        prog="edgetally", parents=[_global_options(True)], epilog=EXIT_CODES,
+        prog="edgetally",
+        parents=[_global_options(True)],
+        epilog=EXIT_CODES,
         formatter_class=argparse.RawDescriptionHelpFormatter,
-        description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.")
+        description="Plan, emit and verify integer-only C that demodulates FM by counting the edges of a limited IF.",
+    )
     ap.add_argument("--version", action="version", version=f"edgetally {__version__}")
     sub = ap.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    common: dict[str, Any] = dict(parents=[_global_options(False)], epilog=EXIT_CODES,
-                                  formatter_class=argparse.RawDescriptionHelpFormatter)
-    _add_parser = sub.add_parser   # every command (replay's too) gets the global options and the exit codes
+    common: dict[str, Any] = dict(
+        parents=[_global_options(False)], epilog=EXIT_CODES, formatter_class=argparse.RawDescriptionHelpFormatter
+    )
+    _add_parser = sub.add_parser  # every command (replay's too) gets the global options and the exit codes
     sub.add_parser = lambda name, **kw: _add_parser(name, **common, **kw)  # type: ignore[method-assign]
 
     p = sub.add_parser("plan", help="show what was chosen and why")
@@ -101,9 +109,12 @@ def _parser() -> argparse.ArgumentParser:
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
     p.add_argument("--force", action="store_true", help=FORCE_HELP)
-    p.add_argument("--no-test", action="store_true",
-                   help="leave out the desktop unit test (the <name>_test/ folder: <name>_test.c, vectors, "
-                        "Makefile, CMakeLists.txt)")
+    p.add_argument(
+        "--no-test",
+        action="store_true",
+        help="leave out the desktop unit test (the <name>_test/ folder: <name>_test.c, vectors, "
+        "Makefile, CMakeLists.txt)",
+    )
 
     p = sub.add_parser("widths", help="show the word-length table and overflow margins, or check your own widths")
     _add_scheme_args(p)
@@ -120,23 +131,49 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("verify", help="compile the C, compare it bit for bit with the model, measure quality")
     _add_scheme_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the summary")
-    p.add_argument("--seconds", type=float, default=None,
-                   help="measured length of the standard test in seconds (default 1, longer for bands under 60 Hz)")
+    p.add_argument(
+        "--seconds",
+        type=float,
+        default=None,
+        help="measured length of the standard test in seconds (default 1, longer for bands under 60 Hz)",
+    )
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signal (default fixed)")
-    p.add_argument("--no-target", action="store_true",
-                   help="skip the cross-compiled runs in the Thumb emulator (done when arm-none-eabi-gcc and "
-                        "unicorn are installed)")
-    p.add_argument("--no-squelch", action="store_true",
-                   help="skip measuring the noise squelch's switching CNRs on the simulated noisy IF")
-    p.add_argument("--sweep", action="append", default=[], choices=SWEEP_KINDS,
-                   help="also sweep one quantity, every point checked bit for bit: IF carrier-to-noise ratio "
-                        "(cnr, dB), tone frequency (tone, Hz), peak deviation (deviation, Hz) or carrier offset "
-                        "from the IF (offset, Hz); repeatable")
-    p.add_argument("--points", default=None, metavar="V1,V2,...",
-                   help="the swept values for --sweep (default: a range fitted to the spec)")
-    p.add_argument("--scenario", action="append", default=[], choices=(*SCENARIO_NAMES, "all"),
-                   help="also run a hostile condition through the C and the model; repeatable, or 'all'")
-    p.add_argument("--loss-ms", type=float, default=20.0, help="signal-loss scenario: no edges for this long (default 20)")
+    p.add_argument(
+        "--no-target",
+        action="store_true",
+        help="skip the cross-compiled runs in the Thumb emulator (done when arm-none-eabi-gcc and "
+        "unicorn are installed)",
+    )
+    p.add_argument(
+        "--no-squelch",
+        action="store_true",
+        help="skip measuring the noise squelch's switching CNRs on the simulated noisy IF",
+    )
+    p.add_argument(
+        "--sweep",
+        action="append",
+        default=[],
+        choices=SWEEP_KINDS,
+        help="also sweep one quantity, every point checked bit for bit: IF carrier-to-noise ratio "
+        "(cnr, dB), tone frequency (tone, Hz), peak deviation (deviation, Hz) or carrier offset "
+        "from the IF (offset, Hz); repeatable",
+    )
+    p.add_argument(
+        "--points",
+        default=None,
+        metavar="V1,V2,...",
+        help="the swept values for --sweep (default: a range fitted to the spec)",
+    )
+    p.add_argument(
+        "--scenario",
+        action="append",
+        default=[],
+        choices=(*SCENARIO_NAMES, "all"),
+        help="also run a hostile condition through the C and the model; repeatable, or 'all'",
+    )
+    p.add_argument(
+        "--loss-ms", type=float, default=20.0, help="signal-loss scenario: no edges for this long (default 20)"
+    )
     p.add_argument("--burst-ms", type=float, default=2.0, help="noise-burst scenario: its length (default 2)")
 
     p = sub.add_parser(
@@ -147,8 +184,12 @@ def _parser() -> argparse.ArgumentParser:
     _add_scheme_args(p)
     p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder to write into (created if missing)")
     p.add_argument("--force", action="store_true", help=FORCE_HELP)
-    p.add_argument("--seconds", type=float, default=None,
-                   help="length of the standard test signal (default 1, longer for bands under 60 Hz)")
+    p.add_argument(
+        "--seconds",
+        type=float,
+        default=None,
+        help="length of the standard test signal (default 1, longer for bands under 60 Hz)",
+    )
     p.add_argument("--seed", type=int, default=None, help="random seed of the test signals (default fixed)")
     p.add_argument("--no-target", action="store_true", help="leave out the emulated target runs")
     cli_replay.add_parser(sub)
@@ -188,14 +229,16 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
             f"{_db(o.jitter_sinad_db):>6}{sim}  {o.reason}"
         )
     pr, ld = pl.prediction, pl.load
-    lines += ["",
-              f"predicted SINAD {pr.sinad_db:.1f} dB ({standard.tone_hz(spec.signal.audio_hz):g} Hz tone at "
-              f"{standard.LEVEL:.0%} deviation, {spec.signal.audio_hz:g} Hz band): "
-              f"quantisation {_db(pr.quant_sinad_db)}, interpolation {_db(pr.curvature_sinad_db)}, "
-              f"jitter {_db(pr.jitter_sinad_db)}, 16-bit output {_db(pr.output_sinad_db)}",
-              f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_edge} cycles/edge in ISRs, "
-              f"{ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = {ld.fraction:.1%} "
-              f"(budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state"]
+    lines += [
+        "",
+        f"predicted SINAD {pr.sinad_db:.1f} dB ({standard.tone_hz(spec.signal.audio_hz):g} Hz tone at "
+        f"{standard.LEVEL:.0%} deviation, {spec.signal.audio_hz:g} Hz band): "
+        f"quantisation {_db(pr.quant_sinad_db)}, interpolation {_db(pr.curvature_sinad_db)}, "
+        f"jitter {_db(pr.jitter_sinad_db)}, 16-bit output {_db(pr.output_sinad_db)}",
+        f"CPU estimate on {spec.target.core} at {spec.target.cpu_hz / 1e6:g} MHz: {ld.per_edge} cycles/edge in ISRs, "
+        f"{ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = {ld.fraction:.1%} "
+        f"(budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state",
+    ]
     lines += [f"note: {n}" for n in pl.notes]
     if sims:
         for (scheme, variant), v in sims.items():
@@ -235,7 +278,7 @@ def cmd_plan(args) -> int:
     pl = settle(spec, scheme=args.scheme)
     from ..designer.assemble import design as make_design
 
-    make_design(spec, pl)   # what plan accepts, emit, verify and widths build: the [fixed] targets refuse here too
+    make_design(spec, pl)  # what plan accepts, emit, verify and widths build: the [fixed] targets refuse here too
     sims = None
     if args.simulate:
         from ..check.choice import simulate_options
@@ -371,8 +414,14 @@ def cmd_verify(args) -> int:
     from ..check.verify import TooShort
 
     try:
-        res = verify(d, seconds=args.seconds, seed=seed, progress=progress, targets=not args.no_target,
-                     squelch=not args.no_squelch)
+        res = verify(
+            d,
+            seconds=args.seconds,
+            seed=seed,
+            progress=progress,
+            targets=not args.no_target,
+            squelch=not args.no_squelch,
+        )
     except TooShort as e:
         raise UsageError(f"--seconds {args.seconds:g}: {e}") from None
     host = None
@@ -399,16 +448,22 @@ def cmd_verify(args) -> int:
         )
         print(f"  emitted C vs integer model: {verdict} over {res.samples} output samples")
         print(f"  standard test: {d.test.describe()}, after {res.lead_s:g} s settling")
-        print(f"  SINAD: C {res.sinad_db:.2f} dB, float reference {res.float_sinad_db:.2f} dB, "
-              f"predicted {res.predicted_sinad_db:.2f} dB{'?' if res.prediction_doubt else ''}")
+        print(
+            f"  SINAD: C {res.sinad_db:.2f} dB, float reference {res.float_sinad_db:.2f} dB, "
+            f"predicted {res.predicted_sinad_db:.2f} dB{'?' if res.prediction_doubt else ''}"
+        )
         if res.prediction_doubt:
             print(f"  the prediction may be several dB off: {res.prediction_doubt}")
-        print(f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: quantisation "
-              f"{_db(res.predicted_quant_sinad_db)} dB, interpolation {_db(res.predicted_curvature_sinad_db)} dB, "
-              f"jitter {_db(res.predicted_jitter_sinad_db)} dB")
+        print(
+            f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: quantisation "
+            f"{_db(res.predicted_quant_sinad_db)} dB, interpolation {_db(res.predicted_curvature_sinad_db)} dB, "
+            f"jitter {_db(res.predicted_jitter_sinad_db)} dB"
+        )
         if res.quant_gap_db > 3:
-            print(f"  quantisation alone would allow {res.predicted_quant_sinad_db:.1f} dB: this design falls "
-                  f"{res.quant_gap_db:.1f} dB short of it")
+            print(
+                f"  quantisation alone would allow {res.predicted_quant_sinad_db:.1f} dB: this design falls "
+                f"{res.quant_gap_db:.1f} dB short of it"
+            )
         from ..measure.squelch import describe
 
         for line in describe(res.squelch):
@@ -425,11 +480,15 @@ def cmd_verify(args) -> int:
                 )
                 print("    " + _float_line(t))
                 if t["isa_violations"]:
-                    print(f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
-                          f"first {t['isa_violations'][0]}")
+                    print(
+                        f"    INSTRUCTION-SET CHECK FAILED: {len(t['isa_violations'])} instruction(s) the core lacks, "
+                        f"first {t['isa_violations'][0]}"
+                    )
         elif not args.no_target:
-            print("  target runs: skipped (needs a cross compiler, e.g. Debian's gcc-arm-none-eabi, and the emulator: "
-                  "the package's target extra, pip install '.[target]')")
+            print(
+                "  target runs: skipped (needs a cross compiler, e.g. Debian's gcc-arm-none-eabi, and the emulator: "
+                "the package's target extra, pip install '.[target]')"
+            )
         for s in sw:
             cli_quality.print_sweep(s)
         if hs:
@@ -445,8 +504,8 @@ def cmd_verify(args) -> int:
     return EXIT_OK if ok else EXIT_FAIL
 
 
-MIN_MEASURED_SAMPLES = 64   # output samples a SINAD figure is measured over, at the least
-MAX_SEED = (1 << 32) - 1    # numpy's seed: a non-negative integer; kept to 32 bits for the C harness
+MIN_MEASURED_SAMPLES = 64  # output samples a SINAD figure is measured over, at the least
+MAX_SEED = (1 << 32) - 1  # numpy's seed: a non-negative integer; kept to 32 bits for the C harness
 
 
 def _check_seconds(seconds: float | None) -> None:
@@ -466,8 +525,11 @@ def check_run_args(args, spec: Spec) -> None:
     # standard test, is checked against the design: check.verify.test_seconds)
     least = MIN_MEASURED_SAMPLES / spec.output.rate_hz
     if args.seconds is not None and args.seconds < least:
-        raise SpecError("--seconds", args.seconds, f"must be at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} "
-                                                   "output samples)")
+        raise SpecError(
+            "--seconds",
+            args.seconds,
+            f"must be at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} output samples)",
+        )
 
 
 def cmd_report(args) -> int:

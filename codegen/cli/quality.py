@@ -101,11 +101,12 @@ def cmd_report(args, spec, design, plan_obj) -> int:
     from ..stimulus.inputs import DEFAULT_SEED
 
     out = Path(args.out)
-    check_folder(out, report_page.file_names(design), args.force)   # before the long computation
+    check_folder(out, report_page.file_names(design), args.force)  # before the long computation
     seed = DEFAULT_SEED if args.seed is None else args.seed
     with Progress(report_make.steps(design), f"report '{design.name}'", sys.stderr.isatty()) as bar:
-        made = report_make.make(spec, plan_obj, design, seconds=args.seconds, seed=seed, targets=not args.no_target,
-                                progress=bar)
+        made = report_make.make(
+            spec, plan_obj, design, seconds=args.seconds, seed=seed, targets=not args.no_target, progress=bar
+        )
     for o in write_set(out, made.files, args.force):
         print(f"{o.state}: {o.path}")
     res, failed = made.verify, made.failed_scenarios
@@ -124,4 +125,3 @@ def json_extra(sweeps_done, scenarios_done) -> dict:
     if scenarios_done:
         extra["scenarios"] = [r.to_dict() for r in scenarios_done]
     return extra
-

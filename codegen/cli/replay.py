@@ -10,7 +10,7 @@ from pathlib import Path
 
 from .folder import FORCE_HELP, check_folder, write_set
 
-FORMATS = ("vcd", "csv", "bin", "wav", "sigmf")     # edgetally.stimulus.recordings.FORMATS
+FORMATS = ("vcd", "csv", "bin", "wav", "sigmf")  # edgetally.stimulus.recordings.FORMATS
 SCHEMES = ("timestamp", "interrupt", "counter")
 
 
@@ -60,7 +60,9 @@ def add_parser(subparsers) -> None:
         help="bin: bits per word (default the timer's or counter's width; wider words are unwrapped values)",
     )
     p.add_argument("--json", action="store_true", help="print the summary as one JSON object")
-    p.add_argument("-o", "--out", required=True, metavar="DIR", help="folder for the WAV and the page (made if missing)")
+    p.add_argument(
+        "-o", "--out", required=True, metavar="DIR", help="folder for the WAV and the page (made if missing)"
+    )
     p.add_argument("--force", action="store_true", help=FORCE_HELP)
 
 

@@ -22,7 +22,7 @@ from ..planner.choose import REG_BITS, Plan, plan
 from .. import standard
 from ..spec import Spec, SpecError
 
-SCALE_MULT_BITS = 24    # the scale multiplier's precision (relative error below 2**-23)
+SCALE_MULT_BITS = 24  # the scale multiplier's precision (relative error below 2**-23)
 OVERRIDABLE = {"arith": str, "data_bits": int, "coef_bits": int, "coef_width": int, "acc_bits": int, "scaling": str}
 
 
@@ -71,7 +71,11 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     in_rel = 2 * _bound_rel(spec, p)  # audio minus offset
     q_in = math.floor(math.log2(lim / in_rel))
     qs = wordlength.section_formats(rows, q_in, in_rel, a.data_bits, scaling)
-    cb = coef_bits if coef_bits is not None else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    cb = (
+        coef_bits
+        if coef_bits is not None
+        else min(iir.COEF_BITS, wordlength.coef_bits_for(rows, q_in, qs, a.coef_width))
+    )
     if a.acc_bits == wordlength.SPLIT_ACC_BITS and not 8 <= cb <= 16:
         raise ValueError(f"the split products need Q8..Q16 coefficients, not Q{cb}")
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
@@ -109,7 +113,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     # the split arithmetic stands in for a 32x32->64 multiply: offered where the core has none
     auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "mid", "wide"]
     names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
-    signal_fs2 = schemes.TEST_LEVEL ** 2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
+    signal_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
     opts = []
     for name in names:
@@ -122,8 +126,9 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
         err = wordlength.response_error_db(f, q_in, spec.output.rate_hz, spec.signal.audio_hz)
-        noise = wordlength.roundoff_noise(f, q_in, out_bits, spec.output.rate_hz, standard.band_lo_hz(spec.signal.audio_hz),
-                                     spec.signal.audio_hz)
+        noise = wordlength.roundoff_noise(
+            f, q_in, out_bits, spec.output.rate_hz, standard.band_lo_hz(spec.signal.audio_hz), spec.signal.audio_hz
+        )
         loss = 10 * math.log10(1 + noise / signal_fs2)
         needed = f.coef_bits
         for cb in range(f.coef_bits - 1, 7, -1):
@@ -140,7 +145,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             # zero-input limit cycles (Jackson 1969): the idle tone of a 16-bit word must stay under the
             # planned noise (the widths check's rule); wider words put it far below any noise
             for sec, m in zip(f.sections, wordlength.limit_cycle_lsb(f), strict=True):
-                if m and (m * 2.0 ** -sec.q_out) ** 2 / 2 > signal_fs2:
+                if m and (m * 2.0**-sec.q_out) ** 2 / 2 > signal_fs2:
                     why.append(f"limit cycle in {sec.role} above the noise floor")
                     break
         if loss > fx.loss_limit_db:
@@ -158,10 +163,16 @@ def _refuse_targets(spec: Spec, best: WidthOption) -> None:
     fx = spec.fixed
     if best.loss_db > fx.loss_limit_db:
         word = "" if spec.output.format == "s16" else f", the rounding to output.format {spec.output.format} included"
-        raise SpecError("fixed.loss_limit_db", fx.loss_limit_db,
-                        f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB{word}; allow more loss")
-    raise SpecError("fixed.response_tol_db", fx.response_tol_db,
-                    f"cannot be met: the quantised filters are {best.response_error_db:.3f} dB off; allow more")
+        raise SpecError(
+            "fixed.loss_limit_db",
+            fx.loss_limit_db,
+            f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB{word}; allow more loss",
+        )
+    raise SpecError(
+        "fixed.response_tol_db",
+        fx.response_tol_db,
+        f"cannot be met: the quantised filters are {best.response_error_db:.3f} dB off; allow more",
+    )
 
 
 def _squelch(spec: Spec, p: Plan) -> Squelch:
@@ -169,19 +180,41 @@ def _squelch(spec: Spec, p: Plan) -> Squelch:
     sig, out, tgt = spec.signal, spec.output, spec.target
     fr = p.front
     v = schemes.Variant(p.scheme, fr.kind, fr.prescale, getattr(fr, "order", "linear"))
-    floor = sum(schemes.grid_error_vars(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
-                                        cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles,
-                                        grid_hz=p.grid_hz, band_hz=sig.audio_hz))
+    floor = sum(
+        schemes.grid_error_vars(
+            v,
+            if_hz=sig.if_hz,
+            full_scale_hz=out.full_scale_hz,
+            timer_hz=tgt.timer_hz,
+            cpu_hz=tgt.cpu_hz,
+            irq_jitter_cycles=tgt.irq_jitter_cycles,
+            grid_hz=p.grid_hz,
+            band_hz=sig.audio_hz,
+        )
+    )
     if fr.kind == "stamp":
         weight = schemes.CUBIC_WEIGHT if fr.order == "cubic" else schemes.LINEAR_WEIGHT
         edge_hz, bits = sig.if_hz / fr.prescale, fr.phase_shift
     else:
         weight, edge_hz, bits = 1.0, math.inf, fr.step_shift
-    return design_squelch(cnr_db=sig.squelch_cnr_db, grid_hz=p.grid_hz, out_hz=out.rate_hz, ratio=p.ratio,
-                          deviation_hz=sig.deviation_hz, audio_hz=sig.audio_hz, full_scale_hz=out.full_scale_hz,
-                          edge_hz=edge_hz, weight=weight, floor_var=floor, units_per_cycle=2.0 ** bits / fr.prescale,
-                          x_limit=fr.x_limit, std_tone_hz=standard.tone_hz(sig.audio_hz), std_level=standard.LEVEL,
-                          counts=fr.kind == "count", blind=fr.kind == "count" and fr.diff_limit <= 1)
+    return design_squelch(
+        cnr_db=sig.squelch_cnr_db,
+        grid_hz=p.grid_hz,
+        out_hz=out.rate_hz,
+        ratio=p.ratio,
+        deviation_hz=sig.deviation_hz,
+        audio_hz=sig.audio_hz,
+        full_scale_hz=out.full_scale_hz,
+        edge_hz=edge_hz,
+        weight=weight,
+        floor_var=floor,
+        units_per_cycle=2.0**bits / fr.prescale,
+        x_limit=fr.x_limit,
+        std_tone_hz=standard.tone_hz(sig.audio_hz),
+        std_level=standard.LEVEL,
+        counts=fr.kind == "count",
+        blind=fr.kind == "count" and fr.diff_limit <= 1,
+    )
 
 
 def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:
@@ -196,29 +229,49 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     good = [o for o in opts if o.ok]
     pick = good[0] if good else next((o for o in reversed(opts) if o.filters is not None), None)
     if pick is None or pick.filters is None:
-        raise SpecError("fixed.arith", spec.fixed.arith, "no word lengths give a stable quantised filter: " + opts[0].reason)
+        raise SpecError(
+            "fixed.arith", spec.fixed.arith, "no word lengths give a stable quantised filter: " + opts[0].reason
+        )
     if not good and not overrides:
         # the [fixed] targets bind every command as they bind `widths` (the user's own word
         # lengths, given as overrides, are what `widths` checks and may fail)
         _refuse_targets(spec, pick)
     f, q_in = pick.filters, pick.q_in
     if q_in < 0:
-        raise SpecError("output.full_scale_hz", out.full_scale_hz,
-                        "is too small a fraction of the IF for the output chain's data word; raise it")
+        raise SpecError(
+            "output.full_scale_hz",
+            out.full_scale_hz,
+            "is too small a fraction of the IF for the output chain's data word; raise it",
+        )
     unit, y_max = _units(p)
     centre = round(Fraction(sig.if_hz) / unit)
     gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)  # data LSB per CIC LSB
     shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
     if shift < 1:
-        raise SpecError("output.full_scale_hz", out.full_scale_hz,
-                        f"is too small for this design: one CIC step would be {float(gain):.3g} output-word steps, "
-                        f"more than the {SCALE_MULT_BITS}-bit scale multiplier holds; widen the full scale")
+        raise SpecError(
+            "output.full_scale_hz",
+            out.full_scale_hz,
+            f"is too small for this design: one CIC step would be {float(gain):.3g} output-word steps, "
+            f"more than the {SCALE_MULT_BITS}-bit scale multiplier holds; widen the full scale",
+        )
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
-    cert = wordlength.certificate(x_limit=p.front.x_limit, in_bits=p.cic_in_bits, ratio=p.ratio, order=p.order,
-                             cic_width=REG_BITS, centre=centre, mult=mult, shift=shift, q_in=q_in, u_limit=f.limit,
-                             dc_shift=dc_shift, f=f, front_words=_front_words(p.front))
+    cert = wordlength.certificate(
+        x_limit=p.front.x_limit,
+        in_bits=p.cic_in_bits,
+        ratio=p.ratio,
+        order=p.order,
+        cic_width=REG_BITS,
+        centre=centre,
+        mult=mult,
+        shift=shift,
+        q_in=q_in,
+        u_limit=f.limit,
+        dc_shift=dc_shift,
+        f=f,
+        front_words=_front_words(p.front),
+    )
     sq = _squelch(spec, p)
     cert = cert + squelch_registers(sq, x_limit=p.front.x_limit, ratio=p.ratio)
     per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
@@ -231,13 +284,27 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
         rates=Rates(timer_hz=tgt.timer_hz, grid_hz=p.grid_hz, out_hz=out.rate_hz),
         front=p.front,
         cic=Cic(order=p.order, ratio=p.ratio, in_bits=p.cic_in_bits, width=REG_BITS),
-        scale=scale, filters=f, output=_out_format(spec, f.sections[-1].q_out),
-        if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, audio_hz=sig.audio_hz,
-        queue_len=p.queue_len, squelch=sq,
-        budget=Budget(core=tgt.core, cpu_hz=tgt.cpu_hz, dma=tgt.capture_dma if p.front.kind == "stamp" else tgt.counter_dma,
-                      edge_hz_max=sig.if_hz + sig.deviation_hz, cycles_per_edge=p.load.per_edge,
-                      cycles_per_input=p.load.per_input, cycles_per_grid=p.load.per_grid,
-                      cycles_per_output=per_output, load_fraction=fraction, ram_bytes=p.load.ram_bytes,
-                      isr_cycles=tgt.isr_cycles, irq_jitter_cycles=tgt.irq_jitter_cycles),
+        scale=scale,
+        filters=f,
+        output=_out_format(spec, f.sections[-1].q_out),
+        if_hz=sig.if_hz,
+        full_scale_hz=out.full_scale_hz,
+        audio_hz=sig.audio_hz,
+        queue_len=p.queue_len,
+        squelch=sq,
+        budget=Budget(
+            core=tgt.core,
+            cpu_hz=tgt.cpu_hz,
+            dma=tgt.capture_dma if p.front.kind == "stamp" else tgt.counter_dma,
+            edge_hz_max=sig.if_hz + sig.deviation_hz,
+            cycles_per_edge=p.load.per_edge,
+            cycles_per_input=p.load.per_input,
+            cycles_per_grid=p.load.per_grid,
+            cycles_per_output=per_output,
+            load_fraction=fraction,
+            ram_bytes=p.load.ram_bytes,
+            isr_cycles=tgt.isr_cycles,
+            irq_jitter_cycles=tgt.irq_jitter_cycles,
+        ),
         certificate=cert,
     )

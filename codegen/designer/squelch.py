@@ -41,11 +41,11 @@ import numpy as np
 from ..ir import Register, Squelch
 from .wordlength import limit_of
 
-TAU_S = 0.016              # level time constant target (2**shift output samples)
-OPEN_MARGIN_DB = 3.0       # the open level sits at the spec's CNR less this (the model is good to about +-1.5 dB)
-HYSTERESIS_DB = 2.0        # the close level sits this much CNR below the open level
-FLOOR_MARGIN = 1.25        # the open level at least this factor above the counting floor's level
-CAP_FACTOR = 1.5           # the level is held at or below this times close_level (bounded reopening)
+TAU_S = 0.016  # level time constant target (2**shift output samples)
+OPEN_MARGIN_DB = 3.0  # the open level sits at the spec's CNR less this (the model is good to about +-1.5 dB)
+HYSTERESIS_DB = 2.0  # the close level sits this much CNR below the open level
+FLOOR_MARGIN = 1.25  # the open level at least this factor above the counting floor's level
+CAP_FACTOR = 1.5  # the level is held at or below this times close_level (bounded reopening)
 GAUSS_MEAN_ABS = math.sqrt(2.0 / math.pi)
 # Counts: their error is not white near simple IF / grid ratios but a pattern. A steady carrier at
 # IF / grid = n + 1/3 gives the counts n, n, n + 1, ...: x = (0, 0, 1) about its mean, |h| = 1, 2, 1,
@@ -66,13 +66,28 @@ def noise_var(cnr: float, *, grid_hz: float, band_hz: float, edge_hz: float, wei
     f = np.linspace(0.0, rest, 4001)
     part = float(np.trapezoid(64.0 * np.sin(np.pi * f / grid_hz) ** 6, f)) if rest > 0 else 0.0
     mean_gain = (20.0 * whole * grid_hz + part) / fb
-    return weight / (8.0 * math.pi ** 2 * cnr) * mean_gain
+    return weight / (8.0 * math.pi**2 * cnr) * mean_gain
 
 
-def design_squelch(*, cnr_db: float, grid_hz: float, out_hz: float, ratio: int, deviation_hz: float,
-                   audio_hz: float, full_scale_hz: float, edge_hz: float, weight: float, floor_var: float,
-                   units_per_cycle: float, x_limit: int, std_tone_hz: float, std_level: float,
-                   counts: bool = False, blind: bool = False) -> Squelch:
+def design_squelch(
+    *,
+    cnr_db: float,
+    grid_hz: float,
+    out_hz: float,
+    ratio: int,
+    deviation_hz: float,
+    audio_hz: float,
+    full_scale_hz: float,
+    edge_hz: float,
+    weight: float,
+    floor_var: float,
+    units_per_cycle: float,
+    x_limit: int,
+    std_tone_hz: float,
+    std_level: float,
+    counts: bool = False,
+    blind: bool = False,
+) -> Squelch:
     """The squelch of a design. floor_var: the planner's per-grid phase error variance (cycles^2) of
     the counting itself; edge_hz: the rate at which the edges sample the phase (stamps per second,
     or infinite for counts, read at the grid instants); std_tone_hz, std_level: the standard test's
@@ -81,13 +96,13 @@ def design_squelch(*, cnr_db: float, grid_hz: float, out_hz: float, ratio: int, 
     carrier and for noise at every time scale the detector has, so the squelch is left open (its
     levels at the cap: it opens at the first CIC output and never closes) and says so."""
     band = 2.0 * (deviation_hz + audio_hz)
-    k = noise_var(1.0, grid_hz=grid_hz, band_hz=band, edge_hz=edge_hz, weight=weight)   # var h = k / cnr
+    k = noise_var(1.0, grid_hz=grid_hz, band_hz=band, edge_hz=edge_hz, weight=weight)  # var h = k / cnr
     fl = 20.0 * floor_var
 
-    def mean_abs(c: float) -> float:            # E|h| per grid instant, step units
+    def mean_abs(c: float) -> float:  # E|h| per grid instant, step units
         return GAUSS_MEAN_ABS * math.sqrt(k / c + fl) * units_per_cycle
 
-    def cnr_at(level: float) -> float:          # the CNR whose E|h| is ``level`` (inf when at the floor)
+    def cnr_at(level: float) -> float:  # the CNR whose E|h| is ``level`` (inf when at the floor)
         v = (level / (GAUSS_MEAN_ABS * units_per_cycle)) ** 2 - fl
         return 10 * math.log10(k / v) if v > 0 else math.inf
 
@@ -98,7 +113,7 @@ def design_squelch(*, cnr_db: float, grid_hz: float, out_hz: float, ratio: int, 
     if counts:
         floor = max(floor, COUNT_PATTERN_FLOOR * units_per_cycle)
     limited = t_open < FLOOR_MARGIN * floor
-    if limited:       # the noise-dominated ratio of the two levels: E|h| goes as CNR^-1/2
+    if limited:  # the noise-dominated ratio of the two levels: E|h| goes as CNR^-1/2
         t_open = FLOOR_MARGIN * floor
         t_close = t_open * 10 ** (HYSTERESIS_DB / 20)
     shift = max(1, round(math.log2(TAU_S * out_hz)))
@@ -106,7 +121,7 @@ def design_squelch(*, cnr_db: float, grid_hz: float, out_hz: float, ratio: int, 
     open_level = max(1, int(t_open * per_out))
     close_level = max(open_level + 1, int(t_close * per_out))
     cap = int(CAP_FACTOR * close_level)
-    if blind:                 # opens at the first CIC output (lvl <= cap < open_level), never closes
+    if blind:  # opens at the first CIC output (lvl <= cap < open_level), never closes
         open_level, close_level = cap + 1, cap
     # a full-deviation tone at the band edge through the second difference: its E|h| against the
     # close level (negative dB: it alone cannot close the squelch)
@@ -116,19 +131,36 @@ def design_squelch(*, cnr_db: float, grid_hz: float, out_hz: float, ratio: int, 
         """From the cap to open_level with the level settling at ``settle``, doubled for its spread."""
         if blind:
             return round(2000.0 / out_hz, 2)
-        n = math.log((cap - settle) / max(open_level - settle, 1.0)) / -math.log1p(-2.0 ** -shift)
+        n = math.log((cap - settle) / max(open_level - settle, 1.0)) / -math.log1p(-(2.0**-shift))
         return round(2000.0 * n / out_hz, 2)
 
     # a clean carrier playing the standard test: the counting floor and the tone through the high-pass
-    tone_leak = (2.0 / math.pi * std_level * full_scale_hz / grid_hz * units_per_cycle
-                 * 4 * math.sin(math.pi * std_tone_hz / grid_hz) ** 2)
+    tone_leak = (
+        2.0
+        / math.pi
+        * std_level
+        * full_scale_hz
+        / grid_hz
+        * units_per_cycle
+        * 4
+        * math.sin(math.pi * std_tone_hz / grid_hz) ** 2
+    )
     clean = min(per_out * (floor + tone_leak), 0.9 * open_level)
-    return Squelch(cnr_db=float(cnr_db), shift=shift, penalty=2 * x_limit, open_level=open_level,
-                   close_level=close_level, cap=cap, open_cnr_db=round(cnr_at(open_level / per_out), 2),
-                   close_cnr_db=round(cnr_at(close_level / per_out), 2), floor_limited=limited,
-                   edge_tone_db=round(20 * math.log10(leak * per_out / close_level), 2),
-                   open_ms=open_time_ms(per_out * mean_abs(10 ** (cnr_db / 10))), reopen_ms=open_time_ms(clean),
-                   blind=blind)
+    return Squelch(
+        cnr_db=float(cnr_db),
+        shift=shift,
+        penalty=2 * x_limit,
+        open_level=open_level,
+        close_level=close_level,
+        cap=cap,
+        open_cnr_db=round(cnr_at(open_level / per_out), 2),
+        close_cnr_db=round(cnr_at(close_level / per_out), 2),
+        floor_limited=limited,
+        edge_tone_db=round(20 * math.log10(leak * per_out / close_level), 2),
+        open_ms=open_time_ms(per_out * mean_abs(10 ** (cnr_db / 10))),
+        reopen_ms=open_time_ms(clean),
+        blind=blind,
+    )
 
 
 def squelch_registers(sq: Squelch, *, x_limit: int, ratio: int) -> tuple[Register, ...]:
@@ -139,6 +171,8 @@ def squelch_registers(sq: Squelch, *, x_limit: int, ratio: int) -> tuple[Registe
 
     diff = 2 * x_limit
     total = ratio * max(diff, sq.penalty)
-    return (reg("squelch.diff", 32, diff, "|x - 2 x1 + x2| <= 2 x_limit, computed modulo 2^32: exact"),
-            reg("squelch.sum", 32, total, "CIC_RATIO terms of at most 2 x_limit (the penalty is 2 x_limit)"),
-            reg("squelch.level", 64, sq.cap + total, "held at or below the cap after each update"))
+    return (
+        reg("squelch.diff", 32, diff, "|x - 2 x1 + x2| <= 2 x_limit, computed modulo 2^32: exact"),
+        reg("squelch.sum", 32, total, "CIC_RATIO terms of at most 2 x_limit (the penalty is 2 x_limit)"),
+        reg("squelch.level", 64, sq.cap + total, "held at or below the cap after each update"),
+    )

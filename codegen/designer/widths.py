@@ -58,8 +58,13 @@ def parse_sets(items: list[str]) -> dict:
                 raise SpecError("--set", item, "needs a whole number") from None
         else:
             out[name] = value
-    allowed = {"data_bits": (16, 27, 32), "coef_width": (16, 32), "acc_bits": (32, 48, 64), "arith": ("narrow", "mid", "wide"),
-               "scaling": ("l1", "l2", "linf")}
+    allowed = {
+        "data_bits": (16, 27, 32),
+        "coef_width": (16, 32),
+        "acc_bits": (32, 48, 64),
+        "arith": ("narrow", "mid", "wide"),
+        "scaling": ("l1", "l2", "linf"),
+    }
     for name, choices in allowed.items():
         if name in out and out[name] not in choices:
             raise SpecError("--set", f"filters.{name}={out[name]}", "must be one of " + ", ".join(map(str, choices)))
@@ -88,8 +93,14 @@ def _limit_cycles(d: Design, noise_fs2: float) -> list[dict]:
     return rows
 
 
-def check_widths(spec: Spec, scheme: str | None = None, overrides: dict | None = None,
-                 simulate: bool = True, seconds: float = 0.3, chosen: Plan | None = None) -> WidthReport:
+def check_widths(
+    spec: Spec,
+    scheme: str | None = None,
+    overrides: dict | None = None,
+    simulate: bool = True,
+    seconds: float = 0.3,
+    chosen: Plan | None = None,
+) -> WidthReport:
     """The width table and every check; ``simulate`` also runs the emitted C against the model and
     the float reference (skipped when a register could overflow: such C would be undefined).
     ``chosen``: the plan to check (default: the planner's)."""

@@ -35,13 +35,13 @@ class Arith:
     acc_bits: int
 
 
-NARROW = Arith("narrow", 16, 16, 32)    # 16 x 16 -> 32 products, 32-bit sums: cheap on small cores
+NARROW = Arith("narrow", 16, 16, 32)  # 16 x 16 -> 32 products, 32-bit sums: cheap on small cores
 # 27-bit data with 16-bit coefficients: each 27 x 16 product taken as three 16 x 16 -> 32 products
 # of the data word's top, middle and low bytes, summed in three 32-bit words (SPLIT_ACC_BITS marks
 # it) and rounded exactly as the 48-bit sum would be: no 64-bit multiply on cores that lack one
 SPLIT_ACC_BITS = 48
 MID = Arith("mid", 27, 16, SPLIT_ACC_BITS)
-WIDE = Arith("wide", 32, 32, 64)        # 32 x 32 -> 64 multiply-accumulate: DSP-capable cores
+WIDE = Arith("wide", 32, 32, 64)  # 32 x 32 -> 64 multiply-accumulate: DSP-capable cores
 ARITHS = {"narrow": NARROW, "mid": MID, "wide": WIDE}
 
 
@@ -175,23 +175,44 @@ def stamp_words(recip, delta_limit: int) -> list[tuple[str, int, int, str]]:
     the plan was made) and, for the cubic (delta_limit > 0), its correction's words from their
     bounds (``fixedpoint.cubic_shifts``). The unsigned quotient words are below 2**32 by the
     bounds in ``fixedpoint.ratio_recip``."""
-    words = [] if recip is None else [
-        ("front.recip.error", 32, recip.error_max, "2^32 - d r before a Newton step, every legal d"),
-        ("front.recip.product", 32, recip.product_max, "pre-shifted Newton product, every legal d")]
+    words = (
+        []
+        if recip is None
+        else [
+            ("front.recip.error", 32, recip.error_max, "2^32 - d r before a Newton step, every legal d"),
+            ("front.recip.product", 32, recip.product_max, "pre-shifted Newton product, every legal d"),
+        ]
+    )
     if delta_limit:
         one = 1 << CUBIC_U_BITS
         sh, sq, sg, so, _ = cubic_shifts(delta_limit)
         h = 3 * delta_limit * one + 2 * delta_limit * (one - 1)
         g = (rshr(h, sh) if sh else h) * INV6
         prod = (rshr(one * one // 4, sq) if sq else one * one // 4) * (rshr(g, sg) if sg else g)
-        words += [("front.cubic.h", 32, h, "(2 d0 + d1) 4096 + (d1 - d0) v, second differences clamped"),
-                  ("front.cubic.g", 32, g, "rshr(h, sh) x INV6"),
-                  ("front.cubic.product", 32, prod + (1 << (so - 1)), "pre-shifted q x g plus the rounding half")]
+        words += [
+            ("front.cubic.h", 32, h, "(2 d0 + d1) 4096 + (d1 - d0) v, second differences clamped"),
+            ("front.cubic.g", 32, g, "rshr(h, sh) x INV6"),
+            ("front.cubic.product", 32, prod + (1 << (so - 1)), "pre-shifted q x g plus the rounding half"),
+        ]
     return words
 
 
-def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width: int, centre: int, mult: int,
-                shift: int, q_in: int, u_limit: int, dc_shift: int, f: Filters, front_words=()) -> tuple[Register, ...]:
+def certificate(
+    *,
+    x_limit: int,
+    in_bits: int,
+    ratio: int,
+    order: int,
+    cic_width: int,
+    centre: int,
+    mult: int,
+    shift: int,
+    q_in: int,
+    u_limit: int,
+    dc_shift: int,
+    f: Filters,
+    front_words=(),
+) -> tuple[Register, ...]:
     """Every register, its width, the worst |value| any allowed input gives, and the margin;
     ``front_words`` (``stamp_words``) come first."""
 
@@ -228,13 +249,30 @@ def certificate(*, x_limit: int, in_bits: int, ratio: int, order: int, cic_width
             # its saturation (section_step's C twin in the template), for any saturated inputs
             total = sum(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2))
             regs.append(reg(f"iir.{k}.split_hi", 32, total * ((f.limit >> 16) + 1), "sum of coef x (word >> 16)"))
-            regs.append(reg(f"iir.{k}.split_mid", 32, total * 255 + (total * 255 + half) // 256 + 1,
-                            "sum of coef x middle byte, plus the low sum's carry"))
-            regs.append(reg(f"iir.{k}.split_lo", 32, total * 255 + half, "sum of coef x low byte, plus the rounding half"))
-            regs.append(reg(f"iir.{k}.split_top", 32, total * ((f.limit >> 16) + 1) << (16 - f.coef_bits),
-                            "top sum x 2^(16 - coef bits)"))
-            regs.append(reg(f"iir.{k}.split_out", 32, total * f.limit // (1 << f.coef_bits) + 2,
-                            "rounded sum before saturation"))
+            regs.append(
+                reg(
+                    f"iir.{k}.split_mid",
+                    32,
+                    total * 255 + (total * 255 + half) // 256 + 1,
+                    "sum of coef x middle byte, plus the low sum's carry",
+                )
+            )
+            regs.append(
+                reg(f"iir.{k}.split_lo", 32, total * 255 + half, "sum of coef x low byte, plus the rounding half")
+            )
+            regs.append(
+                reg(
+                    f"iir.{k}.split_top",
+                    32,
+                    total * ((f.limit >> 16) + 1) << (16 - f.coef_bits),
+                    "top sum x 2^(16 - coef bits)",
+                )
+            )
+            regs.append(
+                reg(
+                    f"iir.{k}.split_out", 32, total * f.limit // (1 << f.coef_bits) + 2, "rounded sum before saturation"
+                )
+            )
         if f.acc_bits == 32:
             acc_b = y_b * (1 << f.coef_bits) + half
             note = "final sum; exact 32-bit products summed modulo 2^32 (partial sums may wrap)"

@@ -41,7 +41,7 @@ def droop_of(audio_hz: float, fs_hz: float, order: int, ratio: int, limit_db: fl
     return None
 
 
-DROOP_MAX_HALF_TAPS = 3      # compensators of 3, 5 or 7 taps (one to three sections)
+DROOP_MAX_HALF_TAPS = 3  # compensators of 3, 5 or 7 taps (one to three sections)
 
 
 def droop_fir(order: int, ratio: int, audio_hz: float, fs_hz: float, flat_db: float = 1.0) -> np.ndarray:
@@ -55,7 +55,7 @@ def droop_fir(order: int, ratio: int, audio_hz: float, fs_hz: float, flat_db: fl
     droop = 10 ** (cic.response_db(f / fs_hz, order, ratio) / 20)
     for m in range(1, DROOP_MAX_HALF_TAPS + 1):
         g = np.stack([2 * (np.cos(k * w) - 1) for k in range(1, m + 1)], axis=1) * droop[:, None]
-        c = np.linalg.lstsq(g, 1 - droop, rcond=None)[0]           # least squares of droop + g c = 1
+        c = np.linalg.lstsq(g, 1 - droop, rcond=None)[0]  # least squares of droop + g c = 1
         flat = 20 * np.log10(droop + g @ c)
         if flat.max() - flat.min() <= flat_db:
             break
@@ -76,8 +76,9 @@ def deemphasis_sos(tau_s: float, fs_hz: float) -> np.ndarray:
     return np.array([[b, b, 0.0, 1.0, a1, 0.0]])
 
 
-def output_filters(audio_hz: float, deemphasis_us: float, fs_hz: float,
-                   droop: tuple[int, int, float] | None = None) -> list[tuple[str, np.ndarray]]:
+def output_filters(
+    audio_hz: float, deemphasis_us: float, fs_hz: float, droop: tuple[int, int, float] | None = None
+) -> list[tuple[str, np.ndarray]]:
     """The output-rate filters of a design, in order: (role, float sos); ``droop`` = (order, ratio,
     flatness in dB) of a CIC to compensate first."""
     out = [("droop", droop_fir(droop[0], droop[1], audio_hz, fs_hz, droop[2]))] if droop else []

@@ -57,14 +57,18 @@ DEVIATIONS: tuple[Deviation, ...] = (
         "internal linkage and one user, `{p}_post`.",
     ),
     Deviation(
-        "10.1", "required", "the shifts in `{p}_rshr` and `{p}_asr32`", ("{p}.c",),
+        "10.1",
+        "required",
+        "the shifts in `{p}_rshr` and `{p}_asr32`",
+        ("{p}.c",),
         ("(x + (int64_t)half) >> s", "return x >> s;"),
         "round half up then shift right of a signed 64-bit value, and the floor shift of a signed 32-bit "
         "word (the one signed shift that the split filter arithmetic, the 32-bit rounding of the cubic and "
         "the reciprocal's Newton steps call), are the defined arithmetic of the integer model "
         "(`edgetally.fixedpoint.rshr`, `>>` on Python ints); C99 leaves >> of a negative value "
         "implementation-defined, and the typedef `{p}_check_arith_shift` refuses to compile where it is "
-        "not an arithmetic shift."),
+        "not an arithmetic shift.",
+    ),
 )
 
 

@@ -48,11 +48,15 @@ def api(design: Design) -> list[Function]:
     ]
     topo = design.topology
     if design.stamps:
-        fns.append(Function(f"size_t {p}_advance({st}, {inp} now, {p}_sample_t *out, size_t cap)",
-                            "Service loop, once per output period (at least every half timer range): the "
-                            "free-running timer's value, read before the last process()/service() call; "
-                            "writes muted samples for the grid instants that passed with no edges, so the "
-                            "output rate holds through a signal loss. Returns the samples written (<= cap)."))
+        fns.append(
+            Function(
+                f"size_t {p}_advance({st}, {inp} now, {p}_sample_t *out, size_t cap)",
+                "Service loop, once per output period (at least every half timer range): the "
+                "free-running timer's value, read before the last process()/service() call; "
+                "writes muted samples for the grid instants that passed with no edges, so the "
+                "output rate holds through a signal loss. Returns the samples written (<= cap).",
+            )
+        )
     if topo is Topology.CAPTURE:
         fns.append(
             Function(
@@ -78,10 +82,14 @@ def api(design: Design) -> list[Function]:
         )
     fns += [
         Function(f"bool {p}_carrier_present(const {st})", "True while edges arrive at a plausible rate."),
-        Function(f"bool {p}_squelch_open(const {st})",
-                 "True while the noise squelch passes the audio (closed: the samples are mid-scale)."),
-        Function(f"int32_t {p}_offset(const {st})",
-                 "The tuning offset: DC of the frequency estimate, in the units the header gives."),
+        Function(
+            f"bool {p}_squelch_open(const {st})",
+            "True while the noise squelch passes the audio (closed: the samples are mid-scale).",
+        ),
+        Function(
+            f"int32_t {p}_offset(const {st})",
+            "The tuning offset: DC of the frequency estimate, in the units the header gives.",
+        ),
         Function(f"uint32_t {p}_saturation_count(const {st})", "Internal data nodes that saturated so far."),
         Function(f"uint32_t {p}_clip_count(const {st})", "Output samples clipped to the output range so far."),
         Function(
@@ -141,14 +149,14 @@ class Port:
     """What the wiring skeleton <name>_port.c prints: its handlers, the hardware-access functions
     the user writes, and its buffer lengths (made here, so the template only prints them)."""
 
-    api: tuple[Function, ...]          # the port's own functions (vector table, main loop)
-    handlers: tuple                    # (name, doc) of the interrupt handlers, for the comment
-    hw: tuple[Function, ...]           # the hardware-access interface
-    ring: int                          # output ring length, a power of two
-    chunk: int                         # samples taken per service call (a stack buffer)
-    half: int                          # inputs per DMA half-buffer (DMA designs): the queue's length
-    dma: bool                          # the inputs come by DMA
-    clock: bool = False                # the main loop drives <name>_advance with the timer (stamp ISR designs)
+    api: tuple[Function, ...]  # the port's own functions (vector table, main loop)
+    handlers: tuple  # (name, doc) of the interrupt handlers, for the comment
+    hw: tuple[Function, ...]  # the hardware-access interface
+    ring: int  # output ring length, a power of two
+    chunk: int  # samples taken per service call (a stack buffer)
+    half: int  # inputs per DMA half-buffer (DMA designs): the queue's length
+    dma: bool  # the inputs come by DMA
+    clock: bool = False  # the main loop drives <name>_advance with the timer (stamp ISR designs)
 
 
 PORT_CHUNK = 16  # samples per service call: 32 or 64 bytes of stack (common practice, no source)
@@ -205,12 +213,15 @@ def port(design: Design) -> Port:
             (f"{p}_port_dma_full_irq", f"{what} DMA transfer complete"),
         ]
     elif topo is Topology.CAPTURE:
-        hw += [Function(f"void {p}_hw_capture_start(uint32_t prescale)",
-                        f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz with input capture on "
-                        "every prescale-th IF edge and its interrupt."),
-               Function(f"{inp} {p}_hw_capture_value(void)", "The captured timer value (and clear the capture flag)."),
-               Function(f"{inp} {p}_hw_timer_now(void)",
-                        f"The free-running {fr.timer_bits}-bit capture timer, read now.")]
+        hw += [
+            Function(
+                f"void {p}_hw_capture_start(uint32_t prescale)",
+                f"Start the {fr.timer_bits}-bit timer at {design.rates.timer_hz} Hz with input capture on "
+                "every prescale-th IF edge and its interrupt.",
+            ),
+            Function(f"{inp} {p}_hw_capture_value(void)", "The captured timer value (and clear the capture flag)."),
+            Function(f"{inp} {p}_hw_timer_now(void)", f"The free-running {fr.timer_bits}-bit capture timer, read now."),
+        ]
         handlers.append((f"{p}_port_capture_irq", f"timer capture, one per {fr.prescale} IF edge(s)"))
     elif topo in (Topology.EDGE_STAMP, Topology.EDGE_COUNT):
         hw.append(
@@ -253,8 +264,16 @@ def port(design: Design) -> Port:
         Function(f"int32_t {p}_port_offset(void)", ""),
     ]
     api += [Function(f"void {n}(void)", d) for n, d in handlers]
-    return Port(api=tuple(api), handlers=tuple(dict(name=n, doc=d) for n, d in handlers), hw=tuple(hw), ring=ring,
-                chunk=PORT_CHUNK, half=design.queue_len, dma=dma, clock=design.stamps and not dma)
+    return Port(
+        api=tuple(api),
+        handlers=tuple(dict(name=n, doc=d) for n, d in handlers),
+        hw=tuple(hw),
+        ring=ring,
+        chunk=PORT_CHUNK,
+        half=design.queue_len,
+        dma=dma,
+        clock=design.stamps and not dma,
+    )
 
 
 @functools.lru_cache(maxsize=1)
@@ -345,13 +364,22 @@ def emit(design: Design) -> dict[str, str]:
         coef_macro="INT16_C" if design.filters.coef_width == 16 else "INT32_C",
         offset_hz_per_lsb=f"{design.offset_hz_per_unit:.6g}",
         # template flags: the templates branch on these and print the Design, never decide
-        stamp=design.stamps, cubic=design.cubic, capture=design.topology is Topology.CAPTURE,
-        edge_stamp=design.topology is Topology.EDGE_STAMP, edge_count=design.topology is Topology.EDGE_COUNT,
-        counter=design.topology is Topology.COUNTER, recip=design.recip,
-        input_type=inp, input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_MAX",
-        fixedpoint=c_definitions(p, _operations(design), design.recip,
-                                 design.front.delta_limit if design.cubic else 0,
-                                 design.front.phase_shift if design.stamps else 0),
+        stamp=design.stamps,
+        cubic=design.cubic,
+        capture=design.topology is Topology.CAPTURE,
+        edge_stamp=design.topology is Topology.EDGE_STAMP,
+        edge_count=design.topology is Topology.EDGE_COUNT,
+        counter=design.topology is Topology.COUNTER,
+        recip=design.recip,
+        input_type=inp,
+        input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_MAX",
+        fixedpoint=c_definitions(
+            p,
+            _operations(design),
+            design.recip,
+            design.front.delta_limit if design.cubic else 0,
+            design.front.phase_shift if design.stamps else 0,
+        ),
         misra=deviations.header_text(p),
     )
     return {

@@ -63,8 +63,8 @@ WRAP_PLACES = 16  # inputs at which the timer (or counter) is made to wrap, two 
 SERVICE_FRACTION = 2  # ISR designs: the service loop runs every queue_len / this inputs ...
 STALL_QUEUES = 3  # ... and stalls for this many queues' worth of inputs (inputs-lost)
 TRACE_POINTS = 400
-MUTE_FS = 0.02            # "muted": within 2 % of full scale (common practice, no source)
-RATE_SLACK_S = 0.01       # the output rate through a loss: within a sample per 10 ms (issue 12)
+MUTE_FS = 0.02  # "muted": within 2 % of full scale (common practice, no source)
+RATE_SLACK_S = 0.01  # the output rate through a loss: within a sample per 10 ms (issue 12)
 
 
 @dataclass(frozen=True)
@@ -87,9 +87,9 @@ class _Case:
     error_fs: float  # largest CIC-input error the disturbance can make (full-scale units)
     stall: tuple | None = None  # ISR designs: drive the ISR and a late service loop instead
     all_inputs: np.ndarray | None = None
-    step: bool = False            # the undisturbed model is a step, not the tone
-    clock: list | None = None     # stamp designs: (k, now, t) calls of <name>_advance (see _clock)
-    span_s: tuple | None = None   # (start, end) of the disturbance in seconds, when the clock runs
+    step: bool = False  # the undisturbed model is a step, not the tone
+    clock: list | None = None  # stamp designs: (k, now, t) calls of <name>_advance (see _clock)
+    span_s: tuple | None = None  # (start, end) of the disturbance in seconds, when the clock runs
 
 
 def _clock(design: Design, times: np.ndarray, total: float, start: int) -> list:
@@ -97,7 +97,7 @@ def _clock(design: Design, times: np.ndarray, total: float, start: int) -> list:
     before it, the timer's value read then, the time). An input is passed in once its stamp exists:
     at its edge for capture, after the interrupt's latest latency for an edge interrupt."""
     fr, b = design.front, design.budget
-    stamped = times[::fr.prescale]
+    stamped = times[:: fr.prescale]
     if design.topology is Topology.EDGE_STAMP:
         stamped = stamped + (b.isr_cycles // 2 + b.irq_jitter_cycles) / b.cpu_hz
     t = np.arange(1, int(total * design.rates.out_hz) + 1) / design.rates.out_hz
@@ -132,14 +132,26 @@ def _case_loss(design: Design, opt: Options, post: float) -> _Case:
     times = _edges(design, total, rng)
     kept = times[(times < t0) | (times >= t0 + dur)]
     e = recovery.input_span_fs(design)
-    if design.stamps:      # the service loop's clock keeps the output rate (<name>_advance)
+    if design.stamps:  # the service loop's clock keeps the output rate (<name>_advance)
         start = int(np.random.default_rng(opt.seed + 1).integers(0, 1 << design.front.timer_bits))
-        return _Case(_hardware(design, kept, total, opt.seed, start), [], _first_input_at(design, kept, t0),
-                     _first_input_at(design, kept, t0 + dur),
-                     f"no edges for {opt.loss_ms:g} ms (the service loop calls advance every output period)", e,
-                     clock=_clock(design, kept, total, start), span_s=(t0, t0 + dur))
-    return _Case(_hardware(design, kept, total, opt.seed), [], _first_input_at(design, kept, t0),
-                 _first_input_at(design, kept, t0 + dur), f"no edges for {opt.loss_ms:g} ms", e)
+        return _Case(
+            _hardware(design, kept, total, opt.seed, start),
+            [],
+            _first_input_at(design, kept, t0),
+            _first_input_at(design, kept, t0 + dur),
+            f"no edges for {opt.loss_ms:g} ms (the service loop calls advance every output period)",
+            e,
+            clock=_clock(design, kept, total, start),
+            span_s=(t0, t0 + dur),
+        )
+    return _Case(
+        _hardware(design, kept, total, opt.seed),
+        [],
+        _first_input_at(design, kept, t0),
+        _first_input_at(design, kept, t0 + dur),
+        f"no edges for {opt.loss_ms:g} ms",
+        e,
+    )
 
 
 def _case_burst(design: Design, opt: Options, post: float) -> _Case:
@@ -270,8 +282,13 @@ def run_scenario(design: Design, name: str, host=None, options: Options = Option
         got, counters = host.process_isr(case.all_inputs, service_every=every, stall=stall)
     else:
         got, counters = host.process(case.inputs, lost=case.lost)
-    bit_exact = (got.size == want.out.size and bool(np.array_equal(got, want.out))
-                 and counters["gaps"] == want.gaps and counters["clamps"] == want.clamps)
+    bit_exact = (
+        got.size == want.out.size
+        and bool(np.array_equal(got, want.out))
+        and counters["gaps"] == want.gaps
+        and counters["clamps"] == want.clamps
+    )
+
     def before(j: int, t_max: float | None = None) -> int:
         """Outputs made before input j (and, with the clock, by its calls before t_max)."""
         lost_j = [i for i in case.lost if i < j]
@@ -342,14 +359,18 @@ def _output_check(design: Design, name: str, y, n_start: int, n_end: int, counte
         span = case.span_s[1] - case.span_s[0]
         want_n = span * design.rates.out_hz
         slack = max(1, math.ceil(span / RATE_SLACK_S))
-        quiet = float(np.max(np.abs(y[n_start + min(mem, n):n_end]), initial=0.0))
+        quiet = float(np.max(np.abs(y[n_start + min(mem, n) : n_end]), initial=0.0))
         ok = ok and abs(n - want_n) <= slack and (n <= mem or quiet <= MUTE_FS)
-        note = (f"{n} samples while no edges came ({want_n:.0f} at the output rate, the service loop's clock "
-                f"driving the grid); |out| <= {quiet:.4f} FS from {min(mem, n) / design.rates.out_hz * 1000:.2f} ms "
-                f"into it; peak {worst:.3f} FS")
+        note = (
+            f"{n} samples while no edges came ({want_n:.0f} at the output rate, the service loop's clock "
+            f"driving the grid); |out| <= {quiet:.4f} FS from {min(mem, n) / design.rates.out_hz * 1000:.2f} ms "
+            f"into it; peak {worst:.3f} FS"
+        )
     elif name == "signal-loss" and n < 4:
-        note = (f"held: {n} samples while no edges came (a stamp design makes no grid instants without "
-                f"edges), then resynced; peak {worst:.3f} FS")
+        note = (
+            f"held: {n} samples while no edges came (a stamp design makes no grid instants without "
+            f"edges), then resynced; peak {worst:.3f} FS"
+        )
     elif not case.step and n > mem:
         quiet = float(np.max(np.abs(y[n_start + mem : n_end])))
         ok = ok and quiet <= MUTE_FS

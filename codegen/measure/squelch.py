@@ -30,8 +30,8 @@ OPEN_SHARE = 0.9
 SPAN_BELOW = 10.0
 SPAN_ABOVE = 5.0
 RAMP_DB_S = 20.0
-PURE_NOISE_DB = -40.0     # "no carrier": the carrier 40 dB under the noise
-CLEAN_S = 0.1             # the clean carrier before the noise in ``closes``
+PURE_NOISE_DB = -40.0  # "no carrier": the carrier 40 dB under the noise
+CLEAN_S = 0.1  # the clean carrier before the noise in ``closes``
 # IF samples per cycle of its top frequency: ifnoise's crossing error bound 5.81 M / (OVERSAMPLE^4 f)
 # gives 1.4e-3 M cycles at 8, under the IF noise's phase error up to 20 dB CNR (1 / (8 pi^2 CNR) is
 # (5.6e-3 cycles)^2 there; a squelch set above 15 dB is measured with this error added), and
@@ -41,11 +41,11 @@ OVERSAMPLE = 8
 
 @dataclass(frozen=True)
 class SquelchFigures:
-    open_cnr_db: float | None       # lowest CNR that opened it (None: none in the span)
-    close_cnr_db: float | None      # highest CNR that closed it (None: none in the span)
-    open_ms: float | None           # time to open at the spec's CNR (None: it did not open)
-    open_ms_bound: float            # the design's bound on that time
-    pure_noise_muted: bool          # a pure-noise IF never opened it, from power-up or after a carrier
+    open_cnr_db: float | None  # lowest CNR that opened it (None: none in the span)
+    close_cnr_db: float | None  # highest CNR that closed it (None: none in the span)
+    open_ms: float | None  # time to open at the spec's CNR (None: it did not open)
+    open_ms_bound: float  # the design's bound on that time
+    pure_noise_muted: bool  # a pure-noise IF never opened it, from power-up or after a carrier
     run_s: float
 
     def to_dict(self) -> dict:
@@ -67,20 +67,22 @@ def _gates(design: Design, cnr_db: float, seconds: float, seed: int, clean_s: fl
         clean = signals.edge_times(sig, total)
         noisy = np.concatenate([clean[clean < clean_s], noisy[noisy >= clean_s]])
     m = model.run(design, hardware_inputs(design, noisy, total, rng))
-    return m.squelch_open[int(clean_s * design.rates.out_hz):]
+    return m.squelch_open[int(clean_s * design.rates.out_hz) :]
 
 
-def opens(design: Design, cnr_db: float, seed: int = DEFAULT_SEED, seconds: float | None = None) -> tuple[bool, float | None]:
+def opens(
+    design: Design, cnr_db: float, seed: int = DEFAULT_SEED, seconds: float | None = None
+) -> tuple[bool, float | None]:
     """Whether a carrier at cnr_db opens the squelch from power-up, and when it first opened (ms)."""
     g = _gates(design, cnr_db, seconds or run_seconds(design), seed)
     first = float(np.argmax(g)) / design.rates.out_hz * 1000 if g.any() else None
-    return bool(np.mean(g[2 * g.size // 3:]) >= OPEN_SHARE), first
+    return bool(np.mean(g[2 * g.size // 3 :]) >= OPEN_SHARE), first
 
 
 def closes(design: Design, cnr_db: float, seed: int = DEFAULT_SEED, seconds: float | None = None) -> bool:
     """Whether noise at cnr_db closes the squelch after a clean carrier opened it."""
     g = _gates(design, cnr_db, seconds or run_seconds(design), seed, CLEAN_S)
-    return bool(np.mean(~g[2 * g.size // 3:]) >= OPEN_SHARE)
+    return bool(np.mean(~g[2 * g.size // 3 :]) >= OPEN_SHARE)
 
 
 def ramp(design: Design, seed: int = DEFAULT_SEED) -> tuple[float | None, float | None]:
@@ -103,8 +105,10 @@ def ramp(design: Design, seed: int = DEFAULT_SEED) -> tuple[float | None, float 
     t = np.arange(g.size) / design.rates.out_hz
     up = np.flatnonzero(g & (t < half))
     down = np.flatnonzero(~g & (t >= half))
-    return (round(float(cnr(t[up[0]])), 2) if up.size else None,
-            round(float(cnr(t[down[0]])), 2) if down.size else None)
+    return (
+        round(float(cnr(t[up[0]])), 2) if up.size else None,
+        round(float(cnr(t[down[0]])), 2) if down.size else None,
+    )
 
 
 def figures(design: Design, seed: int = DEFAULT_SEED) -> SquelchFigures:
@@ -112,9 +116,14 @@ def figures(design: Design, seed: int = DEFAULT_SEED) -> SquelchFigures:
     up, down = ramp(design, seed)
     ok, first = opens(design, sq.cnr_db, seed)
     noise_open = opens(design, PURE_NOISE_DB, seed)[1] is not None
-    return SquelchFigures(open_cnr_db=up, close_cnr_db=down, open_ms=round(first, 2) if ok and first is not None else None,
-                          open_ms_bound=sq.open_ms, pure_noise_muted=not noise_open and closes(design, PURE_NOISE_DB, seed),
-                          run_s=run_seconds(design))
+    return SquelchFigures(
+        open_cnr_db=up,
+        close_cnr_db=down,
+        open_ms=round(first, 2) if ok and first is not None else None,
+        open_ms_bound=sq.open_ms,
+        pure_noise_muted=not noise_open and closes(design, PURE_NOISE_DB, seed),
+        run_s=run_seconds(design),
+    )
 
 
 def describe(sq: dict) -> list[str]:
@@ -122,21 +131,30 @@ def describe(sq: dict) -> list[str]:
     figures on the simulated noisy IF."""
     d = sq["design"]
     if d["blind"]:
-        return ["squelch: left open: this counter reads 0 or 1 edge per grid instant, and such one-bit counts "
-                "look the same for a carrier and for noise (a coarser grid or a stamp scheme can mute noise)"]
+        return [
+            "squelch: left open: this counter reads 0 or 1 edge per grid instant, and such one-bit counts "
+            "look the same for a carrier and for noise (a coarser grid or a stamp scheme can mute noise)"
+        ]
     why = " (the counting noise floor sets its levels)" if d["floor_limited"] else ""
-    lines = [f"squelch: set to open at and above {d['cnr_db']:g} dB IF CNR (Carson band); designed to open at "
-             f"{d['open_cnr_db']:g} dB and close at {d['close_cnr_db']:g} dB{why}; opens within "
-             f"{d['open_ms']:g} ms at {d['cnr_db']:g} dB"]
+    lines = [
+        f"squelch: set to open at and above {d['cnr_db']:g} dB IF CNR (Carson band); designed to open at "
+        f"{d['open_cnr_db']:g} dB and close at {d['close_cnr_db']:g} dB{why}; opens within "
+        f"{d['open_ms']:g} ms at {d['cnr_db']:g} dB"
+    ]
     if d["edge_tone_db"] > 0:
-        lines.append(f"  a full-deviation tone at the band edge alone reaches {d['edge_tone_db']:g} dB over the close "
-                     "level: such modulation can close the squelch")
+        lines.append(
+            f"  a full-deviation tone at the band edge alone reaches {d['edge_tone_db']:g} dB over the close "
+            "level: such modulation can close the squelch"
+        )
     m = sq.get("measured")
     if m:
+
         def fmt(v, unit):
             return "never" if v is None else f"{v:g} {unit}"
 
-        lines.append(f"  measured on the noisy IF: opened at {fmt(m['open_cnr_db'], 'dB')} (rising CNR), closed at "
-                     f"{fmt(m['close_cnr_db'], 'dB')} (falling); at {d['cnr_db']:g} dB it opened after "
-                     f"{fmt(m['open_ms'], 'ms')}; pure-noise IF {'muted' if m['pure_noise_muted'] else 'NOT MUTED'}")
+        lines.append(
+            f"  measured on the noisy IF: opened at {fmt(m['open_cnr_db'], 'dB')} (rising CNR), closed at "
+            f"{fmt(m['close_cnr_db'], 'dB')} (falling); at {d['cnr_db']:g} dB it opened after "
+            f"{fmt(m['open_ms'], 'ms')}; pure-noise IF {'muted' if m['pure_noise_muted'] else 'NOT MUTED'}"
+        )
     return lines

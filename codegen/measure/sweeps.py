@@ -31,10 +31,10 @@ class SweepPoint:
     thd_db: float  # C output: harmonics 2..5 over the tone
     level_db: float  # C output tone level, dB relative to full-scale deviation
     predicted_db: float | None = None  # the prediction this sweep is compared with, if any
-    offset_hz: float | None = None    # the offset output at the end, in Hz
-    flags: dict = field(default_factory=dict)   # gaps, clamps, saturations, clips of the C run
-    squelch_open: float = 1.0         # share of the measured samples the squelch passed (the figures
-                                      # are of the demodulated audio, as the squelch would pass it)
+    offset_hz: float | None = None  # the offset output at the end, in Hz
+    flags: dict = field(default_factory=dict)  # gaps, clamps, saturations, clips of the C run
+    squelch_open: float = 1.0  # share of the measured samples the squelch passed (the figures
+    # are of the demodulated audio, as the squelch would pass it)
 
 
 @dataclass(frozen=True)
@@ -125,7 +125,8 @@ def _measure(design: Design, host, inputs: np.ndarray, tone_hz: float, x: float,
         predicted_db=None if predicted is None else round(float(predicted), 2),
         offset_hz=round(counters["offset"] * design.offset_hz_per_unit, 2),
         flags={k: int(counters[k]) for k in ("gaps", "clamps", "saturations", "clips", "overruns")},
-        squelch_open=round(float(np.mean(want.squelch_open[skip:])), 3) if want.squelch_open[skip:].size else 0.0)
+        squelch_open=round(float(np.mean(want.squelch_open[skip:])), 3) if want.squelch_open[skip:].size else 0.0,
+    )
 
 
 def _inputs(design: Design, sig: signals.FmSignal, seed: int, times: np.ndarray | None = None) -> np.ndarray:

@@ -28,10 +28,10 @@ MIN_PHASE_SHIFT = 8
 CUBIC_MIN_SHIFT = 12  # the cubic correction reads the fraction in Q12
 CUBIC_DELTA_LIMIT = 4096
 MAX_STEP_SHIFT = 12
-REG_BITS = 32          # CIC registers and the phase word are 32-bit on every target
-OVERDEVIATION = 2.0    # the step limit allows this many times the peak deviation
-GAP_FRACTION = 0.5     # a stamp interval longer than 1 / (this * lowest frequency) is a gap
-TIE_DB = 0.5           # predicted SINAD within this is a tie; the cheaper option wins
+REG_BITS = 32  # CIC registers and the phase word are 32-bit on every target
+OVERDEVIATION = 2.0  # the step limit allows this many times the peak deviation
+GAP_FRACTION = 0.5  # a stamp interval longer than 1 / (this * lowest frequency) is a gap
+TIE_DB = 0.5  # predicted SINAD within this is a tie; the cheaper option wins
 # The calibrated cycle tables fit their emulated probes within a few per cent (edgetally/planner/
 # costs.json records each fit); an option must fit the budget with this margin to spare, so that
 # the load the part shows stays inside the budget (plan --measured checks it in the emulator).
@@ -134,11 +134,19 @@ def _stamp_front(spec: Spec, v: Variant, ratio: int, grid_hz: int, grid_ticks: i
         in_bits = x_limit.bit_length() + 1
         if in_bits + growth <= REG_BITS - 1:
             front = StampFront(
-                timer_bits=tgt.timer_bits, prescale=k, grid_ticks=grid_ticks, phase_shift=shift, gap_ticks=gap,
-                x_limit=x_limit, x_low=math.floor(f_lo / k / grid_hz * (1 << shift)),
-                x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)), order=v.order,
-                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0, max_delta=2 * gap,
-                divide="reciprocal" if schemes.uses_reciprocal(tgt) else "division")
+                timer_bits=tgt.timer_bits,
+                prescale=k,
+                grid_ticks=grid_ticks,
+                phase_shift=shift,
+                gap_ticks=gap,
+                x_limit=x_limit,
+                x_low=math.floor(f_lo / k / grid_hz * (1 << shift)),
+                x_centre=round(sig.if_hz / k / grid_hz * (1 << shift)),
+                order=v.order,
+                delta_limit=CUBIC_DELTA_LIMIT if v.order == "cubic" else 0,
+                max_delta=2 * gap,
+                divide="reciprocal" if schemes.uses_reciprocal(tgt) else "division",
+            )
             return (front, in_bits), None
     return None, "no 32-bit phase word fits this ratio"
 
@@ -190,18 +198,40 @@ def _candidates(
         else:
             words, why = _count_front(spec, ratio, grid_hz, grid_ticks)
             qlen = _queue_len(ratio)
-        ld = schemes.load(v, tgt, edge_hz_max=edge_max, grid_hz=grid_hz, out_hz=out.rate_hz, n=CIC_ORDER,
-                          sections=sections, queue_len=qlen)
-        pr = schemes.predict(v, if_hz=sig.if_hz, full_scale_hz=out.full_scale_hz, timer_hz=tgt.timer_hz,
-                             cpu_hz=tgt.cpu_hz, irq_jitter_cycles=tgt.irq_jitter_cycles, grid_hz=grid_hz,
-                             out_hz=out.rate_hz, r=ratio, n=CIC_ORDER, band_hz=sig.audio_hz, post_sos=sos_r)
+        ld = schemes.load(
+            v,
+            tgt,
+            edge_hz_max=edge_max,
+            grid_hz=grid_hz,
+            out_hz=out.rate_hz,
+            n=CIC_ORDER,
+            sections=sections,
+            queue_len=qlen,
+        )
+        pr = schemes.predict(
+            v,
+            if_hz=sig.if_hz,
+            full_scale_hz=out.full_scale_hz,
+            timer_hz=tgt.timer_hz,
+            cpu_hz=tgt.cpu_hz,
+            irq_jitter_cycles=tgt.irq_jitter_cycles,
+            grid_hz=grid_hz,
+            out_hz=out.rate_hz,
+            r=ratio,
+            n=CIC_ORDER,
+            band_hz=sig.audio_hz,
+            post_sos=sos_r,
+        )
         reason = impossible or why
         if reason is None:
             reason = _rate_limit(spec, v, ld, grid_hz)
         if reason is None and ld.fraction * (1 + LOAD_MARGIN) > tgt.cpu_budget:
-            reason = (f"CPU load {ld.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}" if ld.fraction > tgt.cpu_budget
-                      else f"CPU load {ld.fraction:.1%} leaves less than the {LOAD_MARGIN:.0%} margin below the budget "
-                           f"{tgt.cpu_budget:.0%} that the cycle estimates need")
+            reason = (
+                f"CPU load {ld.fraction:.1%} exceeds the budget {tgt.cpu_budget:.0%}"
+                if ld.fraction > tgt.cpu_budget
+                else f"CPU load {ld.fraction:.1%} leaves less than the {LOAD_MARGIN:.0%} margin below the budget "
+                f"{tgt.cpu_budget:.0%} that the cycle estimates need"
+            )
         if reason is None and exclude and (v.scheme, v.label, ratio) in exclude:
             reason = exclude[(v.scheme, v.label, ratio)]
         doubtful = (

@@ -59,7 +59,7 @@ from ..ir import Design, variant_label
 from .. import standard
 from ..spec import Target
 
-TEST_LEVEL = standard.LEVEL   # fraction of full-scale deviation of the standard test tone (edgetally.standard)
+TEST_LEVEL = standard.LEVEL  # fraction of full-scale deviation of the standard test tone (edgetally.standard)
 
 
 def _cubic_weight() -> float:
@@ -164,14 +164,23 @@ def _unit_band_noise(grid_hz: float, out_hz: float, r: int, n: int, band_hz: flo
     return 2.0 * float(np.trapezoid(total * post, f))
 
 
-def grid_error_vars(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
-                    irq_jitter_cycles: int, grid_hz: float, band_hz: float) -> tuple[float, float, float]:
+def grid_error_vars(
+    v: Variant,
+    *,
+    if_hz: float,
+    full_scale_hz: float,
+    timer_hz: float,
+    cpu_hz: float,
+    irq_jitter_cycles: int,
+    grid_hz: float,
+    band_hz: float,
+) -> tuple[float, float, float]:
     """Per grid instant, the phase error variances (cycles^2) of the counting itself while the band's
     standard test plays: (quantisation, interpolation residual, interrupt latency jitter)."""
     test = standard.standard_test(band_hz)
     tone_hz = test.tone_hz
     dev = test.level * full_scale_hz
-    ef2 = if_hz ** 2 + 0.5 * dev ** 2                        # E[f^2] for a sinusoidal deviation
+    ef2 = if_hz**2 + 0.5 * dev**2  # E[f^2] for a sinusoidal deviation
     sig_quant = sig_curv = sig_jit = 0.0
     if v.front == "count":
         sig_quant = 1.0 / 12.0
@@ -196,24 +205,48 @@ def grid_error_vars(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz:
     return sig_quant, sig_curv, sig_jit
 
 
-def predict(v: Variant, *, if_hz: float, full_scale_hz: float, timer_hz: float, cpu_hz: float,
-            irq_jitter_cycles: int, grid_hz: float, out_hz: float, r: int, n: int, band_hz: float,
-            post_sos=()) -> Prediction:
+def predict(
+    v: Variant,
+    *,
+    if_hz: float,
+    full_scale_hz: float,
+    timer_hz: float,
+    cpu_hz: float,
+    irq_jitter_cycles: int,
+    grid_hz: float,
+    out_hz: float,
+    r: int,
+    n: int,
+    band_hz: float,
+    post_sos=(),
+) -> Prediction:
     """Predicted SINAD of the band's standard test (``edgetally.standard``)."""
     test = standard.standard_test(band_hz)
     tone_hz = test.tone_hz
     dev = test.level * full_scale_hz
-    sig_quant, sig_curv, sig_jit = grid_error_vars(v, if_hz=if_hz, full_scale_hz=full_scale_hz, timer_hz=timer_hz,
-                                                   cpu_hz=cpu_hz, irq_jitter_cycles=irq_jitter_cycles,
-                                                   grid_hz=grid_hz, band_hz=band_hz)
+    sig_quant, sig_curv, sig_jit = grid_error_vars(
+        v,
+        if_hz=if_hz,
+        full_scale_hz=full_scale_hz,
+        timer_hz=timer_hz,
+        cpu_hz=cpu_hz,
+        irq_jitter_cycles=irq_jitter_cycles,
+        grid_hz=grid_hz,
+        band_hz=band_hz,
+    )
     tone = np.array([tone_hz])
-    s_pow = dev ** 2 / 2 * 10 ** (cic.response_db(tone_hz / out_hz, n, r) / 10) \
+    s_pow = (
+        dev**2
+        / 2
+        * 10 ** (cic.response_db(tone_hz / out_hz, n, r) / 10)
         * float(_post_gain2(post_sos, tone, out_hz)[0])
     )
     lsb = full_scale_hz / 32768.0
-    n_out = lsb ** 2 / 12.0 * (band_hz - test.band_lo_hz) / (out_hz / 2)
-    parts = [_band_noise(s2, grid_hz, out_hz, r, n, band_hz, post_sos) if s2 else 0.0
-             for s2 in (sig_quant, sig_curv, sig_jit)]
+    n_out = lsb**2 / 12.0 * (band_hz - test.band_lo_hz) / (out_hz / 2)
+    parts = [
+        _band_noise(s2, grid_hz, out_hz, r, n, band_hz, post_sos) if s2 else 0.0
+        for s2 in (sig_quant, sig_curv, sig_jit)
+    ]
 
     def db(noise):
         return 10 * math.log10(s_pow / noise) if noise > 0 else float("inf")
@@ -265,18 +298,18 @@ class Load:
 # -Os builds run in the Thumb emulator (edgetally.target, whose cycle figures are estimates from
 # instruction classes), on the four examples, both ARM cores, rounded; within about 25 % of those
 # figures. `plan --measured` replaces them by the measured figures for one design.
-STAMP_INPUT_OPS = {"linear": 72, "cubic": 80}      # unwrap, bracket test, loop and queue bookkeeping
-STAMP_GRID_OPS = {"linear": 60, "cubic": 110}      # interpolation (besides its multiplies), clamp
+STAMP_INPUT_OPS = {"linear": 72, "cubic": 80}  # unwrap, bracket test, loop and queue bookkeeping
+STAMP_GRID_OPS = {"linear": 60, "cubic": 110}  # interpolation (besides its multiplies), clamp
 # The division-free quotients (edgetally.fixedpoint): a reciprocal per stamp interval (seed, two
 # Newton steps, its correction), charged per grid instant (at most one interval starts per instant
 # that uses it), then per quotient a multiply-shift and its correction; the cubic's 32-bit
 # correction adds four products. (ops, 32-bit multiplies).
 RECIP_COST = (30, 5)
 QUOTIENT_COST = {"linear": (10, 2), "cubic": (20, 8)}
-COUNT_INPUT_OPS = 40                               # difference, zero run, clamp
-GRID_OPS_PER_STAGE = 8                             # each CIC integrator and comb, per grid instant
-OUTPUT_OPS = 60                                    # combs' share, scale, offset tracker, output word
-SECTION_OPS = {64: 100, 48: 70, 32: 45}            # a section's rounding, saturation and state moves
+COUNT_INPUT_OPS = 40  # difference, zero run, clamp
+GRID_OPS_PER_STAGE = 8  # each CIC integrator and comb, per grid instant
+OUTPUT_OPS = 60  # combs' share, scale, offset tracker, output word
+SECTION_OPS = {64: 100, 48: 70, 32: 45}  # a section's rounding, saturation and state moves
 
 
 def calibrated(tgt: Target) -> bool:
@@ -339,15 +372,20 @@ def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, 
         if v.scheme == "interrupt":
             body = costs.lookup(core, "isr", costs.isr_key("edge", "count"))
             per_edge = None if body is None else isr + body
-        tick = 0.0 if (v.scheme == "counter" and tgt.counter_dma) else costs.lookup(core, "isr", costs.isr_key("tick", "count"))
+        tick = (
+            0.0
+            if (v.scheme == "counter" and tgt.counter_dma)
+            else costs.lookup(core, "isr", costs.isr_key("tick", "count"))
+        )
         per_grid = None if (grid is None or tick is None) else grid + (isr + tick if tick else 0)
     if per_input is None or per_grid is None or per_edge is None or base is None:
         return None
     return (round(per_edge), round(per_input), round(per_grid), round(base + planned_filter_cycles(tgt, sections)))
 
 
-def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int,
-         sections: int, queue_len: int) -> Load:
+def load(
+    v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int, sections: int, queue_len: int
+) -> Load:
     """Estimated cycles and RAM: from the core's calibrated table (edgetally.planner.costs) where it
     has one, else from the profile figures and the op counts above."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
@@ -364,8 +402,10 @@ def load(v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz:
             muls = RECIP_COST[1] + QUOTIENT_COST[v.order][1]
             per_grid = ops * op + muls * CORES[tgt.core].mul32_cycles + cic
         else:
-            muls = QUOTIENT_COST[v.order][1] - 2 * divs          # the cubic's own products
-            per_grid = divs * tgt.div32_cycles + muls * CORES[tgt.core].mul32_cycles + STAMP_GRID_OPS[v.order] * op + cic
+            muls = QUOTIENT_COST[v.order][1] - 2 * divs  # the cubic's own products
+            per_grid = (
+                divs * tgt.div32_cycles + muls * CORES[tgt.core].mul32_cycles + STAMP_GRID_OPS[v.order] * op + cic
+            )
         if v.scheme == "interrupt":
             per_edge = isr + 12 * op  # read timer, queue the stamp
         else:

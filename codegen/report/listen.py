@@ -163,8 +163,9 @@ def clip_names(design: Design) -> tuple[str, str, str]:
     return (f"{p}_tone.wav", f"{p}_two_tone.wav", f"{p}_sweep.wav")
 
 
-def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
-          host: hostbuild.HostDemod | None = None) -> tuple[Clip, ...]:
+def clips(
+    design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED, host: hostbuild.HostDemod | None = None
+) -> tuple[Clip, ...]:
     """The three listening clips of ``seconds`` each, from the emitted C."""
     host = host or hostbuild.build(design)
     rng = np.random.default_rng(seed)
@@ -172,13 +173,24 @@ def clips(design: Design, seconds: float = 2.0, seed: int = DEFAULT_SEED,
     tt = two_tone_signal(design, rng)
     tone_wav, two_tone_wav, sweep_wav = clip_names(design)
     made = [
-        (tone_wav, f"standard test: {design.test.tone_hz:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale "
-                          "deviation", standard_signal(design, rng)),
-        (two_tone_wav, "two tones, " + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
-         + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation", tt),
-        (sweep_wav, f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "
-                           f"{seconds:g} s at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
-         sweep_signal(design, seconds, rng)),
+        (
+            tone_wav,
+            f"standard test: {design.test.tone_hz:g} Hz tone at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
+            standard_signal(design, rng),
+        ),
+        (
+            two_tone_wav,
+            "two tones, "
+            + " Hz and ".join(f"{t.freq_hz:.0f}" for t in tt.tones)
+            + f" Hz, each at {schemes.TEST_LEVEL / 2:.0%} of full-scale deviation",
+            tt,
+        ),
+        (
+            sweep_wav,
+            f"voice-band sweep, {min(SWEEP_FROM_HZ, top / 2):.0f} Hz to {top:.0f} Hz over "
+            f"{seconds:g} s at {schemes.TEST_LEVEL:.0%} of full-scale deviation",
+            sweep_signal(design, seconds, rng),
+        ),
     ]
     out = []
     for k, (name, caption, sig) in enumerate(made):

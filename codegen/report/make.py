@@ -52,8 +52,15 @@ def steps(design: Design) -> int:
     return 1 + sum(len(sweeps.default_points(design, k)) for k in sweeps.KINDS) + len(hostile.SCENARIOS) + 1
 
 
-def make(spec: Spec, plan: Plan, design: Design, seconds: float | None = None, seed: int = DEFAULT_SEED,
-         targets: bool = True, progress=None) -> Made:
+def make(
+    spec: Spec,
+    plan: Plan,
+    design: Design,
+    seconds: float | None = None,
+    seed: int = DEFAULT_SEED,
+    targets: bool = True,
+    progress=None,
+) -> Made:
     """Run everything and render. ``progress`` (optional) has note(label), told what starts, and
     step(), told when one of ``steps(design)`` steps is done."""
     bar = progress or _Quiet()

@@ -105,12 +105,16 @@ def _verdict(ctx: ReportContext) -> str:
     if v.bit_exact:
         lines.append(f"Emitted C vs integer model: {_yes(True, 'bit-exact')} over {v.samples} output samples.")
     else:
-        lines.append(f"Emitted C vs integer model: {_yes(False, no='MISMATCH')}: {v.mismatches} samples differ "
-                     f"(first at {_e(v.first_mismatch)}).")
-    lines.append(f"SINAD ({ctx.design.test.tone_hz:g} Hz tone at {ctx.design.test.level:.0%} deviation, "
-                 f"{_e(f'{ctx.design.audio_hz:g}')} Hz band): fixed point (C) {v.sinad_db:.1f} dB, "
-                 f"float reference {v.float_sinad_db:.1f} dB, predicted {v.predicted_sinad_db:.1f} dB; "
-                 f"implementation loss {v.implementation_loss_db:.2f} dB.")
+        lines.append(
+            f"Emitted C vs integer model: {_yes(False, no='MISMATCH')}: {v.mismatches} samples differ "
+            f"(first at {_e(v.first_mismatch)})."
+        )
+    lines.append(
+        f"SINAD ({ctx.design.test.tone_hz:g} Hz tone at {ctx.design.test.level:.0%} deviation, "
+        f"{_e(f'{ctx.design.audio_hz:g}')} Hz band): fixed point (C) {v.sinad_db:.1f} dB, "
+        f"float reference {v.float_sinad_db:.1f} dB, predicted {v.predicted_sinad_db:.1f} dB; "
+        f"implementation loss {v.implementation_loss_db:.2f} dB."
+    )
     if v.squelch:
         lines.append("Noise " + _e("; ".join(s.strip() for s in describe(v.squelch))) + ".")
     if ctx.hostile:
@@ -194,14 +198,16 @@ def _plan_section(ctx: ReportContext) -> str:
         )
         cls.append("chosen" if o.kept else "")
     pr, ld = p.prediction, p.load
-    body = [_table(head, rows, cls),
-            f"<p>Predicted SINAD {pr.sinad_db:.1f} dB ({ctx.design.test.tone_hz:g} Hz tone at {ctx.design.test.level:.0%} "
-            f"deviation, {_e(f'{spec.signal.audio_hz:g}')} Hz band): quantisation {_db(pr.quant_sinad_db)}, "
-            f"interpolation {_db(pr.curvature_sinad_db)}, jitter {_db(pr.jitter_sinad_db)}, 16-bit output "
-            f"{_db(pr.output_sinad_db)} dB.</p>",
-            f"<p>CPU estimate on {_e(spec.target.core)} at {_e(_hz(spec.target.cpu_hz))}: {ld.per_edge} cycles/edge "
-            f"in ISRs, {ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = "
-            f"{ld.fraction:.1%} (budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state.</p>"]
+    body = [
+        _table(head, rows, cls),
+        f"<p>Predicted SINAD {pr.sinad_db:.1f} dB ({ctx.design.test.tone_hz:g} Hz tone at {ctx.design.test.level:.0%} "
+        f"deviation, {_e(f'{spec.signal.audio_hz:g}')} Hz band): quantisation {_db(pr.quant_sinad_db)}, "
+        f"interpolation {_db(pr.curvature_sinad_db)}, jitter {_db(pr.jitter_sinad_db)}, 16-bit output "
+        f"{_db(pr.output_sinad_db)} dB.</p>",
+        f"<p>CPU estimate on {_e(spec.target.core)} at {_e(_hz(spec.target.cpu_hz))}: {ld.per_edge} cycles/edge "
+        f"in ISRs, {ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = "
+        f"{ld.fraction:.1%} (budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state.</p>",
+    ]
     if p.notes:
         body.append("<ul>" + "".join(f"<li>{_e(n)}</li>" for n in p.notes) + "</ul>")
     body.append(
@@ -634,8 +640,17 @@ def file_names(design: Design) -> tuple[str, ...]:
     return (report_name(design), *listen.clip_names(design))
 
 
-def report_files(spec: Spec, plan: Plan, design: Design, result: VerifyResult, sweeps: tuple = (),
-                 hostile: tuple = (), seconds: float = 2.0, seed: int = DEFAULT_SEED, host=None) -> dict[str, bytes]:
+def report_files(
+    spec: Spec,
+    plan: Plan,
+    design: Design,
+    result: VerifyResult,
+    sweeps: tuple = (),
+    hostile: tuple = (),
+    seconds: float = 2.0,
+    seed: int = DEFAULT_SEED,
+    host=None,
+) -> dict[str, bytes]:
     """Every file of the report: the page and its WAV files, {file name: bytes}. Runs the three
     listening signals through the emitted C (``seconds`` each); writes nothing."""
     made = listen.clips(design, seconds=seconds, seed=seed, host=host)

@@ -21,8 +21,9 @@ LEAD_S = standard.MIN_LEAD_S
 DEFAULT_SEED = 20261202
 
 
-def make_inputs(design: Design, seconds: float, seed: int, cnr_db: float | None = None,
-                sig: signals.FmSignal | None = None) -> np.ndarray:
+def make_inputs(
+    design: Design, seconds: float, seed: int, cnr_db: float | None = None, sig: signals.FmSignal | None = None
+) -> np.ndarray:
     """What the design's hardware delivers for lead + seconds of the standard test tone (or of
     ``sig``): capture stamps, software stamps from an edge interrupt, or counts per grid instant."""
     rng = np.random.default_rng(seed)

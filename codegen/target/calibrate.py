@@ -46,7 +46,7 @@ def probe_specs(examples: Path, core: str) -> list[tuple[str, dict]]:
                 r = json.loads(json.dumps(raw))
                 r["target"]["core"] = core
                 for k in ("hw_divide", "mul64", "isr_cycles", "irq_jitter_cycles"):
-                    r["target"].pop(k, None)            # the core's own figures
+                    r["target"].pop(k, None)  # the core's own figures
                 r["target"]["capture_prescalers"] = [1, 2]
                 # price every variant the part can run, not only those that fit its clock: the cycles
                 # per event do not depend on the clock, so the probes get a fast one
@@ -84,9 +84,13 @@ def keys_of(design) -> dict:
     fr, f = design.front, design.filters
     order = getattr(fr, "order", "linear")
     bits = fr.timer_bits if fr.kind == "stamp" else fr.counter_bits
-    return {"input": costs.input_key(fr.kind, order, bits), "grid": costs.grid_key(fr.kind, order),
-            "front": fr.kind, "arith": costs.arith_key(f.data_bits, f.coef_width, f.acc_bits),
-            "sections": len(f.sections)}
+    return {
+        "input": costs.input_key(fr.kind, order, bits),
+        "grid": costs.grid_key(fr.kind, order),
+        "front": fr.kind,
+        "arith": costs.arith_key(f.data_bits, f.coef_width, f.acc_bits),
+        "sections": len(f.sections),
+    }
 
 
 def measure(design, core: str) -> dict:
@@ -98,10 +102,15 @@ def measure(design, core: str) -> dict:
     p = design.name
     isr = {}
     for name, cyc in c.isr_cycles.items():
-        kind = name[len(p) + 1:-len("_isr")]
+        kind = name[len(p) + 1 : -len("_isr")]
         isr[costs.isr_key(kind, design.front.kind)] = cyc
-    return {"input": c.cycles_per_input, "grid": c.cycles_per_grid, "output": c.cycles_per_output, "isr": isr,
-            "grid_per_input": c.grid_instants / c.inputs}
+    return {
+        "input": c.cycles_per_input,
+        "grid": c.cycles_per_grid,
+        "output": c.cycles_per_output,
+        "isr": isr,
+        "grid_per_input": c.grid_instants / c.inputs,
+    }
 
 
 def _entry(values: list[float]) -> dict:
@@ -132,22 +141,35 @@ def reduce(rows: list[tuple[dict, dict]]) -> dict:
         for ik, v in m["isr"].items():
             isr[ik].append(v)
     table: dict = {"isr": {key: _entry(v) for key, v in sorted(isr.items())}}
-    front, dev_front = _fit([({"input:" + k["input"]: 1.0, "grid:" + k["grid"]: m["grid_per_input"]},
-                              m["input"] + m["grid"] * m["grid_per_input"]) for k, m in rows])
+    front, dev_front = _fit(
+        [
+            (
+                {"input:" + k["input"]: 1.0, "grid:" + k["grid"]: m["grid_per_input"]},
+                m["input"] + m["grid"] * m["grid_per_input"],
+            )
+            for k, m in rows
+        ]
+    )
     n: dict[str, int] = defaultdict(int)
     for k, _ in rows:
         n["input:" + k["input"]] += 1
         n["grid:" + k["grid"]] += 1
     for role in ("input", "grid"):
-        table[role] = {key.split(":", 1)[1]: {"cycles": round(v, 1), "probes": n[key]}
-                       for key, v in front.items() if key.startswith(role + ":")}
+        table[role] = {
+            key.split(":", 1)[1]: {"cycles": round(v, 1), "probes": n[key]}
+            for key, v in front.items()
+            if key.startswith(role + ":")
+        }
     table["front_fit_max_rel_dev"] = round(dev_front, 3)
-    out, dev_out = _fit([({"base:" + k["front"]: 1.0, "section:" + k["arith"]: k["sections"]}, m["output"])
-                         for k, m in rows])
+    out, dev_out = _fit(
+        [({"base:" + k["front"]: 1.0, "section:" + k["arith"]: k["sections"]}, m["output"]) for k, m in rows]
+    )
     table["output"] = {
         "base": {k.split(":", 1)[1]: round(v, 1) for k, v in out.items() if k.startswith("base:")},
         "section": {k.split(":", 1)[1]: round(v, 1) for k, v in out.items() if k.startswith("section:")},
-        "probes": len(rows), "max_rel_dev": round(dev_out, 3)}
+        "probes": len(rows),
+        "max_rel_dev": round(dev_out, 3),
+    }
     return table
 
 
@@ -199,8 +221,11 @@ def main(argv: list[str] | None = None) -> int:
     args = ap.parse_args(argv)
     missing = [c for c in args.cores if c not in TARGETS or not available(c)]
     if missing:
-        print(f"calibrate: cannot run {', '.join(missing)} here (not an emulated core, or its compiler or "
-              "emulator is missing)", file=sys.stderr)
+        print(
+            f"calibrate: cannot run {', '.join(missing)} here (not an emulated core, or its compiler or "
+            "emulator is missing)",
+            file=sys.stderr,
+        )
         return 2
     table = calibrate(args.examples, tuple(args.cores))
     tmp = args.out.with_suffix(".tmp")
