@@ -274,24 +274,26 @@ def clocked(design: Design, inputs: np.ndarray, calls, lost=None) -> tuple[np.nd
     """What the C's time-driven entry <name>_advance(now) does to a stamp stream, as a stream for
     ``run``: ``calls`` lists (k, now), a call made after the first k inputs with the timer's value
     ``now`` (calls in order of k). While the last stamp (real or virtual) lies more than gap_ticks
-    and less than half the timer's range before now, a call adds a virtual stamp max_delta after it,
-    or at now when that is nearer; the input after each virtual stamp follows a loss. Returns the
+    and less than half the timer's range before now (or, while no input has come since the last
+    virtual stamp, any time before now), a call adds a virtual stamp max_delta after it, or at now
+    when that is nearer; the input after each virtual stamp follows a loss. Returns the
     stream and the indices (in it) of the inputs that follow losses (``lost`` remapped, plus those)."""
     fr = design.front
     mask, half = (1 << fr.timer_bits) - 1, 1 << (fr.timer_bits - 1)
     x = np.asarray(inputs, dtype=np.int64)
     virtual: list[tuple[int, int]] = []  # (original index it precedes, value)
-    last, last_k = None, 0
+    last, last_k, in_loss = None, 0, False
     for k, now in calls:
         if k > last_k or last is None:
             last = int(x[k - 1]) if k > 0 else None
-            last_k = k
+            last_k, in_loss = k, False
         while last is not None:
             e = (int(now) - last) & mask
-            if e <= fr.gap_ticks or e >= half:
+            if e == 0 or e >= half or (e <= fr.gap_ticks and not in_loss):
                 break
             last = (last + fr.max_delta) & mask if e > fr.max_delta else int(now) & mask
             virtual.append((k, last))
+            in_loss = True
     if not virtual:
         return x, sorted(int(i) for i in (lost if lost is not None else ()))
     at = np.array([k for k, _ in virtual], dtype=np.int64)
