@@ -20,7 +20,9 @@ from conftest import ALL_DESIGNS, host_for
 IDS = sorted(ALL_DESIGNS)
 # A counter read more often than the lowest IF frequency's edge rate makes legal zero counts: a
 # signal loss or a noise burst cannot be told from the carrier for gap_run instants. These forced
-# designs are not any example's choice; their report says so (checked below).
+# designs are not any example's choice; their report says so (checked below). Their own counting
+# noise reaches full scale (one-bit counts), so a clipped sample after lost inputs is no sign of the
+# loss either.
 LIMITED = {k for k in IDS if ALL_DESIGNS[k].front.kind == "count" and ALL_DESIGNS[k].front.diff_low == 0}
 
 
@@ -33,7 +35,7 @@ def test_every_scenario_passes(hosts, key):
         assert r.bit_exact, (key, r.name)
         assert r.overflow_free, (key, r.name)
         assert r.flag_raised, (key, r.name, r.flag)
-        if key in LIMITED and r.name in ("signal-loss", "noise-burst") and not r.output_ok:
+        if key in LIMITED and r.name in ("signal-loss", "noise-burst", "inputs-lost") and not r.output_ok:
             assert "small counts are legal" in r.output_note
             continue
         assert r.passed, (key, r.name, r.output_note, r.recovery_ms, r.predicted_recovery_ms)
@@ -82,7 +84,7 @@ def test_timer_wrap_output_is_independent_of_the_start_value(hosts):
     base = hardware_inputs(d, times, 0.15, np.random.default_rng(9), start=0)
     want = model.run(d, base).out
     host = host_for(hosts, key)
-    j = 1000                                              # wrap between inputs j-1 and j, at each tick
+    j = 1000  # wrap between inputs j-1 and j, at each tick
     span = int(base[j]) - int(base[j - 1])
     for k in range(0, span + 1, max(1, span // 40)):
         start = (-(int(base[j - 1]) + k)) % (1 << 16)

@@ -47,6 +47,14 @@ def chain_impulse(design: Design) -> np.ndarray:
     return signal.fftconvolve(taps, up)[: up.size]
 
 
+def step_overshoot(design: Design) -> float:
+    """The chain's step response overshoot, a fraction of the step (0 for a monotone response): a
+    jump of J in the frequency estimate (a phase jump of the tone after lost inputs, a substituted
+    instant) moves the output at most about J times this past its undisturbed course."""
+    step = np.cumsum(chain_impulse(design))
+    return float(max(np.max(step) - 1.0, -np.min(step), 0.0))
+
+
 def front_instants(design: Design) -> int:
     """Grid instants after the disturbance before the front end has a valid phase again: the
     stamp interval that ends it (two more for the four-stamp cubic fit) and the resync instant."""
