@@ -12,7 +12,7 @@ from edgetally.stimulus.inputs import make_inputs
 
 from conftest import ALL_DESIGNS
 
-KEYS = sorted(k for k in ALL_DESIGNS if not k.endswith(":auto"))   # every forced scheme (the autos repeat one)
+KEYS = sorted(k for k in ALL_DESIGNS if not k.endswith(":auto"))  # every forced scheme (the autos repeat one)
 
 
 def _seconds(d):
@@ -52,14 +52,14 @@ def test_vcd(key, tmp_path):
     _write_vcd(tmp_path / "a.vcd", ps, end)
     rec = recordings.load(d, tmp_path / "a.vcd", signal="if_pin")
     # exact integer expectation: floor(t f_timer) at a 1 ps time unit
-    ticks = np.array([v * d.rates.timer_hz // 10 ** 12 for v in ps.tolist()], dtype=np.int64)
+    ticks = np.array([v * d.rates.timer_hz // 10**12 for v in ps.tolist()], dtype=np.int64)
     fr = d.front
     if fr.kind == "stamp":
-        want = ticks[::fr.prescale] & ((1 << fr.timer_bits) - 1)
+        want = ticks[:: fr.prescale] & ((1 << fr.timer_bits) - 1)
     else:
         # the recording ends at its last value change, the final falling edge (_write_vcd), not at end
         last = int(ps[-1]) + (end - int(ps[-1])) // 2
-        grid = np.arange((last * d.rates.timer_hz // 10 ** 12) // fr.grid_ticks + 1) * fr.grid_ticks
+        grid = np.arange((last * d.rates.timer_hz // 10**12) // fr.grid_ticks + 1) * fr.grid_ticks
         want = np.searchsorted(ticks, grid, side="left") & ((1 << fr.counter_bits) - 1)
     assert np.array_equal(rec.inputs.astype(np.int64), want)
     _check(d, rec)
@@ -70,8 +70,9 @@ def test_csv_and_binary(key, tmp_path):
     d = ALL_DESIGNS[key]
     inputs = make_inputs(d, _seconds(d), seed=11)
     bits = d.front.timer_bits if d.front.kind == "stamp" else d.front.counter_bits
-    (tmp_path / "s.csv").write_text("# logged over the UART\nn,value\n" +
-                                    "".join(f"{k},{v}\n" for k, v in enumerate(inputs.tolist())))
+    (tmp_path / "s.csv").write_text(
+        "# logged over the UART\nn,value\n" + "".join(f"{k},{v}\n" for k, v in enumerate(inputs.tolist()))
+    )
     rec = recordings.load(d, tmp_path / "s.csv", signal="value")
     assert np.array_equal(rec.inputs, inputs)
     ref = _check(d, rec)
@@ -106,8 +107,9 @@ def test_iq_wav_and_sigmf(key, tmp_path):
     rec = recordings.load(d, tmp_path / "iq.wav", offset_hz=offset)
     _check(d, rec)
     z.astype(np.complex64).tofile(tmp_path / "iq.sigmf-data")
-    meta = SigMFFile(data_file=str(tmp_path / "iq.sigmf-data"),
-                     global_info={"core:datatype": "cf32_le", "core:sample_rate": int(fs)})
+    meta = SigMFFile(
+        data_file=str(tmp_path / "iq.sigmf-data"), global_info={"core:datatype": "cf32_le", "core:sample_rate": int(fs)}
+    )
     meta.add_capture(0, metadata={"core:frequency": 433.92e6})
     meta.tofile(tmp_path / "iq.sigmf-meta")
     rec = recordings.load(d, tmp_path / "iq.sigmf-meta", offset_hz=offset)
@@ -154,6 +156,6 @@ def test_steady_tone_found_with_its_sinad(tmp_path):
     _write_vcd(tmp_path / "tone.vcd", ps, int(sec * 1e12) + 2000)
     res = _check(d, recordings.load(d, tmp_path / "tone.vcd", signal="if_pin"))
     assert abs(res.tone_hz - 1000.0) < 0.01
-    settled = d.output.fraction(res.out[int(math.ceil(res.settle_s * d.rates.out_hz)):])
-    want = metrics.sinad_db(settled, d.rates.out_hz, 1000.0, standard.BAND_LOW_HZ, d.audio_hz)
+    settled = d.output.fraction(res.out[int(math.ceil(res.settle_s * d.rates.out_hz)) :])
+    want = metrics.sinad_db(settled, d.rates.out_hz, 1000.0, d.test.band_lo_hz, d.audio_hz)
     assert want > 40 and abs(res.sinad_db - want) < 0.1

@@ -141,8 +141,14 @@ def steady_tone(design: Design, samples: np.ndarray) -> tuple[float | None, floa
     k = int(band[np.argmax(spec[band])])
     df = fs / x.size
     a, b = max(f[k] - df, lo), min(f[k] + df, hi, fs / 2 * 0.999)
+    # the least-squares frequency minimises the residual (Rife and Boorstyn 1974); the fitted tone
+    # power alone peaks elsewhere when the record holds no whole number of periods (DC, cos and sin
+    # are then not orthogonal)
     best = minimize_scalar(
-        lambda v: -metrics.tone_fit(x, fs, v)[0], bounds=(a, b), method="bounded", options={"xatol": df * 1e-4}
+        lambda v: float(np.sum(metrics.tone_fit(x, fs, v)[1] ** 2)),
+        bounds=(a, b),
+        method="bounded",
+        options={"xatol": df * 1e-4},
     )
     tone = float(best.x)
     s = metrics.tone_analysis(x, fs, tone, lo, hi).sinad_db
