@@ -206,7 +206,7 @@ class Squelch:
     edge_tone_db: float  # a full-deviation tone at the band edge alone, against close_level (dB)
     open_ms: float  # bound on the time to open on a carrier at cnr_db (from closed and capped)
     reopen_ms: float  # bound on the time to open on the clean standard test (from closed and capped)
-    blind: bool = False  # one-bit counts: the detector cannot tell noise from a carrier; always open
+    blind: bool = False  # counts that cannot tell noise from a carrier (designer.squelch); always open
 
 
 @dataclass(frozen=True)

@@ -34,6 +34,7 @@ nominal ones: verify measures them on the simulated noisy IF.
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -55,6 +56,33 @@ GAUSS_MEAN_ABS = math.sqrt(2.0 / math.pi)
 # warns of these ratios; modulation breaks the pattern up). A pure-noise IF read by an IF-clocked
 # counter measured about 2.3 counts (the shaft example), above the close level 4/3 * 1.25 * 1.26.
 COUNT_PATTERN_FLOOR = 4.0 / 3.0
+# Whether a count front's detector can see the noise at all has no closed form here (the counts of
+# a noise-only IF are not white, nor Poisson): it is measured before the design is made. Gaussian
+# noise alone (a carrier 40 dB under it in the Carson band, as the tests' pure-noise IF) is counted
+# at the grid instants for NOISE_INSTANTS instants (fewer when the IF is far above the grid, to hold
+# the simulation to NOISE_SAMPLES samples), from a fixed seed; when its E|h| does not reach
+# NOISE_MARGIN times the close level the squelch is left open (blind) and says so.
+NOISE_INSTANTS = 2000
+NOISE_SAMPLES = 2_000_000
+NOISE_OVERSAMPLE = 4.0
+NOISE_MARGIN = 1.0  # E|h| over 2000 instants spreads by a few %: the measured runs (tests) confirm
+NOISE_SEED = 20261203
+
+
+@functools.lru_cache(maxsize=256)
+def count_noise_level(if_hz: float, band_hz: float, grid_hz: float) -> float:
+    """E|h| (counts per grid instant) of an IF-clocked counter read at grid_hz when the IF holds
+    Gaussian noise alone over band_hz about if_hz (simulated; see NOISE_INSTANTS)."""
+    from ..stimulus import ifnoise, signals
+
+    sig = signals.FmSignal(if_hz, ())
+    per_instant = NOISE_OVERSAMPLE * (if_hz + band_hz / 2) / grid_hz
+    n = int(max(200, min(NOISE_INSTANTS, NOISE_SAMPLES / per_instant)))
+    dur = (n + 3) / grid_hz
+    rng = np.random.default_rng(NOISE_SEED)
+    times = ifnoise.noisy_edge_times(sig, dur, -40.0, band_hz, rng, oversample=NOISE_OVERSAMPLE)
+    x = np.diff(signals.counts_at(times, grid_hz, dur, 62)).astype(np.float64)
+    return float(np.mean(np.abs(x[2:] - 2 * x[1:-1] + x[:-2])))
 
 
 def noise_var(cnr: float, *, grid_hz: float, band_hz: float, edge_hz: float, weight: float) -> float:
@@ -87,6 +115,7 @@ def design_squelch(
     std_level: float,
     counts: bool = False,
     blind: bool = False,
+    if_hz: float | None = None,
 ) -> Squelch:
     """The squelch of a design. floor_var: the planner's per-grid phase error variance (cycles^2) of
     the counting itself; edge_hz: the rate at which the edges sample the phase (stamps per second,
@@ -94,7 +123,9 @@ def design_squelch(
     tone (for ``reopen_ms``); counts: a count front (COUNT_PATTERN_FLOOR); blind: a count front
     whose grid outruns the IF (0 or 1 edge per grid instant): its one-bit counts look the same for a
     carrier and for noise at every time scale the detector has, so the squelch is left open (its
-    levels at the cap: it opens at the first CIC output and never closes) and says so."""
+    levels at the cap: it opens at the first CIC output and never closes) and says so; if_hz (count
+    fronts): the IF the counter counts, for the measured no-carrier level (count_noise_level), which
+    also leaves the squelch open when noise alone would not close it."""
     band = 2.0 * (deviation_hz + audio_hz)
     k = noise_var(1.0, grid_hz=grid_hz, band_hz=band, edge_hz=edge_hz, weight=weight)  # var h = k / cnr
     fl = 20.0 * floor_var
@@ -121,6 +152,8 @@ def design_squelch(
     open_level = max(1, int(t_open * per_out))
     close_level = max(open_level + 1, int(t_close * per_out))
     cap = int(CAP_FACTOR * close_level)
+    if counts and not blind and if_hz is not None:
+        blind = count_noise_level(if_hz, band, grid_hz) * units_per_cycle < NOISE_MARGIN * t_close
     if blind:  # opens at the first CIC output (lvl <= cap < open_level), never closes
         open_level, close_level = cap + 1, cap
     # a full-deviation tone at the band edge through the second difference: its E|h| against the

@@ -132,8 +132,9 @@ def describe(sq: dict) -> list[str]:
     d = sq["design"]
     if d["blind"]:
         return [
-            "squelch: left open: this counter reads 0 or 1 edge per grid instant, and such one-bit counts "
-            "look the same for a carrier and for noise (a coarser grid or a stamp scheme can mute noise)"
+            "squelch: left open: this counter's counts look the same for a carrier and for noise alone "
+            "(0 or 1 edge per grid instant, or a noise-only IF simulated at design time reads no busier than "
+            "the close level); a coarser grid or a stamp scheme can mute noise"
         ]
     why = " (the counting noise floor sets its levels)" if d["floor_limited"] else ""
     lines = [
