@@ -118,9 +118,11 @@ def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, 
 
 
 def simulated_loss_db(design: Design, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
-    """Float reference SINAD minus the integer model's, on ``seconds`` of the standard test."""
+    """Float reference SINAD (rounded to the output word) minus the integer model's, on ``seconds``
+    of the standard test."""
     x = make_inputs(design, _seconds(design, seconds), seed)
-    return _sinad(design, reference.run(design, x)) - _sinad(design, model.run(design, x).out)
+    ref = reference.output_word(design, reference.run(design, x))
+    return _sinad(design, ref) - _sinad(design, model.run(design, x).out)
 
 
 def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:

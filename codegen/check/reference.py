@@ -1,8 +1,9 @@
 """Floating-point reference of the same chain, on the same inputs: exact division in the
 interpolation (and the same cubic correction, unrounded), the CIC as its FIR taps in double
 precision, the unquantised IIR design, no saturation. Its output is in output LSB (full-scale
-deviation = 2**15), so it compares directly with the integer output; the difference of their
-SINADs is the implementation loss."""
+deviation = 2**15), so it compares directly with the integer output. ``output_word`` rounds it to
+the output word as the C's format does: the SINAD of that minus the C's is the implementation loss
+(the format's own rounding is the user's choice, in both, not a loss of the arithmetic)."""
 
 from __future__ import annotations
 
@@ -61,3 +62,8 @@ def run(design: Design, inputs: np.ndarray) -> np.ndarray:
     dc = signal.lfilter([0.0, alpha], [1.0, alpha - 1.0], u)
     v = signal.sosfilt(np.array([list(s.float_sos) for s in design.filters.sections]), u - dc)
     return v * 2.0 ** (design.output.bits - 1) + design.output.mid
+
+
+def output_word(design: Design, y: np.ndarray) -> np.ndarray:
+    """The reference output rounded half up to the output word and held to its range (ir.OutputFormat)."""
+    return np.clip(np.floor(np.asarray(y, dtype=np.float64) + 0.5), design.output.lo, design.output.hi)

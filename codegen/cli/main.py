@@ -455,7 +455,8 @@ def cmd_verify(args) -> int:
         if res.prediction_doubt:
             print(f"  the prediction may be several dB off: {res.prediction_doubt}")
         print(
-            f"  implementation loss {res.implementation_loss_db:.2f} dB; prediction parts: quantisation "
+            f"  implementation loss {res.implementation_loss_db:.2f} dB (against the float reference rounded to "
+            f"the output word, {res.word_sinad_db:.2f} dB); prediction parts: quantisation "
             f"{_db(res.predicted_quant_sinad_db)} dB, interpolation {_db(res.predicted_curvature_sinad_db)} dB, "
             f"jitter {_db(res.predicted_jitter_sinad_db)} dB"
         )
@@ -528,7 +529,7 @@ def check_run_args(args, spec: Spec) -> None:
         raise SpecError(
             "--seconds",
             args.seconds,
-            f"must be at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} output samples)",
+            f"too short: at least {least:.3g} s for this spec ({MIN_MEASURED_SAMPLES} output samples)",
         )
 
 

@@ -129,7 +129,13 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
         noise = wordlength.roundoff_noise(
             f, q_in, out_bits, spec.output.rate_hz, standard.band_lo_hz(spec.signal.audio_hz), spec.signal.audio_hz
         )
-        loss = 10 * math.log10(1 + noise / signal_fs2)
+        # the implementation loss is counted against the float chain rounded to the same output
+        # word (check.reference.output_word): the format's own rounding is in both, not a loss
+        lo_hz = standard.band_lo_hz(spec.signal.audio_hz)
+        word = wordlength.word_noise(out_bits, spec.output.rate_hz, lo_hz, spec.signal.audio_hz)
+        if f.sections[-1].q_out > out_bits - 1:
+            noise -= word
+        loss = 10 * math.log10(1 + noise / (signal_fs2 + word))
         needed = f.coef_bits
         for cb in range(f.coef_bits - 1, 7, -1):
             try:
@@ -162,11 +168,10 @@ def _refuse_targets(spec: Spec, best: WidthOption) -> None:
     """SpecError naming the [fixed] target that no word lengths meet (``best``: the widest try)."""
     fx = spec.fixed
     if best.loss_db > fx.loss_limit_db:
-        word = "" if spec.output.format == "s16" else f", the rounding to output.format {spec.output.format} included"
         raise SpecError(
             "fixed.loss_limit_db",
             fx.loss_limit_db,
-            f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB{word}; allow more loss",
+            f"cannot be met: the best word lengths allowed lose {best.loss_db:.2f} dB; allow more loss",
         )
     raise SpecError(
         "fixed.response_tol_db",
@@ -214,6 +219,7 @@ def _squelch(spec: Spec, p: Plan) -> Squelch:
         std_level=standard.LEVEL,
         counts=fr.kind == "count",
         blind=fr.kind == "count" and fr.diff_limit <= 1,
+        if_hz=sig.if_hz,
     )
 
 

@@ -106,7 +106,9 @@ def response_error_db(f: Filters, q_in: int, out_hz: float, band_hz: float) -> f
     w = np.linspace(0.0, band_hz, 512)
     _, hq = signal.sosfreqz(np.array(quantised_rows(f, q_in)), worN=w, fs=out_hz)
     _, hf = signal.sosfreqz(np.array([list(s.float_sos) for s in f.sections]), worN=w, fs=out_hz)
-    return float(np.max(np.abs(20 * np.log10(np.abs(hq) / np.abs(hf)))))
+    with np.errstate(divide="ignore", invalid="ignore"):  # a zero of either response: an infinite error
+        err = np.abs(20 * np.log10(np.abs(hq) / np.abs(hf)))
+    return float(np.max(np.nan_to_num(err, nan=np.inf)))
 
 
 def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo: float, band_hz: float) -> float:
@@ -132,8 +134,14 @@ def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo:
         recursion = [[1.0, 0.0, 0.0] + rows[k][3:]]  # 1 / A_k(z): the rounding is inside the loop
         total += band(2.0 ** (-2 * s.q_out) / 12, recursion + rows[k + 1 :])
     if f.sections[-1].q_out > out_bits - 1:  # the output word rounds only when it is coarser
-        total += band(2.0 ** (-2 * (out_bits - 1)) / 12, [])
+        total += word_noise(out_bits, out_hz, band_lo, band_hz)
     return total
+
+
+def word_noise(out_bits: int, out_hz: float, band_lo: float, band_hz: float) -> float:
+    """In-band noise of rounding to the output word (q^2 / 12, white) in full-scale^2 units: the
+    floor of the output format itself, which the float reference rounded to the same word has too."""
+    return 2.0 ** (-2 * (out_bits - 1)) / 12 * 2.0 / out_hz * (band_hz - band_lo)
 
 
 def limit_cycle_lsb(f: Filters, steps: int = 3000, seed: int = 1) -> list[float]:
