@@ -217,3 +217,24 @@ def test_edge_isr_must_finish_before_the_next_edge(tmp_path):
     with pytest.raises(edgetally.SpecError) as err:
         plan(spec, scheme="interrupt")
     assert "outlasts the shortest interval between edges (32 cycles)" in str(err.value)
+
+
+def test_a_budget_no_design_meets_names_the_cost_that_stops_it():
+    # a 16 MHz M0+ class part with only a pin interrupt and a 3.4 kHz voice band (issue 11): no
+    # design fits 60 %; the refusal names where the cheapest design's cycles go, and the cheapest
+    # timestamp design's, so the user sees that the output chain is what stops it
+    raw = {"name": "voice", "signal": {"if_hz": 20000, "deviation_hz": 5000, "audio_hz": 3400},
+           "output": {"rate_hz": 8000, "format": "s16"},
+           "target": {"core": "cortex-m0plus", "cpu_hz": 16e6, "timer_hz": 16e6, "timer_bits": 16,
+                      "has_capture": False, "has_edge_irq": True, "has_counter": False,
+                      "irq_jitter_cycles": 4, "cpu_budget": 0.6}}
+    with pytest.raises(edgetally.SpecError) as e:
+        plan(edgetally.parse_spec(raw))
+    msg = str(e.value)
+    assert e.value.field == "target.cpu_budget" and "every design exceeds it" in msg
+    assert msg.count("output chain") == 2 and "cycles per sample" in msg and "cheapest timestamp design" in msg
+    # the shares add up to the quoted load (rounded to 0.1 % each)
+    import re
+
+    total, out, rest = (float(v) for v in re.findall(r"([\d.]+)%", msg)[:3])
+    assert abs(out + rest - total) <= 0.15

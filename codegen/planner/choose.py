@@ -406,6 +406,16 @@ def _collapse_missing_hardware(rows: list[Option]) -> list[Option]:
     return out
 
 
+def _split(spec: Spec, c: _Cand) -> str:
+    """Where a candidate's load goes: the output chain (cycles per output sample, its share) and
+    the rest (edges, inputs and grid instants)."""
+    out = spec.output.rate_hz * c.load.per_output / spec.target.cpu_hz
+    return (
+        f"output chain {c.load.per_output} cycles per sample = {out:.1%}, edges, inputs and grid "
+        f"instants {c.load.fraction - out:.1%}"
+    )
+
+
 def _refusal(spec: Spec, scheme: str | None, per_variant) -> SpecError:
     """The clearest single reason why no option is feasible, on the field the user should change."""
     tgt = spec.target
@@ -423,12 +433,16 @@ def _refusal(spec: Spec, scheme: str | None, per_variant) -> SpecError:
     loads = [c for c in cands if c.front is not None and not c.option.reason.startswith("the part")]
     if loads:
         low = min(loads, key=lambda c: c.option.load)
-        return SpecError(
-            "target.cpu_budget",
-            tgt.cpu_budget,
+        text = (
             f"every design exceeds it: the cheapest ({low.variant.scheme} {low.variant.label}, "
-            f"R={low.option.ratio}) needs {low.option.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core}",
+            f"R={low.option.ratio}) needs {low.option.load:.1%} of a {tgt.cpu_hz / 1e6:g} MHz {tgt.core} "
+            f"({_split(spec, low)})"
         )
+        stamps = [c for c in loads if c.variant.front == "stamp"]
+        if stamps and low.variant.front != "stamp":
+            st = min(stamps, key=lambda c: c.option.load)
+            text += f"; the cheapest timestamp design ({st.variant.label}, R={st.option.ratio}) {_split(spec, st)}"
+        return SpecError("target.cpu_budget", tgt.cpu_budget, text)
     return SpecError(
         "target.timer_hz", tgt.timer_hz, "no design fits: " + "; ".join(sorted({c.option.reason for c in cands}))
     )
