@@ -49,6 +49,7 @@ def design(request, designs):
 
 # --- Hogenauer 1981: the paper's own pruning example --------------------------------------------
 
+
 def test_hogenauer_published_example():
     # Hogenauer 1981, design example (N=4, R=25, M=1, Bin=16, Bout=16), values from memory of the
     # paper's table: Bmax = 16 + ceil(4 log2 25) = 35 bits, bits discarded at stages 1..8:
@@ -62,6 +63,7 @@ def test_hogenauer_published_example():
 
 # --- Limit cycles (Jackson 1969) ----------------------------------------------------------------
 
+
 def test_limit_cycles_within_jackson_dead_band(design):
     f = design.filters
     measured = wordlength.limit_cycle_lsb(f)
@@ -70,7 +72,7 @@ def test_limit_cycles_within_jackson_dead_band(design):
         est = wordlength.jackson_dead_band(s, f.coef_bits)
         # Jackson 1969, recomputed from the integers: 0.5 / (1 - |a2|) (first order: |a1|).
         a = s.a2 if s.a2 else s.a1
-        assert est == pytest.approx(0.5 / (1 - abs(a) / 2.0 ** f.coef_bits), rel=1e-12)
+        assert est == pytest.approx(0.5 / (1 - abs(a) / 2.0**f.coef_bits), rel=1e-12)
         # The measurement is an amplitude of integer outputs.
         assert m >= 0 and m == int(m)
         # At most Jackson's estimate rounded up, plus 1 LSB: the estimate is approximate (it rests on
@@ -104,12 +106,11 @@ def test_limit_cycle_exists_near_unit_circle():
     # a1 = -1.8 in Q14, 16-bit data. Jackson 1969: rounding makes the effective a2 equal to 1 for
     # |y| <= 0.5 / (1 - 0.95) = 10 LSB, so zero-input limit cycles of up to about 10 LSB exist.
     cb = 14
-    a1, a2 = round(-1.8 * 2 ** cb), round(0.95 * 2 ** cb)
+    a1, a2 = round(-1.8 * 2**cb), round(0.95 * 2**cb)
     sec = Section("lowpass", 1 << cb, 0, 0, a1, a2, q_out=11, float_sos=(1.0, 0.0, 0.0, 1.0, -1.8, 0.95))
-    f = Filters(data_bits=16, coef_bits=cb, coef_width=16, acc_bits=32, scaling="l1", limit=32767,
-                sections=(sec,))
+    f = Filters(data_bits=16, coef_bits=cb, coef_width=16, acc_bits=32, scaling="l1", limit=32767, sections=(sec,))
     est = wordlength.jackson_dead_band(sec, cb)
-    assert est == pytest.approx(0.5 / (1 - a2 / 2 ** cb), rel=1e-12)      # 10.0 LSB
+    assert est == pytest.approx(0.5 / (1 - a2 / 2**cb), rel=1e-12)  # 10.0 LSB
     # Certainly a limit cycle: the independent iteration finds a nonzero periodic orbit.
     amps = _zero_input_cycles(sec, cb, f.limit, [(f.limit, f.limit), (10, 0), (5, -5), (3, 3), (-20, 7)])
     assert len(amps) == 5 and max(amps) > 0
@@ -123,10 +124,17 @@ def test_limit_cycle_exists_near_unit_circle():
 
 # --- Coefficient word length ---------------------------------------------------------------------
 
-@pytest.mark.parametrize("c", [
-    0.5, 0.75, 0.9999, -0.99999,
-    0.99999,   # rounds to 32768 in Q15: one past the int16 range, so Q14
-])
+
+@pytest.mark.parametrize(
+    "c",
+    [
+        0.5,
+        0.75,
+        0.9999,
+        -0.99999,
+        0.99999,  # rounds to 32768 in Q15: one past the int16 range, so Q14
+    ],
+)
 def test_coef_bits_for_holds_the_rounded_coefficients(c):
     # C11 7.20.1.1: int16_t is two's complement, 16 bits: it holds -2^15 .. 2^15 - 1. The Q format
     # chosen for 16-bit coefficients must hold every coefficient after rounding, and be the largest
@@ -136,14 +144,14 @@ def test_coef_bits_for_holds_the_rounded_coefficients(c):
     cb = wordlength.coef_bits_for(rows, 11, [11], 16)
     sec = iir.quantise_rows(rows, ["lowpass"], 11, [11], cb)[0]
     for v in (sec.b0, sec.b1, sec.b2, sec.a1, sec.a2):
-        assert -(2 ** 15) <= v <= 2 ** 15 - 1, (cb, v)
-    assert not -(2 ** 15) <= round(c * 2.0 ** (cb + 1)) <= 2 ** 15 - 1     # one more bit would not fit
+        assert -(2**15) <= v <= 2**15 - 1, (cb, v)
+    assert not -(2**15) <= round(c * 2.0 ** (cb + 1)) <= 2**15 - 1  # one more bit would not fit
 
 
 # --- Roundoff noise (Jackson 1970) on the narrow arithmetic -------------------------------------
 
-NOISE_N = 1 << 15          # 4 s at 8 kHz: ~5400 independent in-band bins (Hann ENBW 1.5 bins)
-NOISE_LEVEL = 0.3          # peak of the test signal, full-scale units
+NOISE_N = 1 << 15  # 4 s at 8 kHz: ~5400 independent in-band bins (Hann ENBW 1.5 bins)
+NOISE_LEVEL = 0.3  # peak of the test signal, full-scale units
 NOISE_TONES = 40
 
 
@@ -162,21 +170,21 @@ def noise_run(designs):
     fs = d.rates.out_hz
     rng = np.random.default_rng(2024)
     n = np.arange(NOISE_N)
-    freqs = rng.uniform(50.0, 0.9 * d.audio_hz, NOISE_TONES)      # band-limited, inside [20 Hz, audio]
+    freqs = rng.uniform(50.0, 0.9 * d.audio_hz, NOISE_TONES)  # band-limited, inside [20 Hz, audio]
     phases = rng.uniform(0.0, 2 * np.pi, NOISE_TONES)
     s = np.sum(np.cos(2 * np.pi * freqs[:, None] / fs * n + phases[:, None]), axis=0)
     s *= NOISE_LEVEL / np.max(np.abs(s))
     # CIC units per full-scale deviation, from the Scale rule u = rshr((y - centre) mult, shift) in
     # Q(q): one full scale is 2^q data LSB = 2^q 2^shift / mult CIC LSB.
-    cic_per_fs = 2.0 ** sc.q * 2.0 ** sc.shift / sc.mult
+    cic_per_fs = 2.0**sc.q * 2.0**sc.shift / sc.mult
     y = sc.centre + np.round(s * cic_per_fs).astype(np.int64)
     out, sats, clips = model.post_chain(d, y)
-    assert sats == 0 and clips == 0                  # premise: well inside every limit
+    assert sats == 0 and clips == 0  # premise: well inside every limit
     # Float reference with no rounding at all: the exact scaled input (the Scale rule without rshr),
     # the offset tracker as reference.py writes it, the quantised rows (wordlength.quantised_rows), and the
     # output word unrounded; all in full-scale units.
-    u = (y - sc.centre).astype(np.float64) * sc.mult / 2.0 ** sc.shift / 2.0 ** sc.q
-    alpha = 2.0 ** -sc.dc_shift
+    u = (y - sc.centre).astype(np.float64) * sc.mult / 2.0**sc.shift / 2.0**sc.q
+    alpha = 2.0**-sc.dc_shift
     dc = signal.lfilter([0.0, alpha], [1.0, alpha - 1.0], u)
     ref = signal.sosfilt(np.array(wordlength.quantised_rows(f, sc.q)), u - dc)
     bits = 16 if d.output.format == "s16" else int(d.output.format[1:])
@@ -215,6 +223,7 @@ def test_roundoff_noise_prediction_counts_every_rounding(noise_run):
 
 # --- The overflow certificate ---------------------------------------------------------------------
 
+
 def _cert(d):
     return {r.name: r for r in d.certificate}
 
@@ -222,7 +231,7 @@ def _cert(d):
 def test_certificate_margins(design):
     # Every register: margin_bits = log2((2^(bits-1) - 1) / bound) (ir.Register), >= 0: cannot wrap.
     regs = _cert(design)
-    assert len(regs) == len(design.certificate)            # names are unique
+    assert len(regs) == len(design.certificate)  # names are unique
     for k in range(len(design.filters.sections)):
         for part in ("product", "acc", "out"):
             assert f"iir.{k}.{part}" in regs
@@ -293,9 +302,8 @@ def _worst_signs(d, k, length):
 
 
 def _length(d):
-    cb = 2.0 ** d.filters.coef_bits
-    r = max(float(np.max(np.abs(np.roots([1.0, s.a1 / cb, s.a2 / cb])), initial=0.0))
-            for s in d.filters.sections)
+    cb = 2.0**d.filters.coef_bits
+    r = max(float(np.max(np.abs(np.roots([1.0, s.a1 / cb, s.a2 / cb])), initial=0.0)) for s in d.filters.sections)
     # r^L < 1e-20: the L1 norm's neglected tail is below 1e-19 / (1 - r) of the input level
     return int(math.ceil(math.log(1e-20) / math.log(max(r, 1e-3)))) + 50
 
@@ -304,7 +312,7 @@ def _rounding_bound(d, k, length):
     """|integer - exact (quantised coefficients)| at section k's output, its LSB: each section adds
     |e| <= 1/2 inside its recursion, D_k = ||h'_k||_1 D_(k-1) + 0.5 ||1/A'_k||_1 (rows in the
     sections' own LSB)."""
-    cb = 2.0 ** d.filters.coef_bits
+    cb = 2.0**d.filters.coef_bits
     imp = np.zeros(length)
     imp[0] = 1.0
     dd = 0.0
@@ -327,7 +335,7 @@ def _check_nodes(d, nodes):
         assert acc_peak <= regs[f"iir.{j}.acc"].bound, (j, acc_peak)
         assert acc_peak <= 2 ** (f.acc_bits - 1) - 1
         assert y_peak <= regs[f"iir.{j}.out"].bound, (j, y_peak, regs[f"iir.{j}.out"].bound)
-        assert yrs == yns                                      # nothing saturated
+        assert yrs == yns  # nothing saturated
         peaks.append(y_peak)
     return peaks
 
@@ -378,7 +386,7 @@ def test_certificate_holds_through_post_chain(design):
         for sg in signs:
             dc = rshr(acc, sc.dc_shift)
             want = int(sg) * level + dc
-            yv = int(min(max(sc.centre + round(want * 2.0 ** sc.shift / sc.mult), 0), y_max))
+            yv = int(min(max(sc.centre + round(want * 2.0**sc.shift / sc.mult), 0), y_max))
             u = sat(rshr(wrap_s32(yv - sc.centre) * sc.mult, sc.shift), -f.limit, f.limit)
             acc += u - dc
             ys.append(yv)
@@ -400,7 +408,10 @@ def test_certificate_holds_through_post_chain(design):
         # (the tracker drifts by at most length/2^dc_shift of the level and y steps by 1 CIC LSB),
         # and section k's last output is the L1 response to it within D_k.
         assert all(np.sign(v) == sg for v, sg in zip(vs, signs))
-        assert min(abs(v) for v in vs) >= 0.5 * level
+        # |dc| <= length * level / 2^dc_shift after `length` steps (each moves it by |v| / 2^dc_shift
+        # at most), and u is clipped to the scale range only by that drift, plus 1 LSB of y's step
+        drift = length / 2.0**sc.dc_shift
+        assert min(abs(v) for v in vs) >= (1 - drift) * level - abs(sc.mult) * 2.0**-sc.shift - 1
         exact = abs(float(np.dot(h, np.array(vs[::-1], dtype=np.float64))))
         dk = _rounding_bound(design, k, length)
         assert abs(abs(nodes[k][1][-1]) - exact) <= dk + 1e-9 * exact

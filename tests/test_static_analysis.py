@@ -27,7 +27,9 @@ import pytest
 from conftest import ALL_DESIGNS, EXAMPLES
 
 import edgetally
+from edgetally.designer.assemble import design as assemble_design
 from edgetally.emit import emit
+from edgetally.planner.choose import plan
 from edgetally.emit.deviations import DEVIATIONS, covers, header_text, markdown
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -36,7 +38,7 @@ TIDY_CHECKS = "-*,bugprone-*,cert-*,clang-analyzer-*"
 
 
 def _cubic_designs() -> dict:
-    """The four-stamp cubic estimator, which no bundled example chooses at its own CPU budget: the
+    """The four-stamp cubic estimator, where no bundled example chooses it at its own CPU budget: the
     stamp examples with the budget raised to 95 % (the planner then takes it where it gains), on
     their own core (no divide instruction: quotients through the interval's reciprocal) and, for
     orchard_link, on a core that divides (quotients by division)."""
@@ -47,6 +49,10 @@ def _cubic_designs() -> dict:
         if core is not None:
             raw["target"]["core"] = core
         out[f"{stem}:budget95" + (f"-{core}" if core else "")] = edgetally.design(edgetally.parse_spec(raw))
+    # the linear estimator through the reciprocal: orchard_link's own core (no divide) forced to it
+    spec = edgetally.parse_spec(tomllib.loads((EXAMPLES / "orchard_link.toml").read_text()))
+    p = plan(spec, scheme="timestamp", variant="k1-linear")
+    out["orchard_link:k1-linear"] = assemble_design(spec, p)
     return out
 
 
@@ -81,7 +87,7 @@ def _emitted(key: str) -> Path:
 
 def _sources(key: str) -> list[str]:
     p = DESIGNS[key].name
-    return [f"{p}.c", f"{p}_port.c"]         # both include <name>.h, so the header is checked too
+    return [f"{p}.c", f"{p}_port.c"]  # both include <name>.h, so the header is checked too
 
 
 def _need(tool: str) -> None:
@@ -92,9 +98,20 @@ def _need(tool: str) -> None:
 def _cppcheck(folder: Path, files: list[str]) -> list[tuple[str, int, str]]:
     """(file, line, id) of every cppcheck finding (MISRA ids are "misra-c2012-<rule>")."""
     r = subprocess.run(
-        ["cppcheck", "--addon=misra", "--std=c99", "--quiet", "--enable=warning,style,portability,performance",
-         "--template={file}\t{line}\t{id}", *files],
-        cwd=folder, capture_output=True, text=True, timeout=600)
+        [
+            "cppcheck",
+            "--addon=misra",
+            "--std=c99",
+            "--quiet",
+            "--enable=warning,style,portability,performance",
+            "--template={file}\t{line}\t{id}",
+            *files,
+        ],
+        cwd=folder,
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
     assert r.returncode == 0, r.stderr
     found = []
     for line in (r.stdout + r.stderr).splitlines():
@@ -131,7 +148,8 @@ def test_cppcheck_misra_finds_a_known_violation(tmp_path):
         "#include <stdint.h>\n"
         "uint32_t bad_pick(uint32_t x);\n"
         "uint32_t bad_pick(uint32_t x)\n{\n    uint32_t r = x;\n    if (x > 3u && x < 9u) {\n        r = 0x80000000;\n    }\n"
-        "    return r;\n}\n")
+        "    return r;\n}\n"
+    )
     ids = {ident for _, _, ident in _cppcheck(tmp_path, ["bad.c"])}
     assert {"misra-c2012-12.1", "misra-c2012-7.2"} <= ids
 
@@ -175,8 +193,12 @@ def test_header_and_readme_print_the_deviation_list():
 
 def _tidy(folder: Path, files: list[str]) -> subprocess.CompletedProcess:
     return subprocess.run(
-        ["clang-tidy", "--quiet", f"--checks={TIDY_CHECKS}", "--warnings-as-errors=*", *files, "--", "-std=c99",
-         "-I."], cwd=folder, capture_output=True, text=True, timeout=600)
+        ["clang-tidy", "--quiet", f"--checks={TIDY_CHECKS}", "--warnings-as-errors=*", *files, "--", "-std=c99", "-I."],
+        cwd=folder,
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
 
 
 def _findings(text: str) -> list[str]:
@@ -187,7 +209,9 @@ def test_clang_tidy_finds_a_known_defect(tmp_path):
     """A null pointer written through: clang-analyzer-core.NullDereference (clang's static
     analyzer documentation)."""
     _need("clang-tidy")
-    (tmp_path / "bad.c").write_text("void bad_store(int v);\nvoid bad_store(int v)\n{\n    int *q = 0;\n    *q = v;\n}\n")
+    (tmp_path / "bad.c").write_text(
+        "void bad_store(int v);\nvoid bad_store(int v)\n{\n    int *q = 0;\n    *q = v;\n}\n"
+    )
     r = _tidy(tmp_path, ["bad.c"])
     assert r.returncode != 0 and any("NullDereference" in ln for ln in _findings(r.stdout + r.stderr))
 
@@ -201,8 +225,13 @@ def test_clang_tidy_clean(key):
 
 
 def _analyze(folder: Path, file: str) -> subprocess.CompletedProcess:
-    return subprocess.run(["gcc", *STRICT, "-fanalyzer", "-I.", "-c", file, "-o", "/dev/null"],
-                          cwd=folder, capture_output=True, text=True, timeout=600)
+    return subprocess.run(
+        ["gcc", *STRICT, "-fanalyzer", "-I.", "-c", file, "-o", "/dev/null"],
+        cwd=folder,
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
 
 
 def test_gcc_analyzer_finds_a_known_defect(tmp_path):
@@ -210,7 +239,8 @@ def test_gcc_analyzer_finds_a_known_defect(tmp_path):
     _need("gcc")
     (tmp_path / "bad.c").write_text(
         "#include <stdlib.h>\nvoid bad_twice(void);\nvoid bad_twice(void)\n{\n    void *m = malloc(4u);\n"
-        "    free(m);\n    free(m);\n}\n")
+        "    free(m);\n    free(m);\n}\n"
+    )
     r = _analyze(tmp_path, "bad.c")
     assert r.returncode != 0 and "double-free" in r.stderr
 

@@ -10,7 +10,9 @@ from conftest import EXAMPLE_FILES, EXAMPLES
 
 
 def _widths(*args):
-    return subprocess.run([sys.executable, "-m", "edgetally", "widths", *map(str, args)], capture_output=True, text=True)
+    return subprocess.run(
+        [sys.executable, "-m", "edgetally", "widths", *map(str, args)], capture_output=True, text=True
+    )
 
 
 @pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
@@ -20,7 +22,7 @@ def test_every_example_is_safe(path):
     rep = json.loads(r.stdout)
     assert rep["ok"] and rep["bit_exact"] is True and not rep["failures"]
     assert all(reg["margin_bits"] >= 0 for reg in rep["registers"])
-    assert rep["simulated_loss_db"] <= 0.5              # issue acceptance: loss at most 0.5 dB
+    assert rep["simulated_loss_db"] <= 0.5  # issue acceptance: loss at most 0.5 dB
 
 
 def test_too_narrow_accumulator_is_named():
@@ -36,12 +38,29 @@ def test_too_narrow_accumulator_is_named():
 
 
 def test_too_few_coefficient_bits_fail_the_response():
-    r = _widths(EXAMPLES / "orchard_link.toml", "--set", "filters.coef_bits=6", "--no-simulate")
+    # the 64-bit accumulator takes any coefficient width; 6 bits move the poles (the check's job)
+    r = _widths(
+        EXAMPLES / "orchard_link.toml", "--set", "filters.arith=wide", "--set", "filters.coef_bits=6", "--no-simulate"
+    )
     assert r.returncode == 1 and "response error" in r.stdout
 
 
-@pytest.mark.parametrize("sets", [["filters.coef_bits=20"], ["filters.arith=narrow"], ["filters.scaling=l2"]],
-                         ids=lambda s: s[0])
+def test_split_arithmetic_names_its_coefficient_range():
+    # the split 16-bit coefficient products hold Q8..Q16 only: a width outside is a spec error
+    r = _widths(EXAMPLES / "orchard_link.toml", "--set", "filters.arith=mid", "--set", "filters.coef_bits=6")
+    assert r.returncode == 2 and r.stderr.count("\n") == 1 and "Q8..Q16" in r.stderr
+
+
+@pytest.mark.parametrize(
+    "sets",
+    [
+        ["filters.arith=wide", "filters.coef_bits=20"],
+        ["filters.arith=mid"],
+        ["filters.arith=narrow"],
+        ["filters.arith=wide", "filters.scaling=l2"],
+    ],
+    ids=lambda s: ",".join(s),
+)
 def test_changed_widths_stay_bit_exact(sets):
     """Issue acceptance: bit-exact verification still passes after every width change (whether or
     not the new widths meet the noise target)."""
