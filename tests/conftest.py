@@ -1,3 +1,4 @@
+import shutil
 from pathlib import Path
 
 import pytest
@@ -46,3 +47,13 @@ def host_for(hosts: dict, key: str):
 def designs():
     """Every bundled example's chosen Design, by file stem."""
     return {k.split(":")[0]: d for k, d in ALL_DESIGNS.items() if k.endswith(":auto")}
+
+
+def host_cc() -> str | None:
+    """The desktop C compiler the tests compile small harnesses with, or None."""
+    from edgetally.check import hostbuild
+
+    for name in (hostbuild.compiler(), "cc", "gcc"):
+        if name and shutil.which(name):
+            return name
+    return None

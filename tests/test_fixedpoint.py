@@ -13,7 +13,6 @@ All comparisons are of integers: exact equality, no tolerance.
 from __future__ import annotations
 
 import math
-import shutil
 import struct
 import subprocess
 from fractions import Fraction
@@ -24,17 +23,12 @@ import pytest
 
 import edgetally
 from edgetally.check import hostbuild
+
+from conftest import host_cc
 from edgetally.fixedpoint import c_definitions, ratio_floor, rshr, sat, wrap_s32
 
 ROOT = Path(__file__).resolve().parents[1]
 I64_MIN, I64_MAX = -(1 << 63), (1 << 63) - 1
-
-
-def _cc():
-    for name in (hostbuild.compiler(), "cc", "gcc"):
-        if name and shutil.which(name):
-            return name
-    return None
 
 
 HARNESS = r"""
@@ -142,7 +136,7 @@ def _cases():
 
 
 def _run_harness(tmp_path, extra_flags):
-    cc = _cc()
+    cc = host_cc()
     if cc is None:
         pytest.skip("no C compiler found (looked for $CC, cc, gcc)")
     src = tmp_path / "fx_harness.c"
@@ -188,7 +182,7 @@ def test_c_matches_python(tmp_path):
 def test_c_matches_python_under_ubsan(tmp_path):
     # Same table with GCC's undefined-behaviour sanitizer: no signed overflow, no bad shift on any input
     # in the functions' stated domains.
-    cc = _cc()
+    cc = host_cc()
     if cc is None:
         pytest.skip("no C compiler found (looked for $CC, cc, gcc)")
     probe = tmp_path / "probe.c"

@@ -14,7 +14,6 @@ random sample of numerators with their edges.
 
 from __future__ import annotations
 
-import shutil
 import subprocess
 from fractions import Fraction
 
@@ -25,7 +24,7 @@ from edgetally.check import hostbuild
 from edgetally.fixedpoint import (CUBIC_CORR_SHIFT, CUBIC_T_BITS, INV6, c_definitions, cubic_shifts,
                                   interval_fraction, interval_reciprocal, ratio_recip, recip_plan, reciprocal, rshr)
 
-from conftest import ALL_DESIGNS
+from conftest import ALL_DESIGNS, host_cc
 
 # (interval bits, phase shift): every bundled design's, and the corners the planner can reach
 # (bits + shift <= 32, shift 8..24, intervals of 3..24 bits).
@@ -102,13 +101,6 @@ def test_cubic_correction_in_32_bits(delta_limit):
     assert bound < 8
 
 
-def _cc():
-    for name in (hostbuild.compiler(), "cc", "gcc"):
-        if name and shutil.which(name):
-            return name
-    return None
-
-
 HARNESS = r"""
 #include <inttypes.h>
 #include <stdint.h>
@@ -152,7 +144,7 @@ int main(void)
 @pytest.mark.parametrize("bits,shift", DESIGN_CASES + [(20, 12), (16, 16)])
 @pytest.mark.parametrize("ubsan", [False, True])
 def test_c_reciprocal_equals_c_division(tmp_path, bits, shift, ubsan):
-    cc = _cc()
+    cc = host_cc()
     if cc is None:
         pytest.skip("no C compiler found (looked for $CC, cc, gcc)")
     extra = ["-fsanitize=undefined", "-fno-sanitize-recover=all"] if ubsan else []
