@@ -440,6 +440,12 @@ def squelch_level(lvl, a, shift: int, cap: int):
     return cap if v > cap else v
 
 
+def bit_errors(a: int, b: int, mask: int) -> int:
+    """The number of bits where a and b differ under mask (32-bit words): the sync-word correlator's
+    distance (a population count of (a ^ b) & mask)."""
+    return bin((a ^ b) & mask & 0xFFFFFFFF).count("1")
+
+
 # C renderings of the same operations. ``{p}`` is replaced by the design's name prefix.
 
 # clang-tidy's bugprone-easily-swappable-parameters flags helpers that take several words of one
@@ -564,6 +570,19 @@ static inline int32_t {p}_rshr32(int32_t x, unsigned s)
     /* rshr on 32-bit words, for |x| + 2^(s-1) < 2^31 (the certificate's cubic lines) */
     const uint32_t half = UINT32_C(1) << (s - 1u);
     return {p}_asr32(x + (int32_t)half, s);
+}}
+""",
+    "bit_errors": """\
+static inline uint32_t {p}_bit_errors(uint32_t a, uint32_t b, uint32_t mask)
+{{
+    /* the bits where a and b differ under mask, counted (edgetally.fixedpoint.bit_errors) */
+    uint32_t x = (a ^ b) & mask;
+    uint32_t n = 0u;
+    while (x != 0u) {{
+        x &= x - 1u;
+        n++;
+    }}
+    return n;
 }}
 """,
     "sat32": """\

@@ -210,6 +210,53 @@ class Squelch:
 
 
 @dataclass(frozen=True)
+class DataLink:
+    """The binary FSK data path (designed in ``designer.datalink``, whose docstring gives the loop
+    design), once per output sample on v, the scaled frequency after the offset tracker (the data
+    word the IIR sections get, Q(scale.q); its DC removal is the slicer's carrier-offset tracking):
+
+      w = sat(rshr(v, in_shift), +-w_limit)           (in_shift 0: no shift), Q12 per full scale
+      m = sum of the last ``taps`` w                    the filter matched to one bit
+      y = rshr(m, y_shift)                              |y| about ``amplitude`` for a clean bit
+      ph += step (mod 2**32)                           the bit clock; a wrap is a bit strobe,
+                                                        the first sample after it with ph >= 2**31
+                                                        the mid-bit strobe
+    at a mid strobe: ym = sat(y, +-mid_limit); at a bit strobe: bit = (y > 0), a = +-1, then the
+    zero-crossing timing detector e = ym (a - a_prev) (Gardner's detector with decisions in place
+    of the end samples), the loop integ = sat(integ + e ki, +-integ_limit),
+    corr = sat(e kp + integ, +-corr_limit), added to ph at the next mid strobe (where ph is near 2**31,
+    so the jump never crosses a wrap: |corr| <= 2**29, step <= 2**30); the lock detector
+    ay += |y| - (ay >> lock_shift), on a transition am += |ym| - (am >> lock_shift), locked while
+    4 am < ay and ay >= lock_min; the bit into the ring (``ring_bits``) and the sync shift register;
+    a sync match (at most sync_errors differing bits in the last sync_bits) starts a frame of
+    frame_bytes bytes, MSB first."""
+
+    bit_rate_hz: float
+    samples_per_bit: float  # output rate / bit rate
+    in_shift: int
+    w_limit: int
+    taps: int
+    y_shift: int
+    amplitude: int  # |y| of a clean full-deviation bit (the detector's and the lock's scale)
+    step: int
+    mid_limit: int
+    kp: int
+    ki: int
+    integ_limit: int
+    corr_limit: int
+    lock_shift: int
+    lock_min: int
+    ring_bits: int
+    sync_word: int
+    sync_bits: int
+    sync_errors: int
+    frame_bytes: int
+    loop_bandwidth: float  # BnT the gains were designed for
+    damping: float
+    kind: str = "fsk"
+
+
+@dataclass(frozen=True)
 class Register:
     """One line of the overflow certificate: the worst |value| any input the spec allows can give
     (inputs are clamped at the front end, so "any edge pattern" is covered), against the width."""
@@ -265,6 +312,7 @@ class Design:
     budget: Budget
     squelch: Squelch
     certificate: tuple[Register, ...] = ()
+    data: DataLink | None = None  # the FSK data path after the offset tracker, or None (audio only)
 
     # --- derived facts: each defined once here, read by emit, the checks, the measurements ---
 
@@ -374,7 +422,9 @@ def _build(tp, value):
             raise ValueError(f"{tp.__name__}: unknown fields {sorted(unknown)}")
         return tp(**{f.name: _build(hints[f.name], value[f.name]) for f in dataclasses.fields(tp)})
     if origin in (typing.Union, types.UnionType):
-        kinds = {a.kind: a for a in typing.get_args(tp)}
+        if value is None:
+            return None
+        kinds = {a.kind: a for a in typing.get_args(tp) if a is not type(None)}
         return _build(kinds[value["kind"]], value)
     if origin is tuple:
         args = typing.get_args(tp)

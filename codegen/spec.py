@@ -145,6 +145,21 @@ class Fixed:
 
 
 @dataclass(frozen=True)
+class Data:
+    """A binary FSK data link after the front end (the [data] table): NRZ bits, a higher frequency
+    for a 1. ``sync_bits`` 0 means no framing (bits only)."""
+
+    bit_rate_hz: float
+    sync_word: int = 0
+    sync_bits: int = 0
+    sync_errors: int = 0  # bit errors the sync-word correlator still accepts
+    frame_bytes: int = 0  # bytes after the sync word that make one frame
+    line_code: str = "nrz"
+    loop_bandwidth: float = 0.02  # bit-clock loop noise bandwidth times the bit period (BnT)
+    rate_tolerance: float = 0.02  # largest bit-rate error the loop's integrator can follow (fraction)
+
+
+@dataclass(frozen=True)
 class Spec:
     name: str
     signal: Signal
@@ -152,10 +167,13 @@ class Spec:
     target: Target
     fixed: Fixed = Fixed()
     warnings: tuple[str, ...] = field(default=(), compare=False)
+    data: Data | None = None
 
     def to_dict(self) -> dict:
         d = dataclasses.asdict(self)
         d.pop("warnings")
+        if d["data"] is None:
+            d.pop("data")  # specs without a [data] table keep their hash
         return d
 
 
@@ -165,6 +183,16 @@ _SECTIONS = {
     "signal": {"if_hz", "deviation_hz", "audio_hz", "deemphasis_us", "squelch_cnr_db"},
     "output": {"rate_hz", "format", "full_scale_hz"},
     "fixed": {"loss_limit_db", "response_tol_db", "scaling", "arith", "droop_limit_db"},
+    "data": {
+        "bit_rate_hz",
+        "sync_word",
+        "sync_bits",
+        "sync_errors",
+        "frame_bytes",
+        "line_code",
+        "loop_bandwidth",
+        "rate_tolerance",
+    },
     "target": {
         "core",
         "cpu_hz",
@@ -217,6 +245,16 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "fixed.loss_limit_db": (0.05, 40.0, "dB"),
     "fixed.response_tol_db": (1e-3, 6.0, "dB"),
     "fixed.droop_limit_db": (0.0, 20.0, "dB (0: never compensate)"),
+    # the bit clock's step is a 32-bit phase increment of at most 2**30 (four samples per bit)
+    "data.bit_rate_hz": (1.0, 250_000, "bits per second (at most a quarter of the 1 MHz output-rate limit)"),
+    "data.sync_bits": (0, 32, "bits (0: no framing; the correlator holds at most 32)"),
+    "data.sync_word": (0, UINT32_MAX, "a whole number below 2**sync_bits"),
+    "data.sync_errors": (0, 8, "bit errors"),
+    "data.frame_bytes": (0, 256, "bytes (0: no framing)"),
+    # the loop's normalised noise bandwidth: below 0.002 it acquires in thousands of bits, above 0.05
+    # its proportional step (Rice's gains, designer.datalink) leaves the 32-bit product's headroom
+    "data.loop_bandwidth": (0.002, 0.05, "times the bit rate"),
+    "data.rate_tolerance": (0.001, 0.05, "a fraction of the bit rate"),
 }
 
 
@@ -329,7 +367,7 @@ def parse_spec(raw: dict) -> Spec:
     sig = Signal(
         if_hz=_number(s, "signal", "if_hz"),
         deviation_hz=_number(s, "signal", "deviation_hz"),
-        audio_hz=_number(s, "signal", "audio_hz"),
+        audio_hz=_number(s, "signal", "audio_hz", default=_data_band(raw)),
         deemphasis_us=_number(s, "signal", "deemphasis_us", default=0.0),
         squelch_cnr_db=_number(s, "signal", "squelch_cnr_db", default=SQUELCH_CNR_DB),
     )
@@ -378,7 +416,101 @@ def parse_spec(raw: dict) -> Spec:
 
     fx = _fixed(raw)
     _physics(sig, out, tgt, warnings)
-    return Spec(name=name, signal=sig, output=out, target=tgt, fixed=fx, warnings=tuple(warnings))
+    data = _data(raw, sig, out, warnings)
+    return Spec(name=name, signal=sig, output=out, target=tgt, fixed=fx, warnings=tuple(warnings), data=data)
+
+
+# Binary FSK rules (the [data] table). Common practice, no source: a limiter-discriminator with a
+# bit-long integrator separates the tones from a modulation index of about 0.5 (MSK spacing) up; at
+# least two IF cycles per bit at the lowest instantaneous frequency keep the count per bit
+# meaningful; four samples per bit is the least the bit-clock loop's strobes (whole samples, no
+# interpolation) work with, and 32 the most its matched filter's ring holds.
+MIN_MOD_INDEX = 0.5
+MIN_IF_CYCLES_PER_BIT = 2.0
+SAMPLES_PER_BIT = (4, 32)
+LINE_CODES = ("nrz",)
+
+
+def _data_band(raw: dict) -> float | None:
+    """signal.audio_hz of a data spec that leaves it out: the bit rate (the band of NRZ data up to
+    its spectrum's first null)."""
+    d = raw.get("data")
+    if isinstance(d, dict) and "bit_rate_hz" in d:
+        v = d["bit_rate_hz"]
+        if not isinstance(v, bool) and isinstance(v, (int, float)) and math.isfinite(v) and v > 0:
+            return float(v)
+    return None
+
+
+def _data(raw: dict, sig: Signal, out: Output, warnings: list[str]) -> Data | None:
+    """The [data] table, or None; refuses what a data link cannot do (see the rules above)."""
+    if "data" not in raw:
+        return None
+    t = raw["data"]
+    if not isinstance(t, dict):
+        raise SpecError("data", t, "must be a table [data]")
+    _check_keys(t, "data", _SECTIONS["data"])
+    code = t.get("line_code", "nrz")
+    if code not in LINE_CODES:
+        raise SpecError("data.line_code", code, "must be one of " + ", ".join(f'"{c}"' for c in LINE_CODES))
+    d = Data(
+        bit_rate_hz=_number(t, "data", "bit_rate_hz"),
+        sync_word=_integer(t, "data", "sync_word", default=0),
+        sync_bits=_integer(t, "data", "sync_bits", default=0),
+        sync_errors=_integer(t, "data", "sync_errors", default=0),
+        frame_bytes=_integer(t, "data", "frame_bytes", default=0),
+        line_code=code,
+        loop_bandwidth=_number(t, "data", "loop_bandwidth", default=0.02),
+        rate_tolerance=_number(t, "data", "rate_tolerance", default=0.02),
+    )
+    rb, df = d.bit_rate_hz, sig.deviation_hz
+    h = 2 * df / rb
+    if h < MIN_MOD_INDEX:
+        raise SpecError(
+            "signal.deviation_hz",
+            df,
+            f"gives a modulation index 2 deviation / bit rate of {h:.3g}; a discriminator needs at least "
+            f"{MIN_MOD_INDEX:g} (deviation at least {MIN_MOD_INDEX * rb / 2:g} Hz at {rb:g} bit/s)",
+        )
+    cycles = (sig.if_hz - df) / rb
+    if cycles < MIN_IF_CYCLES_PER_BIT:
+        raise SpecError(
+            "data.bit_rate_hz",
+            rb,
+            f"is too fast for the IF: {cycles:.3g} cycles per bit at the lowest frequency if_hz - deviation_hz, "
+            f"need at least {MIN_IF_CYCLES_PER_BIT:g} (at most {(sig.if_hz - df) / MIN_IF_CYCLES_PER_BIT:g} bit/s)",
+        )
+    sps = out.rate_hz / rb
+    lo, hi = SAMPLES_PER_BIT
+    if not lo <= sps <= hi:
+        raise SpecError(
+            "data.bit_rate_hz",
+            rb,
+            f"gives {sps:.3g} samples per bit at output.rate_hz {out.rate_hz}; allowed {lo} to {hi} "
+            f"(bit rates {out.rate_hz / hi:g} to {out.rate_hz / lo:g} bit/s)",
+        )
+    if sig.audio_hz < 0.5 * rb:
+        raise SpecError(
+            "signal.audio_hz",
+            sig.audio_hz,
+            f"must be at least half the bit rate ({0.5 * rb:g} Hz) for data: leave it out to take the bit rate",
+        )
+    if d.sync_bits:
+        if d.sync_word >> d.sync_bits:
+            raise SpecError("data.sync_word", d.sync_word, f"must be below 2**sync_bits ({1 << d.sync_bits})")
+        if 4 * d.sync_errors > d.sync_bits:
+            # a random bit stream matches n bits with k errors or fewer with probability
+            # sum_{i<=k} C(n, i) / 2**n per bit: above n / 4 false frames on noise are frequent
+            raise SpecError(
+                "data.sync_errors", d.sync_errors, f"must be at most a quarter of sync_bits ({d.sync_bits // 4})"
+            )
+        if d.frame_bytes < 1:
+            raise SpecError("data.frame_bytes", d.frame_bytes, "must be 1 to 256 when a sync word is given")
+    elif d.frame_bytes or d.sync_word or d.sync_errors:
+        raise SpecError("data.sync_bits", 0, "must give the sync word's length (1 to 32) when framing is asked for")
+    if h > 4:
+        warnings.append(f"modulation index {h:.3g} is large: the link uses far more band than the bits need")
+    return d
 
 
 def _fixed(raw: dict) -> Fixed:

@@ -30,4 +30,21 @@ def compare(got: np.ndarray, counters: dict, want) -> Comparison:
     extra = abs(got.size - want.out.size)
     first = int(diff[0]) if diff.size else (n if extra else None)
     match = all(counters[k] == getattr(want, k) for k in COUNTERS)
+    if want.data is not None:
+        match = match and data_match(counters.get("data"), want.data)
     return Comparison(int(n), int(diff.size) + extra, first, match)
+
+
+def data_match(got: dict | None, want) -> bool:
+    """The C's data path against the model's (``check.datamodel.DataRun``): every bit in full, the
+    bit, sync and frame counts, no ring overrun, every frame the C handed out equal to the model's
+    frame of the same number, and the lock status at the end."""
+    if got is None:
+        return False
+    bits_equal = got["bits"].size == want.bits.size and bool(np.array_equal(got["bits"], want.bits))
+    ok = bits_equal and got["bit_count"] == want.bits.size and got["bit_overruns"] == 0
+    ok = ok and got["locked"] == want.locked_end
+    if "frames" in got:
+        ok = ok and got["frames"] == len(want.frames) and got["syncs"] == want.syncs
+        ok = ok and all(0 < k <= len(want.frames) and want.frames[k - 1] == f for k, f in got["frames_read"])
+    return bool(ok)

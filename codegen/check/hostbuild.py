@@ -100,6 +100,45 @@ class HostDemod:
             "offset": int(self._fn("offset")(st)),
         }
 
+    def data_reader(self, st):
+        """For a data design: a function that drains the C's bit ring and notes a waiting frame
+        (with the frame count it completed), and the record it fills; for others (None, None)."""
+        dl = self.design.data
+        if dl is None:
+            return None, None
+        rec: dict = {"bits": [], "frames_read": []}
+        buf = self.ffi.new("uint8_t[]", dl.ring_bits)
+        fbuf = self.ffi.new("uint8_t[]", max(dl.frame_bytes, 1))
+        read = self._fn("bits_read")
+
+        def drain() -> None:
+            while True:
+                n = read(st, buf, dl.ring_bits)
+                rec["bits"].append(bytes(self.ffi.buffer(buf, n)))
+                if n < dl.ring_bits:
+                    break
+            if dl.sync_bits and self._fn("frame_ready")(st):
+                count = int(self._fn("frame_count")(st))
+                n = self._fn("frame_read")(st, fbuf, dl.frame_bytes)
+                rec["frames_read"].append((count, bytes(self.ffi.buffer(fbuf, n))))
+
+        return drain, rec
+
+    def data_counters(self, st, rec) -> dict:
+        """The data path's results and status after a run (see ``data_reader``)."""
+        bits = np.frombuffer(b"".join(rec["bits"]), dtype=np.uint8)
+        out = {
+            "bits": bits,
+            "bit_count": int(self._fn("bit_count")(st)),
+            "bit_overruns": int(self._fn("bit_overrun_count")(st)),
+            "locked": bool(self._fn("data_locked")(st)),
+            "frames_read": rec["frames_read"],
+        }
+        if self.design.data is not None and self.design.data.sync_bits:
+            out["frames"] = int(self._fn("frame_count")(st))
+            out["syncs"] = int(self._fn("sync_count")(st))
+        return out
+
     def process(
         self, inputs: np.ndarray, block: int = 4096, out_cap: int = 1024, lost=None, clock=None
     ) -> tuple[np.ndarray, dict]:
@@ -111,6 +150,10 @@ class HostDemod:
         ffi = self.ffi
         st = self.new_state()
         proc = self._fn("process")
+        drain, rec = self.data_reader(st)
+        if drain is not None:  # at most half the bit ring per call: read after each
+            dl = self.design.data
+            out_cap = min(out_cap, (dl.ring_bits // 2) * int(dl.samples_per_bit))
         inputs = np.ascontiguousarray(inputs, dtype=self.input_dtype)
         out = np.empty(out_cap, dtype=self.sample_dtype)
         out_ptr = ffi.cast(f"{self.design.name}_sample_t *", ffi.from_buffer(out))
@@ -128,6 +171,8 @@ class HostDemod:
                 while True:
                     n = self._fn("advance")(st, now, out_ptr, out_cap)
                     chunks.append(out[:n].copy())
+                    if drain is not None:
+                        drain()
                     if n < out_cap:
                         break
 
@@ -141,9 +186,14 @@ class HostDemod:
             while done < blk.size:
                 done += proc(st, base + done, blk.size - done, out_ptr, out_cap, produced)
                 chunks.append(out[: produced[0]].copy())
+                if drain is not None:
+                    drain()
         if inputs.size:
             advance(inputs.size)
-        return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), self.counters(st)
+        counters = self.counters(st)
+        if drain is not None:
+            counters["data"] = self.data_counters(st, rec)
+        return (np.concatenate(chunks) if chunks else np.zeros(0, dtype=self.sample_dtype)), counters
 
     def process_isr(
         self, inputs: np.ndarray, service_every: int, out_cap: int = 64, stall: tuple[int, int] | None = None

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..ir import Design
+from .datamodel import DataRun
+from . import datamodel
 from ..fixedpoint import (
     cubic_fraction,
     division_quotient,
@@ -41,6 +43,7 @@ class ModelRun:
     # run() sets both; None only in results made without the squelch
     squelch_open: np.ndarray = None  # type: ignore[assignment]   # per output sample: the squelch passed it
     unmuted: np.ndarray = None  # type: ignore[assignment]        # the output as it would be with the squelch open
+    data: DataRun | None = None  # the FSK data path's bits and frames (data designs)
 
 
 def unwrap(stamps: np.ndarray, timer_bits: int, max_delta: int) -> np.ndarray:
@@ -189,9 +192,10 @@ def cic_decimate(design: Design, x: np.ndarray) -> np.ndarray:
     return v[c.order :]
 
 
-def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
+def post_chain(design: Design, y: np.ndarray, taps: list | None = None) -> tuple[np.ndarray, int, int]:
     """Centre removal, scaling, the offset tracker, the IIR sections and the output format, one
-    sample at a time. Returns (output samples, saturations at internal nodes, clipped outputs)."""
+    sample at a time. Returns (output samples, saturations at internal nodes, clipped outputs).
+    ``taps``: a list that gets the data word after the offset tracker, per sample (the data path's input)."""
     sc, f, of = design.scale, design.filters, design.output
     lim, cb = f.limit, f.coef_bits
     raw = rshr(wrap_s32(y.astype(np.int64) - sc.centre) * sc.mult, sc.shift)
@@ -210,6 +214,8 @@ def post_chain(design: Design, y: np.ndarray) -> tuple[np.ndarray, int, int]:
         if v > lim or v < -lim:
             sats += 1
             v = sat(v, -lim, lim)
+        if taps is not None:
+            taps.append(v)
         for c, z in zip(coefs, state, strict=True):
             v, saturated = section_step(c, z, v, cb, lim, narrow_acc, split)
             sats += saturated
@@ -235,11 +241,21 @@ def run(design: Design, inputs: np.ndarray, lost=None) -> ModelRun:
     at each grid instant), computed independently. ``lost`` lists the indices of inputs before
     which inputs were lost (the C is told by <name>_inputs_lost(), or finds its queue full)."""
     x, gaps, clamps, muted = front_steps(design, inputs, lost)
-    out, sats, clips = post_chain(design, cic_decimate(design, x))
+    taps: list | None = [] if design.data is not None else None
+    out, sats, clips = post_chain(design, cic_decimate(design, x), taps)
+    data = datamodel.run(design, np.array(taps, dtype=np.int64)) if taps is not None else None
     gates = squelch_gates(design, x, muted)[design.cic.order :][: out.size]
     muted = np.where(gates, out, design.output.mid).astype(out.dtype)
     return ModelRun(
-        out=muted, gaps=gaps, clamps=clamps, saturations=sats, clips=clips, steps=x, squelch_open=gates, unmuted=out
+        out=muted,
+        gaps=gaps,
+        clamps=clamps,
+        saturations=sats,
+        clips=clips,
+        steps=x,
+        squelch_open=gates,
+        unmuted=out,
+        data=data,
     )
 
 

@@ -13,7 +13,7 @@ from fractions import Fraction
 
 from .. import __version__
 from ..fixedpoint import recip_plan
-from . import wordlength
+from . import datalink, wordlength
 from ..dsp import iir
 from ..planner import schemes
 from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, Squelch, output_bits
@@ -262,6 +262,8 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
         )
     mult = round(gain * (1 << shift))
     dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
+    if spec.data is not None:
+        dc_shift = datalink.dc_shift(spec)  # the slicer's offset tracking (designer.datalink)
     scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
     cert = wordlength.certificate(
         x_limit=p.front.x_limit,
@@ -280,6 +282,9 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     )
     sq = _squelch(spec, p)
     cert = cert + squelch_registers(sq, x_limit=p.front.x_limit, ratio=p.ratio)
+    link = datalink.design_link(spec, q_in) if spec.data is not None else None
+    if link is not None:
+        cert = cert + datalink.registers(link)
     per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
@@ -313,4 +318,5 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
             irq_jitter_cycles=tgt.irq_jitter_cycles,
         ),
         certificate=cert,
+        data=link,
     )

@@ -110,6 +110,34 @@ def api(design: Design) -> list[Function]:
             "taken as a gap. Call from the context that calls process().",
         ),
     ]
+    return fns + data_api(design)
+
+
+def data_api(design: Design) -> list[Function]:
+    """The data path's public functions (none for an audio-only design)."""
+    dl, p = design.data, design.name
+    if dl is None:
+        return []
+    st = f"{p}_state_t *s"
+    fns = [
+        Function(
+            f"size_t {p}_bits_read({st}, uint8_t *dst, size_t cap)",
+            "The decided bits not yet read, oldest first, one per byte (0 or 1), at most cap; returns their number.",
+        ),
+        Function(f"uint32_t {p}_bit_count(const {st})", "Bits decided so far."),
+        Function(f"uint32_t {p}_bit_overrun_count(const {st})", "Bits lost so far because bits_read came too late."),
+        Function(f"bool {p}_data_locked(const {st})", "True while the bit clock is locked (see the data section)."),
+    ]
+    if dl.sync_bits:
+        fns += [
+            Function(f"bool {p}_frame_ready(const {st})", "True when a complete frame waits for frame_read."),
+            Function(f"uint32_t {p}_frame_count(const {st})", "Frames completed so far."),
+            Function(f"uint32_t {p}_sync_count(const {st})", "Sync-word matches so far."),
+            Function(
+                f"size_t {p}_frame_read({st}, uint8_t *dst, size_t cap)",
+                "Copy the waiting frame (at most cap bytes) and clear frame_ready; returns the bytes copied (0: none).",
+            ),
+        ]
     return fns
 
 
@@ -125,8 +153,11 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
     per-input front end and the queue). One definition, checked against the emitted C by a test."""
     p = design.name
     stamp_only = ("phase", "gap") if design.stamps else ()
+    data: tuple[str, ...] = ()
+    if design.data is not None:
+        data = ("data_step", "data_bit", "data_frame") if design.data.sync_bits else ("data_step", "data_bit")
     return {
-        "output": [f"{p}_post", f"{p}_clip_data"],
+        "output": [f"{p}_post", f"{p}_clip_data", *(f"{p}_{n}" for n in data)],
         "grid": [f"{p}_grid"],
         "input": [f"{p}_{n}" for n in ("process", "service", "input", *stamp_only, "full", "queue")],
     }
@@ -137,6 +168,8 @@ def _operations(design: Design) -> list[str]:
     ops = ["wrap_s32", "rshr", "sat", "squelch_level"]
     if design.filters.acc_bits == 48:
         ops += ["split_mac", "split_round"]
+    if design.data is not None:
+        ops += ["rshr32", "sat32"] + (["bit_errors"] if design.data.sync_bits else [])
     if design.stamps:
         ops.append("reciprocal" if design.recip is not None else "ratio_floor")
         if design.cubic:
@@ -370,6 +403,8 @@ def emit(design: Design) -> dict[str, str]:
         edge_stamp=design.topology is Topology.EDGE_STAMP,
         edge_count=design.topology is Topology.EDGE_COUNT,
         counter=design.topology is Topology.COUNTER,
+        data=design.data is not None,
+        dl=design.data,
         recip=design.recip,
         input_type=inp,
         input_mask="UINT32_C(0xFFFF)" if inp == "uint16_t" else "UINT32_MAX",
