@@ -60,12 +60,13 @@ class VerifyResult:
     squelch: dict = None  # type: ignore[assignment]                      # the design's squelch and, when measured, its figures on the noisy IF
     target_bit_exact: bool | None = None  # None: not run (no cross compiler or emulator)
     target: dict | None = None  # per core: bit_exact, cycles per event, sizes
+    data: dict | None = None  # a data design's FSK test (check.dataverify): bit_exact, frames
 
     @property
     def ok(self) -> bool:
         """The verdict: the C equals the model on every sample and counter, and so does every
         emulated target run that was made."""
-        return self.bit_exact and self.target_bit_exact is not False
+        return self.bit_exact and self.target_bit_exact is not False and (self.data is None or self.data["bit_exact"])
 
     def to_dict(self) -> dict:
         return {**asdict(self), "ok": self.ok}
@@ -169,6 +170,12 @@ def verify(
         sq["measured"] = figures(design, seed).to_dict()
     say("running the floating-point reference")
     ref = reference.run(design, stream)
+    data = None
+    if design.data is not None:
+        say("running framed FSK data through the C and the model")
+        from .dataverify import data_check
+
+        data = data_check(design, host, seconds, seed)
 
     cmp = compare(c_out, counters, m)
 
@@ -222,4 +229,5 @@ def verify(
         squelch=sq,
         target_bit_exact=all(v["bit_exact"] for v in tgt.values()) if tgt else None,
         target=tgt,
+        data=data,
     )

@@ -280,12 +280,26 @@ def harness(design: Design, in_len: int, out_len: int) -> str:
         )
     else:
         call = f"    {p}_tick_isr(&harness_state, ({p}_input_t)value);\n"
+    cap, data = out_len, ""
+    if design.data is not None:  # a process call makes at most half the bit ring's bits
+        dl = design.data
+        cap = min(out_len, (dl.ring_bits // 2) * int(dl.samples_per_bit))
+        data = f"""
+/* The data path's decided bits since the last call into harness_bits; returns their number. */
+uint8_t harness_bits[{dl.ring_bits}u];
+uint32_t harness_bits_read(void);
+uint32_t harness_bits_read(void)
+{{
+    return (uint32_t){p}_bits_read(&harness_state, harness_bits, {dl.ring_bits}u);
+}}
+"""
     return f"""\
 /* Test harness for the emulator: global state and buffers, entry points called with PC = address. */
 #include "{p}.h"
 
 #define HARNESS_IN_LEN  {in_len}u
 #define HARNESS_OUT_LEN {out_len}u
+#define HARNESS_OUT_CAP {cap}u
 
 {p}_input_t harness_in[HARNESS_IN_LEN];
 {p}_sample_t harness_out[HARNESS_OUT_LEN];
@@ -314,7 +328,7 @@ uint32_t harness_process(uint32_t first, uint32_t n)
 {{
     size_t produced = 0u;
     harness_consumed = (uint32_t){p}_process(&harness_state, &harness_in[first], (size_t)n, harness_out,
-                                              HARNESS_OUT_LEN, &produced);
+                                              HARNESS_OUT_CAP, &produced);
     return (uint32_t)produced;
 }}
 
@@ -349,7 +363,7 @@ uint32_t harness_counter(uint32_t which)
     default: return {P}_QUEUE_LEN;
     }}
 }}
-"""
+{data}"""
 
 
 COUNTERS = ("gaps", "clamps", "overruns", "saturations", "clips", "carrier", "offset")

@@ -53,6 +53,7 @@ class CoreCheck:
     double_ratio: float
     isa_violations: list[str] = field(default_factory=list)
     load_fraction: float = 0.0
+    bits: int = 0  # a data design's decided bits, compared with the model's in full (0: none)
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -112,11 +113,13 @@ def check_core(
     m = target_run.machine(b)
     prof = target_cycles.Profiler(m, b, rl, entries)
     m.call("harness_init")
-    chunks = target_run.feed_process(m, b, x[:W], b.in_len)
+    bits: list | None = [] if design.data is not None else None
+    ring = design.data.ring_bits if design.data is not None else 0
+    chunks = target_run.feed_process(m, b, x[:W], b.in_len, bits, ring)
     prof.start()
-    window = target_run.feed_process(m, b, x[W : W + N], b.in_len)
+    window = target_run.feed_process(m, b, x[W : W + N], b.in_len, bits, ring)
     prof.stop()
-    chunks += window + target_run.feed_process(m, b, x[W + N :], b.in_len)
+    chunks += window + target_run.feed_process(m, b, x[W + N :], b.in_len, bits, ring)
     outputs = np.concatenate(chunks)
     want, before, upto = models.prefix(inputs.size), models.prefix(W), models.prefix(W + N)
     n_out = int(upto.out.size - before.out.size)
@@ -131,9 +134,14 @@ def check_core(
     )
     int_cycles = sum(t.cycles.values()) / n_out
     base = float_baseline.baseline(design, core, bench)
+    bits_equal = True
+    if bits is not None:  # every decided bit of the data path, in full
+        got_bits = np.concatenate(bits) if bits else np.zeros(0, dtype=np.uint8)
+        bits_equal = bool(np.array_equal(got_bits, want.data.bits))
     out = CoreCheck(
         core=core,
-        bit_exact=bool(np.array_equal(outputs, want.out)),
+        bit_exact=bool(np.array_equal(outputs, want.out)) and bits_equal,
+        bits=0 if bits is None else int(sum(c.size for c in bits)),
         samples=int(outputs.size),
         inputs=int(inputs.size),
         cycles_per_edge_isr=max(c.isr_cycles_with_entry.values(), default=0.0),
@@ -172,7 +180,15 @@ def target_check(
         return {}
     from ..emit import emit
 
-    inputs = make_inputs(design, seconds, seed)
+    if design.data is not None:  # the data path's bits through noise, rate error and offset
+        from ..stimulus import fsk
+
+        # long enough for the float baseline's window (WARM + N inputs at the IF centre's input rate)
+        rate = design.if_hz / design.front.prescale if design.stamps else design.rates.grid_hz
+        need = 1.2 * (float_baseline.WARM + float_baseline.N) / rate
+        inputs = fsk.data_test(design, max(seconds, need), seed)[0].inputs
+    else:
+        inputs = make_inputs(design, seconds, seed)
     if inputs.size < float_baseline.WARM + float_baseline.N:  # the float baseline's window must fit
         inputs = float_baseline.bench_inputs(design, seed)
     bench = inputs

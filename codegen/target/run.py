@@ -218,6 +218,7 @@ class TargetRun:
     counters: dict
     inputs: int
     stack_bytes: int
+    bits: np.ndarray | None = None  # a data design's decided bits (process runs)
 
 
 def read_counters(m) -> dict:
@@ -227,8 +228,20 @@ def read_counters(m) -> dict:
     return vals
 
 
-def feed_process(m, build: TargetBuild, inputs: np.ndarray, block: int) -> list[np.ndarray]:
-    """Feed ``inputs`` through harness_process in blocks of ``block``; the output chunks."""
+def read_bits(m, ring: int, bits: list) -> None:
+    """Drain a data design's bit ring through harness_bits_read into ``bits`` (arrays of 0/1)."""
+    while True:
+        k = int(m.call("harness_bits_read"))
+        bits.append(m.read("harness_bits", k, np.uint8))
+        if k < ring:
+            return
+
+
+def feed_process(
+    m, build: TargetBuild, inputs: np.ndarray, block: int, bits: list | None = None, ring: int = 0
+) -> list[np.ndarray]:
+    """Feed ``inputs`` through harness_process in blocks of ``block``; the output chunks. ``bits``
+    (data designs, with the bit ring's length ``ring``): gets the decided bits after every call."""
     chunks = []
     for start in range(0, inputs.size, block):
         blk = inputs[start : start + block]
@@ -238,6 +251,8 @@ def feed_process(m, build: TargetBuild, inputs: np.ndarray, block: int) -> list[
             k = m.call("harness_process", done, blk.size - done)
             done += int(m.read("harness_consumed", 1, np.uint32)[0])
             chunks.append(m.read("harness_out", k, build.sample_dtype))
+            if bits is not None:
+                read_bits(m, ring, bits)
     return chunks
 
 
@@ -282,10 +297,17 @@ def run(
     block = max(1, min(block or build.in_len, build.in_len))
     m = machine(build)
     m.call("harness_init")
+    bits: list | None = [] if design.data is not None and not isr else None
     if isr:
         every = max(1, min(service_every or design.queue_len // 4, build.in_len))
         chunks = feed_isr(m, build, inputs, every)
     else:
-        chunks = feed_process(m, build, inputs, block)
+        chunks = feed_process(m, build, inputs, block, bits, design.data.ring_bits if design.data else 0)
     out = np.concatenate(chunks) if chunks else np.zeros(0, dtype=build.sample_dtype)
-    return TargetRun(outputs=out, counters=read_counters(m), inputs=int(inputs.size), stack_bytes=m.stack_used())
+    return TargetRun(
+        outputs=out,
+        counters=read_counters(m),
+        inputs=int(inputs.size),
+        stack_bytes=m.stack_used(),
+        bits=np.concatenate(bits) if bits else None,
+    )
