@@ -158,3 +158,36 @@ def test_ideal_noncoherent_formula():
     # the exact binomial interval: 0 errors in n gives an upper end of 1 - (alpha/2)**(1/n) (closed form)
     lo, hi = ber.clopper_pearson(0, 1000, 0.95)
     assert lo == 0 and hi == pytest.approx(1 - 0.025 ** (1 / 1000), rel=1e-9)
+
+
+def test_bit_errors_c_matches_python(tmp_path):
+    """The sync correlator's distance in C (fixedpoint's C text) equals the Python definition and
+    Python's own population count (int.bit_count) on random and extreme words."""
+    import shutil
+
+    from edgetally.check import hostbuild
+    from edgetally.fixedpoint import bit_errors, c_definitions
+
+    cc = shutil.which("cc") or shutil.which("gcc")
+    if cc is None:
+        pytest.skip("no C compiler")
+    src = tmp_path / "be.c"
+    src.write_text(
+        "#include <stdint.h>\n#include <stdio.h>\n#include <inttypes.h>\n"
+        + c_definitions("fx", ["bit_errors"])
+        + "int main(void)\n{\n    uint32_t a, b, m;\n"
+        + '    while (scanf("%" SCNu32 " %" SCNu32 " %" SCNu32, &a, &b, &m) == 3) {\n'
+        + '        printf("%" PRIu32 "\\n", fx_bit_errors(a, b, m));\n    }\n    return 0;\n}\n'
+    )
+    exe = tmp_path / "be"
+    res = subprocess.run([cc, *hostbuild.STRICT_FLAGS, str(src), "-o", str(exe)], capture_output=True, text=True)
+    assert res.returncode == 0 and not res.stderr.strip(), res.stderr
+    rng = np.random.default_rng(5)
+    cases = [(0, 0, 0), (0xFFFFFFFF, 0, 0xFFFFFFFF), (0x2DD4, 0x2DD4, 0xFFFF), (0x80000000, 0, 0xFFFFFFFF)]
+    cases += [tuple(int(v) for v in rng.integers(0, 1 << 32, 3, dtype=np.uint64)) for _ in range(2000)]
+    run = subprocess.run(
+        [str(exe)], input="\n".join(f"{a} {b} {m}" for a, b, m in cases) + "\n", capture_output=True, text=True
+    )
+    got = [int(v) for v in run.stdout.split()]
+    assert got == [bit_errors(a, b, m) for a, b, m in cases]
+    assert got == [((a ^ b) & m).bit_count() for a, b, m in cases]  # Python's popcount (3.10+)
