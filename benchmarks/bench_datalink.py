@@ -58,20 +58,9 @@ def _frames(design, rng, n, ebn0, rate_error, offset):
 
 def lock_time(design) -> None:
     print("Eb/N0 dB | bit-rate error | offset | lock time in bits: median, 90th percentile, max (20 seeds)")
-    out_hz = design.rates.out_hz
     for ebn0 in (12.0, 20.0):
         for re_ in (0.0, -0.01, 0.01):
-            times = []
-            for seed in range(20):
-                rng = np.random.default_rng(seed)
-                _, sig, rec = _frames(design, rng, 1, ebn0, re_, 0.1)
-                d = model.run(design, rec.inputs).data
-                # output sample j is about (j + CIC order + 1) output periods after the first input
-                t = (d.strobes + design.cic.order + 1) / out_hz
-                after = t >= sig.start_s
-                k = np.flatnonzero(d.locked & after)
-                times.append((t[k[0]] - sig.start_s) * sig.bit_rate_hz if k.size else np.inf)
-            a = np.array(times)
+            a = np.array([ber.lock_bits(design, ebn0, seed, re_, 0.1) for seed in range(20)])
             print(f"{ebn0:8g} | {re_:+.0%} | +10 % | {np.median(a):.0f}, {np.percentile(a, 90):.0f}, {a.max():.0f}")
 
 

@@ -133,3 +133,25 @@ def measure(host, design: Design, ebn0_db: float, n_bits: int, seed: int, **kw) 
     got = counters["data"]["bits"]
     errors, counted, lag = count_errors(sig.bits, got, keep_mask(rec))
     return BerPoint(ebn0_db, counted, errors, lag)
+
+
+def lock_bits(design: Design, ebn0_db: float, seed: int, rate_error: float = 0.0, offset: float = 0.0) -> float:
+    """Bits from the first preamble bit of one frame (after unmodulated carrier) until the lock
+    detector first reports lock, from the integer model (inf: never). The time of output sample j
+    is taken as (j + CIC order + 1) output periods after the first input (within a sample)."""
+    from ..check import model
+
+    dl = design.data
+    assert dl is not None
+    rng = np.random.default_rng(seed)
+    size = dl.frame_bytes or 16
+    pay = bytes(rng.integers(0, 256, size, dtype=np.uint8).tolist())
+    bits = fsk.frames_bits(design, [pay]) if dl.sync_bits else rng.integers(0, 2, 200, dtype=np.uint8)
+    dev = design.full_scale_hz
+    sig = fsk.FskSignal(design.if_hz, dev, dl.bit_rate_hz * (1 + rate_error), bits, 0.01, offset * dev)
+    rec = fsk.record(design, sig, ebn0_db, rng, tail_s=0.005)
+    run = model.run(design, rec.inputs).data
+    assert run is not None
+    t = (run.strobes + design.cic.order + 1) / design.rates.out_hz
+    k = np.flatnonzero(run.locked & (t >= sig.start_s))
+    return float((t[k[0]] - sig.start_s) * sig.bit_rate_hz) if k.size else math.inf

@@ -49,7 +49,8 @@ class Made:
 
 def steps(design: Design) -> int:
     """How many progress steps ``make`` takes: verify, each sweep point, each scenario, the files."""
-    return 1 + sum(len(sweeps.default_points(design, k)) for k in sweeps.KINDS) + len(hostile.SCENARIOS) + 1
+    extra = 1 if design.data is not None else 0  # the data link's figures
+    return 1 + sum(len(sweeps.default_points(design, k)) for k in sweeps.KINDS) + len(hostile.SCENARIOS) + 1 + extra
 
 
 def make(
@@ -77,7 +78,14 @@ def make(
         bar.note(name)
         hs.append(hostile.run_scenario(design, name, host, hostile.Options(seed=seed)))
         bar.step()
+    data = None
+    if design.data is not None:
+        from . import datalink
+
+        bar.note("data link: bit-error rate, eye, lock time")
+        data = datalink.figures(design, host, seed)
+        bar.step()
     bar.note("listening files and the page")
-    files = report.report_files(spec, plan, design, res, tuple(sw), tuple(hs), seed=seed, host=host)
+    files = report.report_files(spec, plan, design, res, tuple(sw), tuple(hs), seed=seed, host=host, data=data)
     bar.step()
     return Made(files=files, verify=res, sweeps=tuple(sw), hostile=tuple(hs))

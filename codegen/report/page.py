@@ -44,6 +44,7 @@ class ReportContext:
     hostile: tuple = ()  # edgetally.hostile.ScenarioResult
     wav_names: tuple[str, ...] = ()
     wav_captions: tuple[str, ...] = ()
+    data: object = None  # report.datalink.DataFigures of a data design
 
     @property
     def target(self) -> dict:
@@ -609,6 +610,11 @@ def render(ctx: ReportContext) -> str:
         "listen": _listening_section,
     }
     sections = [_section(a, t, bodies[a](ctx)) for a, t in SECTIONS]
+    if ctx.data is not None:  # a data design: its section after the test tone's
+        from . import datalink
+
+        at = [a for a, _ in SECTIONS].index("spectrum") + 1
+        sections.insert(at, _section("data", "Data link", datalink.section(ctx.design, ctx.data)))
     return "\n".join(
         [
             "<!DOCTYPE html>",
@@ -650,6 +656,7 @@ def report_files(
     seconds: float = 2.0,
     seed: int = DEFAULT_SEED,
     host=None,
+    data=None,
 ) -> dict[str, bytes]:
     """Every file of the report: the page and its WAV files, {file name: bytes}. Runs the three
     listening signals through the emitted C (``seconds`` each); writes nothing."""
@@ -664,6 +671,7 @@ def report_files(
         hostile=tuple(hostile),
         wav_names=tuple(c.name for c in made),
         wav_captions=tuple(c.caption for c in made),
+        data=data,
     )
     files = {report_name(design): render(ctx).encode("utf-8")}
     files.update(listen.wav_files(design, made))
