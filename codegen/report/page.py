@@ -9,6 +9,11 @@ files or prints: the CLI does.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from .datalink import DataFigures
+
 import html
 import math
 from dataclasses import dataclass
@@ -44,7 +49,7 @@ class ReportContext:
     hostile: tuple = ()  # edgetally.hostile.ScenarioResult
     wav_names: tuple[str, ...] = ()
     wav_captions: tuple[str, ...] = ()
-    data: object = None  # report.datalink.DataFigures of a data design
+    data: DataFigures | None = None  # the data link's figures (data designs)
 
     @property
     def target(self) -> dict:
