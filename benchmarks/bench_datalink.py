@@ -52,7 +52,9 @@ def _frames(design, rng, n, ebn0, rate_error, offset):
     pays = [bytes(rng.integers(0, 256, design.data.frame_bytes, dtype=np.uint8).tolist()) for _ in range(n)]
     bits = fsk.frames_bits(design, pays)
     dev = design.full_scale_hz
-    sig = fsk.FskSignal(design.if_hz, dev, design.data.bit_rate_hz * (1 + rate_error), bits, 0.01, offset * dev)
+    sig = fsk.FskSignal(
+        design.if_hz, dev, design.data.bit_rate_hz * (1 + rate_error), bits, 0.01, offset * dev, chips=design.data.chips
+    )
     return pays, sig, fsk.record(design, sig, ebn0, rng, tail_s=0.005)
 
 

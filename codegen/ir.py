@@ -229,7 +229,14 @@ class DataLink:
     ay += |y| - (ay >> lock_shift), on a transition am += |ym| - (am >> lock_shift), locked while
     4 am < ay and ay >= lock_min; the bit into the ring (``ring_bits``) and the sync shift register;
     a sync match (at most sync_errors differing bits in the last sync_bits) starts a frame of
-    frame_bytes bytes, MSB first."""
+    frame_bytes bytes, MSB first.
+
+    Manchester (chips 2): the loop above runs on chips; a data bit is a pair of chips, "10" a 1 and
+    "01" a 0 (G. E. Thomas's convention; IEEE 802.3 uses the opposite), decided on the whole bit:
+    a 1 when the first chip's y exceeds the second's. Which chips pair up is tracked by two leaky
+    counts of equal-chip pairs (Manchester violations), one per alignment: vi = vi - (vi >> 3) + 8
+    when the pair ending at a chip of parity i has equal chips; the pairing switches when the other
+    alignment's count is lower by more than ``pair_margin``."""
 
     bit_rate_hz: float
     samples_per_bit: float  # output rate / bit rate
@@ -254,6 +261,8 @@ class DataLink:
     loop_bandwidth: float  # BnT the gains were designed for
     damping: float
     kind: str = "fsk"
+    chips: int = 1  # channel symbols per bit: 1 (NRZ) or 2 (Manchester; the bit clock runs at the chip rate)
+    pair_margin: int = 0  # Manchester: the violation-count lead that switches the pairing
 
 
 @dataclass(frozen=True)

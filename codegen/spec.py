@@ -428,7 +428,7 @@ def parse_spec(raw: dict) -> Spec:
 MIN_MOD_INDEX = 0.5
 MIN_IF_CYCLES_PER_BIT = 2.0
 SAMPLES_PER_BIT = (4, 32)
-LINE_CODES = ("nrz",)
+LINE_CODES = ("nrz", "manchester")
 
 
 def _data_band(raw: dict) -> float | None:
@@ -438,7 +438,7 @@ def _data_band(raw: dict) -> float | None:
     if isinstance(d, dict) and "bit_rate_hz" in d:
         v = d["bit_rate_hz"]
         if not isinstance(v, bool) and isinstance(v, (int, float)) and math.isfinite(v) and v > 0:
-            return float(v)
+            return float(v) * (2 if d.get("line_code") == "manchester" else 1)
     return None
 
 
@@ -463,37 +463,39 @@ def _data(raw: dict, sig: Signal, out: Output, warnings: list[str]) -> Data | No
         loop_bandwidth=_number(t, "data", "loop_bandwidth", default=0.02),
         rate_tolerance=_number(t, "data", "rate_tolerance", default=0.02),
     )
-    rb, df = d.bit_rate_hz, sig.deviation_hz
+    # the channel runs at the chip rate: twice the bit rate with Manchester (two chips a bit)
+    rb, df = d.bit_rate_hz * (2 if d.line_code == "manchester" else 1), sig.deviation_hz
     h = 2 * df / rb
     if h < MIN_MOD_INDEX:
         raise SpecError(
             "signal.deviation_hz",
             df,
-            f"gives a modulation index 2 deviation / bit rate of {h:.3g}; a discriminator needs at least "
-            f"{MIN_MOD_INDEX:g} (deviation at least {MIN_MOD_INDEX * rb / 2:g} Hz at {rb:g} bit/s)",
+            f"gives a modulation index 2 deviation / channel rate of {h:.3g}; a discriminator needs at least "
+            f"{MIN_MOD_INDEX:g} (deviation at least {MIN_MOD_INDEX * rb / 2:g} Hz at {rb:g} symbols/s)",
         )
     cycles = (sig.if_hz - df) / rb
     if cycles < MIN_IF_CYCLES_PER_BIT:
         raise SpecError(
             "data.bit_rate_hz",
-            rb,
-            f"is too fast for the IF: {cycles:.3g} cycles per bit at the lowest frequency if_hz - deviation_hz, "
-            f"need at least {MIN_IF_CYCLES_PER_BIT:g} (at most {(sig.if_hz - df) / MIN_IF_CYCLES_PER_BIT:g} bit/s)",
+            d.bit_rate_hz,
+            f"is too fast for the IF: {cycles:.3g} cycles per channel symbol at the lowest frequency "
+            f"if_hz - deviation_hz, need at least {MIN_IF_CYCLES_PER_BIT:g} "
+            f"(at most {(sig.if_hz - df) / MIN_IF_CYCLES_PER_BIT:g} symbols/s)",
         )
     sps = out.rate_hz / rb
     lo, hi = SAMPLES_PER_BIT
     if not lo <= sps <= hi:
         raise SpecError(
             "data.bit_rate_hz",
-            rb,
-            f"gives {sps:.3g} samples per bit at output.rate_hz {out.rate_hz}; allowed {lo} to {hi} "
-            f"(bit rates {out.rate_hz / hi:g} to {out.rate_hz / lo:g} bit/s)",
+            d.bit_rate_hz,
+            f"gives {sps:.3g} samples per channel symbol at output.rate_hz {out.rate_hz}; allowed {lo} to {hi} "
+            f"(symbol rates {out.rate_hz / hi:g} to {out.rate_hz / lo:g} a second; Manchester has two a bit)",
         )
     if sig.audio_hz < 0.5 * rb:
         raise SpecError(
             "signal.audio_hz",
             sig.audio_hz,
-            f"must be at least half the bit rate ({0.5 * rb:g} Hz) for data: leave it out to take the bit rate",
+            f"must be at least half the channel symbol rate ({0.5 * rb:g} Hz) for data: leave it out to take it",
         )
     if d.sync_bits:
         if d.sync_word >> d.sync_bits:

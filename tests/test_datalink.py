@@ -62,7 +62,7 @@ def test_data_spec_refusals(change, field):
 def test_data_if_too_slow_for_bits():
     # (if - deviation) / bit rate = (24000 - 12000) / 9600 = 1.25 cycles per bit: under 2
     err = _refused({"signal.deviation_hz": 12000, "data.bit_rate_hz": 9600, "output.rate_hz": 48000})
-    assert err.field == "data.bit_rate_hz" and "cycles per bit" in str(err)
+    assert err.field == "data.bit_rate_hz" and "cycles per channel symbol" in str(err)
 
 
 def test_cli_refuses_bad_data_spec(tmp_path):
@@ -89,7 +89,13 @@ def _frames_record(d, rng, n_frames, ebn0_db, rate_error=0.0, offset=0.0):
     pays = _payloads(rng, n_frames, d.data.frame_bytes)
     bits = fsk.frames_bits(d, pays)
     sig = fsk.FskSignal(
-        d.if_hz, d.full_scale_hz, d.data.bit_rate_hz * (1 + rate_error), bits, 0.01, offset * d.full_scale_hz
+        d.if_hz,
+        d.full_scale_hz,
+        d.data.bit_rate_hz * (1 + rate_error),
+        bits,
+        0.01,
+        offset * d.full_scale_hz,
+        chips=d.data.chips,
     )
     return pays, fsk.record(d, sig, ebn0_db, rng, tail_s=0.005)
 
@@ -232,3 +238,32 @@ def test_frames_resume_after_a_disturbance(hosts, kind):
     after = [p for k, p in enumerate(pays) if sig.start_s + k * frame_s > t1 + frame_s]
     assert len(before) >= 3 and len(after) >= 3
     assert all(p in frames for p in before + after)
+
+
+def _manchester_design():
+    raw = copy.deepcopy(RAW)
+    raw["data"].update(line_code="manchester", bit_rate_hz=1200)
+    return edgetally.design(edgetally.parse_spec(raw))
+
+
+def test_manchester_refuses_too_few_samples_per_chip():
+    # 19200 / (2 x 3000) = 3.2 samples per chip, under 4 (h = 2 x 3000 / 6000 = 1)
+    err = _refused({"data.line_code": "manchester", "data.bit_rate_hz": 3000, "signal.deviation_hz": 3000})
+    assert err.field == "data.bit_rate_hz" and "samples per channel symbol" in str(err)
+
+
+@pytest.mark.parametrize("rate_error, offset", [(0.0, 0.0), (0.01, 0.1), (-0.01, -0.1)])
+def test_manchester_frames_bit_exact(rate_error, offset):
+    """Manchester at 1200 bit/s (2400 chips/s): the C equals the model on every bit, counter and
+    frame, and every frame sent arrives unchanged at 17 dB Eb/N0 with the bit clock 1 % off and the
+    carrier 10 % of the deviation off."""
+    from edgetally.check import hostbuild
+
+    d = _manchester_design()
+    assert d.data.chips == 2 and d.data.taps == 8
+    rng = np.random.default_rng(4)
+    pays, rec = _frames_record(d, rng, 8, 17.0, rate_error=rate_error, offset=offset)
+    want = model.run(d, rec.inputs)
+    got, counters = hostbuild.build(d).process(rec.inputs)
+    assert compare(got, counters, want).bit_exact
+    assert [f for _, f in counters["data"]["frames_read"]] == pays

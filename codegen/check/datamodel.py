@@ -24,10 +24,10 @@ HALF = 1 << 31
 @dataclass(frozen=True)
 class DataRun:
     bits: np.ndarray  # every decided bit, in order (uint8, 0 or 1)
-    strobes: np.ndarray  # the output-sample index of each bit strobe
+    strobes: np.ndarray  # the output-sample index of each bit strobe (Manchester: of each pair's last chip)
     y: np.ndarray  # the matched filter's output per output sample (the eye diagram's samples)
     locked: np.ndarray  # per bit: the lock detector after it
-    integ: np.ndarray  # per bit: the loop's integrator after it (phase per bit, 2**32 a bit)
+    integ: np.ndarray  # per bit: the loop's integrator after it (phase per symbol, 2**32 a symbol)
     frames: tuple[bytes, ...]  # every complete frame, in order
     syncs: int  # sync-word matches
     locked_end: bool
@@ -58,6 +58,8 @@ def run(design: Design, v: np.ndarray) -> DataRun:
     sr = ~dl.sync_word & mask
     ph, ymid, integ, last, ay, am, pending = 0, 0, 0, 0, 0, 0, 0
     collect, nb = False, 0
+    chip_prev, y_prev, parity, pair, viol = 0, 0, 0, 1, [0, 0]  # Manchester pairing (ir.DataLink)
+    last_lock = False  # the lock detector after the last symbol strobe
     frame = bytearray(dl.frame_bytes)
     bits: list[int] = []
     strobes: list[int] = []
@@ -91,9 +93,22 @@ def run(design: Design, v: np.ndarray) -> DataRun:
         pending = corr
         ph = ph_mid + jw * dl.step - ONE
         last = bit
+        is_locked = last_lock = (am << 2) < ay and ay >= dl.lock_min
+        if dl.chips == 2:
+            a = parity
+            viol[a] = viol[a] - (viol[a] >> 3) + (8 if bit == chip_prev else 0)
+            if a != pair and viol[pair] > viol[a] + dl.pair_margin:
+                pair = a
+            emit = a == pair
+            data_bit = 1 if y_prev > yk else 0  # the first chip above the second: "10", a 1
+            chip_prev, y_prev, parity = bit, yk, a ^ 1
+            n = ib + 1
+            if not emit:
+                continue
+            bit = data_bit
         bits.append(bit)
         strobes.append(ib)
-        locked.append((am << 2) < ay and ay >= dl.lock_min)
+        locked.append(is_locked)
         integs.append(integ)
         if dl.sync_bits:
             sr = ((sr << 1) | bit) & 0xFFFFFFFF
@@ -117,5 +132,5 @@ def run(design: Design, v: np.ndarray) -> DataRun:
         integ=np.array(integs, dtype=np.int64),
         frames=tuple(frames),
         syncs=syncs,
-        locked_end=bool(locked[-1]) if locked else False,
+        locked_end=bool(last_lock),
     )

@@ -35,6 +35,10 @@ DAMPING = 1 / math.sqrt(2)  # common practice, no source: the usual damping of a
 CORR_BITS = 29  # one phase jump is at most 2**29 / 2**32 = 1/8 bit (made at the mid strobe: no wrap)
 LOCK_SHIFT = 4  # the lock detector averages about 16 bits (16 transitions for its mid samples)
 RING_BITS = 256  # decided bits the C holds until <name>_bits_read (32 bytes)
+# Manchester pairing: a violation adds 8 to a count that decays by 1/8 a pair (about 8 pairs of
+# memory, at most 64); a lead of 24 (three recent violations) switches the pairing. Common practice,
+# no source: hysteresis so that one noisy pair never flips it.
+PAIR_MARGIN = 24
 
 
 def dc_shift(spec: Spec) -> int:
@@ -55,9 +59,10 @@ def design_link(spec: Spec, q: int) -> DataLink:
     holds a full-scale deviation as 2**q."""
     d = spec.data
     assert d is not None
+    chips = 2 if d.line_code == "manchester" else 1
     sps = spec.output.rate_hz / d.bit_rate_hz
     dq = min(q, DATA_Q)
-    taps = round(sps)
+    taps = round(sps / chips)  # the matched filter and the bit clock work on channel symbols
     y_shift = int(math.floor(math.log2(taps)))
     amplitude = round(taps * 2**dq * spec.signal.deviation_hz / spec.output.full_scale_hz / 2**y_shift)
     kp_n, ki_n = loop_gains(d.loop_bandwidth, DAMPING)
@@ -70,7 +75,7 @@ def design_link(spec: Spec, q: int) -> DataLink:
         taps=taps,
         y_shift=y_shift,
         amplitude=amplitude,
-        step=round(2**32 / sps),
+        step=round(2**32 * chips / sps),
         mid_limit=2 * amplitude,
         kp=max(1, round(kp_n * 2**32 / kd)),
         ki=max(1, round(ki_n * 2**32 / kd)),
@@ -85,6 +90,8 @@ def design_link(spec: Spec, q: int) -> DataLink:
         frame_bytes=d.frame_bytes,
         loop_bandwidth=d.loop_bandwidth,
         damping=DAMPING,
+        chips=chips,
+        pair_margin=PAIR_MARGIN if chips == 2 else 0,
     )
 
 

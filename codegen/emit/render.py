@@ -155,7 +155,9 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
     stamp_only = ("phase", "gap") if design.stamps else ()
     data: tuple[str, ...] = ()
     if design.data is not None:
-        data = ("data_step", "data_bit", "data_frame") if design.data.sync_bits else ("data_step", "data_bit")
+        data = ("data_step", "data_bit", "data_out")
+        data += ("data_frame",) if design.data.sync_bits else ()
+        data += ("data_chip",) if design.data.chips == 2 else ()
     return {
         "output": [f"{p}_post", f"{p}_clip_data", *(f"{p}_{n}" for n in data)],
         "grid": [f"{p}_grid"],

@@ -120,7 +120,7 @@ def random_signal(
     bits = np.concatenate((pre, rng.integers(0, 2, n_bits, dtype=np.uint8)))
     dev = design.full_scale_hz
     lead = max(LEAD_S_MIN, 20 / dl.bit_rate_hz)
-    return fsk.FskSignal(design.if_hz, dev, dl.bit_rate_hz * (1 + rate_error), bits, lead, offset * dev)
+    return fsk.FskSignal(design.if_hz, dev, dl.bit_rate_hz * (1 + rate_error), bits, lead, offset * dev, chips=dl.chips)
 
 
 def measure(host, design: Design, ebn0_db: float, n_bits: int, seed: int, **kw) -> BerPoint:
@@ -148,7 +148,7 @@ def lock_bits(design: Design, ebn0_db: float, seed: int, rate_error: float = 0.0
     pay = bytes(rng.integers(0, 256, size, dtype=np.uint8).tolist())
     bits = fsk.frames_bits(design, [pay]) if dl.sync_bits else rng.integers(0, 2, 200, dtype=np.uint8)
     dev = design.full_scale_hz
-    sig = fsk.FskSignal(design.if_hz, dev, dl.bit_rate_hz * (1 + rate_error), bits, 0.01, offset * dev)
+    sig = fsk.FskSignal(design.if_hz, dev, dl.bit_rate_hz * (1 + rate_error), bits, 0.01, offset * dev, chips=dl.chips)
     rec = fsk.record(design, sig, ebn0_db, rng, tail_s=0.005)
     run = model.run(design, rec.inputs).data
     assert run is not None

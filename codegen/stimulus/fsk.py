@@ -42,18 +42,23 @@ class FskSignal:
     start_s: float
     offset_hz: float = 0.0
     tones: tuple = ()
+    chips: int = 1  # 2: Manchester, each bit sent as two chips, "10" a 1 and "01" a 0 (ir.DataLink)
 
     def peak_deviation(self) -> float:
         return self.deviation_hz + abs(self.offset_hz)
 
     def phase(self, t):
         t = np.asarray(t, dtype=np.float64)
-        s = 2.0 * np.asarray(self.bits, dtype=np.float64) - 1.0
-        cum = np.concatenate(([0.0], np.cumsum(s))) / self.bit_rate_hz  # integral of the pulses, s
-        u = (t - self.start_s) * self.bit_rate_hz
+        b = np.asarray(self.bits, dtype=np.float64)
+        if self.chips == 2:
+            b = np.stack([b, 1.0 - b], axis=1).ravel()
+        rate = self.bit_rate_hz * self.chips
+        s = 2.0 * b - 1.0
+        cum = np.concatenate(([0.0], np.cumsum(s))) / rate  # integral of the pulses, s
+        u = (t - self.start_s) * rate
         k = np.clip(np.floor(u).astype(np.int64), 0, s.size)
         inside = (u >= 0) & (k < s.size)
-        frac = np.where(inside, u - k, 0.0) / self.bit_rate_hz
+        frac = np.where(inside, u - k, 0.0) / rate
         integral = np.where(u < 0, 0.0, cum[k] + np.where(inside, s[np.minimum(k, s.size - 1)] * frac, 0.0))
         return (self.if_hz + self.offset_hz) * t + self.deviation_hz * integral
 
@@ -75,10 +80,11 @@ def frames_bits(design: Design, payloads: list[bytes]) -> np.ndarray:
 
 
 def noise_band_hz(design: Design) -> float:
-    """The default IF noise band: Carson's 2 (deviation + Rb / 2) (module docstring)."""
+    """The default IF noise band: Carson's 2 (deviation + Rb / 2) (module docstring), Rb the channel
+    symbol rate (twice the bit rate with Manchester)."""
     dl = design.data
     assert dl is not None
-    return 2.0 * (design.full_scale_hz + 0.5 * dl.bit_rate_hz)
+    return 2.0 * (design.full_scale_hz + 0.5 * dl.bit_rate_hz * dl.chips)
 
 
 def cnr_db(ebn0_db: float, bit_rate_hz: float, band_hz: float) -> float:
@@ -133,7 +139,7 @@ def record(
     band = noise_band_hz(design) if band_hz is None else band_hz
     duration = sig.end_s + tail_s
     cnr = math.inf if ebn0_db is None else cnr_db(ebn0_db, dl.bit_rate_hz, band)
-    span = CHUNK_BITS / sig.bit_rate_hz
+    span = CHUNK_BITS / (sig.bit_rate_hz * sig.chips)
     times, bounds = [], []
     t0 = 0.0
     while t0 < duration:
@@ -177,5 +183,13 @@ def data_test(design: Design, seconds: float, seed: int) -> tuple[Record, list[b
     bits = frames_bits(design, pays) if dl.sync_bits else rng.integers(0, 2, n * per_frame, dtype=np.uint8)
     dev = design.full_scale_hz
     lead = max(0.005, 10 / dl.bit_rate_hz)
-    sig = FskSignal(design.if_hz, dev, dl.bit_rate_hz * (1 + DATA_TEST_RATE_ERROR), bits, lead, DATA_TEST_OFFSET * dev)
+    sig = FskSignal(
+        design.if_hz,
+        dev,
+        dl.bit_rate_hz * (1 + DATA_TEST_RATE_ERROR),
+        bits,
+        lead,
+        DATA_TEST_OFFSET * dev,
+        chips=dl.chips,
+    )
     return record(design, sig, DATA_TEST_EBN0_DB, rng, tail_s=lead), pays
