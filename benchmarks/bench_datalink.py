@@ -48,6 +48,24 @@ def ber_curve(design, host, quick: bool) -> None:
         )
 
 
+def manchester_ber(host_for) -> None:
+    """The same link with Manchester at half the bit rate (the same 2400 chips/s on the air)."""
+    import copy
+    import tomllib
+
+    raw = tomllib.loads(EXAMPLE.read_text())
+    raw = copy.deepcopy(raw)
+    raw["data"].update(line_code="manchester", bit_rate_hz=1200)
+    d = edgetally.design(edgetally.parse_spec(raw))
+    host = host_for(d)
+    print("Manchester, 1200 bit/s: Eb/N0 dB | bits | errors | BER | ideal non-coherent | shift from ideal (dB, 95 %)")
+    for eb in (8, 10, 12):
+        ideal = float(ber.ideal_noncoherent(eb))
+        pt = ber.measure(host, d, float(eb), int(min(200_000, max(5_000, 30 / ideal))), seed=300 + eb)
+        worst, best = pt.loss_interval_db(0.95)
+        print(f"{eb:7d} | {pt.bits} | {pt.errors} | {pt.ber:.3g} | {ideal:.3g} | {best:+.2f} .. {worst:+.2f}")
+
+
 def _frames(design, rng, n, ebn0, rate_error, offset):
     pays = [bytes(rng.integers(0, 256, design.data.frame_bytes, dtype=np.uint8).tolist()) for _ in range(n)]
     bits = fsk.frames_bits(design, pays)
@@ -130,6 +148,7 @@ def main() -> None:
     design = edgetally.design(edgetally.load_spec(EXAMPLE))
     host = hostbuild.build(design)
     ber_curve(design, host, args.quick)
+    manchester_ber(hostbuild.build)
     lock_time(design)
     tolerance(design, host)
     if not args.no_target:
