@@ -437,7 +437,8 @@ def _data_band(raw: dict) -> float | None:
     d = raw.get("data")
     if isinstance(d, dict) and "bit_rate_hz" in d:
         v = d["bit_rate_hz"]
-        if not isinstance(v, bool) and isinstance(v, (int, float)) and math.isfinite(v) and v > 0:
+        lo, hi, _ = LIMITS["data.bit_rate_hz"]
+        if not isinstance(v, bool) and isinstance(v, (int, float)) and lo <= v <= hi:  # else refused later
             return float(v) * (2 if d.get("line_code") == "manchester" else 1)
     return None
 
