@@ -207,6 +207,7 @@ class Squelch:
     open_ms: float  # bound on the time to open on a carrier at cnr_db (from closed and capped)
     reopen_ms: float  # bound on the time to open on the clean standard test (from closed and capped)
     blind: bool = False  # counts that cannot tell noise from a carrier (designer.squelch); always open
+    measured: bool = False  # levels from a simulation at design time, not the noise model (designer.squelch)
 
 
 @dataclass(frozen=True)

@@ -180,6 +180,14 @@ def _refuse_targets(spec: Spec, best: WidthOption) -> None:
     )
 
 
+def _stamp_front(fr, timer_hz: float) -> tuple:
+    """A stamp front as designer.squelch.stamp_level_curve reads it: (prescale, cubic, (x_low,
+    x_limit, x_centre) in cycles, the gap in seconds)."""
+    upc = 2.0**fr.phase_shift / fr.prescale  # step units per IF cycle
+    steps = (fr.x_low / upc, fr.x_limit / upc, fr.x_centre / upc)
+    return fr.prescale, fr.order == "cubic", steps, fr.gap_ticks / timer_hz
+
+
 def _squelch(spec: Spec, p: Plan) -> Squelch:
     """The noise squelch for this plan (designer.squelch): the counting floor from the planner's model."""
     sig, out, tgt = spec.signal, spec.output, spec.target
@@ -220,6 +228,7 @@ def _squelch(spec: Spec, p: Plan) -> Squelch:
         counts=fr.kind == "count",
         blind=fr.kind == "count" and fr.diff_limit <= 1,
         if_hz=sig.if_hz,
+        stamp=_stamp_front(fr, tgt.timer_hz) if fr.kind == "stamp" else None,
     )
 
 
