@@ -21,7 +21,7 @@ def _emit(tmp_path, example):
     return folder
 
 
-@pytest.mark.parametrize("example", ["tiny_irq.toml", "bench_counter.toml"])
+@pytest.mark.parametrize("example", ["tiny_irq.toml", "bench_counter.toml", "weather_station_fsk.toml"])
 def test_make_test_passes(tmp_path, example):
     folder = _emit(tmp_path, example)
     r = subprocess.run(["make", "-s", "test"], cwd=folder, capture_output=True, text=True)
@@ -57,3 +57,26 @@ def test_altered_vector_fails_with_its_index(tmp_path):
     assert r.returncode != 0
     assert "1 mismatches" in r.stdout
     assert f"first mismatch at sample {k}: got {values[k]}, expected {int(values[k]) + 1}" in r.stdout
+
+
+def test_data_unit_test_checks_bits_and_frames(tmp_path):
+    # a data design's unit test also reads the bits and frames after every block and compares them
+    # with the model's; flipping one expected bit must fail it with one bit mismatch
+    folder = _emit(tmp_path, "weather_station_fsk.toml")
+    r = subprocess.run(["make", "-s", "test"], cwd=folder, capture_output=True, text=True)
+    assert r.returncode == 0, r.stdout + r.stderr
+    data_line = r.stdout.strip().splitlines()[-2]
+    m = re.fullmatch(r"\w+ unit test data path: (\d+) bits, 0 bit mismatches, (\d+) frames, 0 frame mismatches", data_line)
+    assert m and int(m.group(1)) > 100 and int(m.group(2)) >= 2, data_line
+    vec = folder / "wx_vectors.h"
+    text = vec.read_text()
+    head, rest = text.split("wx_test_bits[", 1)
+    body, tail = rest.split("};", 1)
+    k = body.index("= {") + 3
+    bits = re.search(r"[01]", body[k:])
+    pos = k + bits.start()
+    flipped = body[:pos] + ("1" if body[pos] == "0" else "0") + body[pos + 1:]
+    vec.write_text(head + "wx_test_bits[" + flipped + "};" + tail)
+    r = subprocess.run(["make", "-s", "test"], cwd=folder, capture_output=True, text=True)
+    assert r.returncode != 0
+    assert ", 1 bit mismatches, " in r.stdout, r.stdout

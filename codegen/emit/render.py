@@ -346,6 +346,8 @@ class Vectors:
     seconds: float
     seed: int
     block: int = 256
+    bits: tuple[int, ...] = ()  # data designs: every bit the model decides
+    frames: tuple[bytes, ...] = ()  # data designs with a sync word: every frame, in order
 
 
 def test_dir(name: str) -> str:
