@@ -13,6 +13,7 @@ from edgetally.check import model
 from edgetally.check.hostbuild import STRICT_FLAGS
 from edgetally.emit import emit
 from edgetally.emit.render import port
+from edgetally.stimulus import fsk
 from edgetally.stimulus.inputs import make_inputs
 
 from conftest import ALL_DESIGNS
@@ -51,6 +52,16 @@ void {p}_hw_edge_irq_start(void) {{ }}
 {p}_input_t {p}_hw_timer_now(void) {{ return cur; }}
 void {p}_hw_grid_timer_start(uint32_t grid_ticks) {{ (void)grid_ticks; }}
 {p}_input_t {p}_hw_counter_value(void) {{ return cur; }}
+void {p}_app_bits(const uint8_t *bits, size_t n);
+void {p}_app_frame(const uint8_t *frame, size_t n);
+void {p}_app_bits(const uint8_t *bits, size_t n) {{ size_t i; for (i = 0u; i < n; i++) {{ fprintf(fo, "b%u\n", (unsigned)bits[i]); }} }}
+void {p}_app_frame(const uint8_t *frame, size_t n)
+{{
+    size_t i;
+    fputs("f", fo);
+    for (i = 0u; i < n; i++) {{ fprintf(fo, "%02x", (unsigned)frame[i]); }}
+    fputs("\n", fo);
+}}
 
 static void drain(void) {{ while ({p}_port_pending() > 0u) {{ {p}_port_output_irq(); }} }}
 
@@ -128,7 +139,8 @@ def test_port_wiring_gives_the_model_output(key, tmp_path):
         pytest.skip("the stub's driver feeds one register value per input")  # no example has this variant
     _, link, exe, kind = _build(d, tmp_path, COMPILERS[0])
     assert link.returncode == 0, link.stderr
-    inputs = make_inputs(d, 0.05, seed=7)
+    # a data design plays noisy frames (the data test) so that bits and frames come out too
+    inputs = fsk.data_test(d, 0.05, 7)[0].inputs if d.data is not None else make_inputs(d, 0.05, seed=7)
     every = max(1, d.queue_len // 2)
     if kind == "dma":
         inputs = inputs[:inputs.size - inputs.size % d.queue_len]      # DMA delivers whole halves only
@@ -137,11 +149,19 @@ def test_port_wiring_gives_the_model_output(key, tmp_path):
                    timeout=120)
     lines = (tmp_path / "out.txt").read_text().splitlines()
     stalls, losses, _ = (int(v) for v in lines[-1].split()[1:])
-    got = np.array([int(v) for v in lines[:-1]], dtype=np.int64)
-    want = model.run(d, inputs).out.astype(np.int64)
+    got = np.array([int(v) for v in lines[:-1] if v[0] not in "bf"], dtype=np.int64)
+    m = model.run(d, inputs)
+    want = m.out.astype(np.int64)
     assert (stalls, losses) == (0, 0)
     assert got.size == want.size > 100
     assert np.array_equal(got, want)
+    bits = [int(v[1:]) for v in lines if v[0] == "b"]
+    frames = [bytes.fromhex(v[1:]) for v in lines if v[0] == "f"]
+    if d.data is None:
+        assert not bits and not frames
+    else:  # every bit and every frame the model decides, in order, through the application hooks
+        assert len(bits) > 100 and bits == m.data.bits.tolist()
+        assert frames == list(m.data.frames) and (len(frames) >= 2 or not d.data.sync_bits)
 
 
 CROSS = [c for c in (["avr-gcc", "-mmcu=atmega328p"], ["arm-none-eabi-gcc", "-mcpu=cortex-m0plus", "-mthumb"])

@@ -192,6 +192,8 @@ class Port:
     half: int  # inputs per DMA half-buffer (DMA designs): the queue's length
     dma: bool  # the inputs come by DMA
     clock: bool = False  # the main loop drives <name>_advance with the timer (stamp ISR designs)
+    data: bool = False  # a data design: the main loop hands bits (and frames) to the application
+    frames: bool = False  # ... and frames (a sync word is set)
 
 
 PORT_CHUNK = 16  # samples per service call: 32 or 64 bytes of stack (common practice, no source)
@@ -292,6 +294,21 @@ def port(design: Design) -> Port:
         ]
         handlers.append((f"{p}_port_tick_irq", f"grid timer, {design.rates.grid_hz} Hz"))
     handlers.append((f"{p}_port_output_irq", f"output timer, {design.rates.out_hz} Hz"))
+    dl = design.data
+    if dl is not None:
+        hw.append(
+            Function(
+                f"void {p}_app_bits(const uint8_t *bits, size_t n)",
+                "The application's: n decided bits (each 0 or 1), oldest first, from the main loop.",
+            )
+        )
+        if dl.sync_bits:
+            hw.append(
+                Function(
+                    f"void {p}_app_frame(const uint8_t *frame, size_t n)",
+                    f"The application's: a frame of n = {dl.frame_bytes} bytes after the sync word, from the main loop.",
+                )
+            )
     api = [
         Function(f"void {p}_port_start(void)", ""),
         Function(f"void {p}_port_poll(void)", ""),
@@ -308,6 +325,8 @@ def port(design: Design) -> Port:
         half=design.queue_len,
         dma=dma,
         clock=design.stamps and not dma,
+        data=dl is not None,
+        frames=dl is not None and dl.sync_bits > 0,
     )
 
 
