@@ -295,8 +295,6 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     if link is not None:
         cert = cert + datalink.registers(link)
     per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
-    if spec.data is not None:
-        per_output += datalink.cycles_per_output(tgt.core, tgt.op_cycles)
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
         name=spec.name,

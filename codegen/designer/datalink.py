@@ -41,20 +41,6 @@ RING_BITS = 256  # decided bits the C holds until <name>_bits_read (32 bytes)
 PAIR_MARGIN = 24
 
 
-# Cycles per output sample of the data path (the matched filter and the clock every sample, the
-# loop, the ring and the framing once a bit, spread over 8 samples a bit), measured in the emulator
-# by benchmarks/bench_datalink.py (2026-12-03, -Os, examples/weather_station_fsk.toml: the chain's
-# cycles per output sample with the data path less without). Other cores: the Cortex-M4 figure in
-# plain ALU steps times the core's op_cycles, an estimate.
-DATA_CYCLES = {"cortex-m0plus": 125, "cortex-m4": 69, "rv32imc": 73, "rv32ec": 104, "avr": 387}
-DATA_OPS = 70
-
-
-def cycles_per_output(core: str, op_cycles: int) -> int:
-    """The data path's planned cycles per output sample on ``core`` (see DATA_CYCLES)."""
-    return DATA_CYCLES.get(core, DATA_OPS * op_cycles)
-
-
 def dc_shift(spec: Spec) -> int:
     """The offset tracker's shift for a data design: a time constant of DC_BITS bits."""
     assert spec.data is not None

@@ -207,6 +207,7 @@ def _candidates(
             n=CIC_ORDER,
             sections=sections,
             queue_len=qlen,
+            data=spec.data is not None,
         )
         pr = schemes.predict(
             v,

@@ -352,6 +352,20 @@ def uses_reciprocal(tgt: Target) -> bool:
     return not tgt.hw_divide and CORES[tgt.core].mul32_cycles <= 2
 
 
+# Cycles per output sample of a data design's data path (the matched filter and the clock every
+# sample, the loop, the ring and the framing once a bit, spread over 8 samples a bit), measured in
+# the emulator by benchmarks/bench_datalink.py (2026-12-03, -Os, examples/weather_station_fsk.toml:
+# the chain's cycles per output sample with the data path less without). Other cores: the
+# Cortex-M4 figure in plain ALU steps times the core's op_cycles, an estimate.
+DATA_CYCLES = {"cortex-m0plus": 125, "cortex-m4": 69, "rv32imc": 73, "rv32ec": 104, "avr": 387}
+DATA_OPS = 70
+
+
+def data_cycles_per_output(core: str, op_cycles: int) -> int:
+    """The data path's planned cycles per output sample on ``core`` (see DATA_CYCLES)."""
+    return DATA_CYCLES.get(core, DATA_OPS * op_cycles)
+
+
 def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, int, int] | None:
     """(per_edge, per_input, per_grid, per_output) from the core's calibrated table, with the
     exception entry and exit of each ISR from the target (the profile's or the spec's), or None
@@ -384,10 +398,20 @@ def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, 
 
 
 def load(
-    v: Variant, tgt: Target, *, edge_hz_max: float, grid_hz: float, out_hz: float, n: int, sections: int, queue_len: int
+    v: Variant,
+    tgt: Target,
+    *,
+    edge_hz_max: float,
+    grid_hz: float,
+    out_hz: float,
+    n: int,
+    sections: int,
+    queue_len: int,
+    data: bool = False,
 ) -> Load:
     """Estimated cycles and RAM: from the core's calibrated table (edgetally.planner.costs) where it
-    has one, else from the profile figures and the op counts above."""
+    has one, else from the profile figures and the op counts above; ``data``: a data design's data
+    path too (data_cycles_per_output)."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
     # the scale product, the sections (planned_filter_cycles; the designer may then pick a cheaper
@@ -425,6 +449,8 @@ def load(
             cycles = stamp_rate * (per_edge + per_input) + grid_hz * per_grid
         else:
             cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
+    if data:
+        per_output += data_cycles_per_output(tgt.core, op)
     cycles += out_hz * per_output
     ram = 4 * (10 + 2 * n) + 16 * sections + queue_len * in_bytes + (8 if v.order == "cubic" else 0)
     return Load(per_edge, per_input, per_grid, per_output, cycles / tgt.cpu_hz, ram)
