@@ -94,7 +94,7 @@ def count_noise_level(if_hz: float, band_hz: float, grid_hz: float) -> float:
 
 
 SIM_SECONDS = 0.1  # of noisy IF per table: about 0.1 s x grid rate instants, E|h| to a few %
-SIM_CNRS_DB = tuple(float(c) for c in range(-6, 41))  # the table's CNRs (dB), 1 dB apart
+SIM_CNRS_DB = tuple(float(c) for c in range(-6, 41, 2))  # the table's CNRs (dB), 2 dB apart
 SIM_SAMPLES = 2_000_000  # above this many IF samples the model stands alone (the stamps are then many)
 SIM_OVERSAMPLE = 8.0
 
