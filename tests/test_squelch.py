@@ -205,3 +205,35 @@ def test_squelch_setting_is_checked(value):
     assert e.value.field == "signal.squelch_cnr_db"
     raw["signal"]["squelch_cnr_db"] = 12
     assert parse_spec(raw).signal.squelch_cnr_db == 12.0
+
+
+@pytest.mark.parametrize("example", ["orchard_link", "tiny_irq"])
+def test_simulated_levels_agree_with_the_model_where_it_holds(example):
+    # where the stamps outnumber the grid instants the noise model holds (test_switching_cnr_near_the_design):
+    # there the design-time simulation (designer.squelch.stamp_level_curve) must agree with it from
+    # 6 to 12 dB (above the FM threshold, where the model's white-noise phase error applies). Bound:
+    # the model's stated accuracy, about 1.5 dB of CNR, i.e. 0.75 dB of E|h| (E|h| goes as CNR^-1/2),
+    # plus three standard errors of the simulation's mean of |h| over its N grid instants (relative
+    # std of a Gaussian mean-absolute estimate sqrt(pi/2 - 1) / sqrt(N), N = 0.1 s of the grid)
+    from edgetally.designer.assemble import _stamp_front
+    from edgetally.planner import schemes
+
+    d = ALL_DESIGNS[f"{example}:auto"]
+    fr, grid = d.front, d.rates.grid_hz
+    band = 2.0 * (d.full_scale_hz + d.audio_hz)
+    st = _stamp_front(fr, d.rates.timer_hz)
+    curve = sqd.stamp_level_curve(
+        d.if_hz, *st[:2], grid, band, d.test.tone_hz, d.test.level * d.full_scale_hz, *st[2:]
+    )
+    assert curve is not None
+    n = sqd.SIM_SECONDS * grid
+    bound = 0.75 + 3 * 20 * math.log10(1 + math.sqrt(math.pi / 2 - 1) / math.sqrt(n))
+    w = schemes.CUBIC_WEIGHT if fr.order == "cubic" else schemes.LINEAR_WEIGHT
+    checked = 0
+    for cnr, level in zip(*curve):
+        if 6.0 <= cnr <= 12.0:
+            k = sqd.noise_var(10 ** (cnr / 10), grid_hz=grid, band_hz=band, edge_hz=d.if_hz / fr.prescale, weight=w)
+            model_level = sqd.GAUSS_MEAN_ABS * math.sqrt(k)
+            assert abs(20 * math.log10(level / model_level)) <= bound, (cnr, level, model_level, bound)
+            checked += 1
+    assert checked >= 3
