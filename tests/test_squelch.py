@@ -214,7 +214,7 @@ def test_simulated_levels_agree_with_the_model_where_it_holds(example):
     # 6 to 12 dB (above the FM threshold, where the model's white-noise phase error applies). Bound:
     # the model's stated accuracy, about 1.5 dB of CNR, i.e. 0.75 dB of E|h| (E|h| goes as CNR^-1/2),
     # plus three standard errors of the simulation's mean of |h| over its N grid instants (relative
-    # std of a Gaussian mean-absolute estimate sqrt(pi/2 - 1) / sqrt(N), N = 0.1 s of the grid)
+    # std of a Gaussian mean-absolute estimate sqrt(pi/2 - 1) / sqrt(N), N = SIM_INSTANTS)
     from edgetally.designer.assemble import _stamp_front
     from edgetally.planner import schemes
 
@@ -226,7 +226,7 @@ def test_simulated_levels_agree_with_the_model_where_it_holds(example):
         d.if_hz, *st[:2], grid, band, d.test.tone_hz, d.test.level * d.full_scale_hz, *st[2:]
     )
     assert curve is not None
-    n = sqd.SIM_SECONDS * grid
+    n = sqd.SIM_INSTANTS
     bound = 0.75 + 3 * 20 * math.log10(1 + math.sqrt(math.pi / 2 - 1) / math.sqrt(n))
     w = schemes.CUBIC_WEIGHT if fr.order == "cubic" else schemes.LINEAR_WEIGHT
     checked = 0
