@@ -79,7 +79,11 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     if a.acc_bits == wordlength.SPLIT_ACC_BITS and not 8 <= cb <= 16:
         raise ValueError(f"the split products need Q8..Q16 coefficients, not Q{cb}")
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
-    return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
+    f = Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections)
+    if a.shaped:
+        lo_hz = standard.band_lo_hz(sig.audio_hz)
+        f = wordlength.feedback_taps(f, q_in, out.rate_hz, lo_hz, sig.audio_hz)
+    return f, q_in
 
 
 def _droop(spec: Spec, p: Plan) -> tuple[int, int, float] | None:
@@ -111,7 +115,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
     # the split arithmetic stands in for a 32x32->64 multiply: offered where the core has none
-    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "mid", "wide"]
+    auto = ["narrow", "shaped", "wide"] if tgt.mul64 else ["narrow", "shaped", "mid", "wide"]
     names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
@@ -145,7 +149,14 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             if wordlength.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
                 break
             needed = cb
-        cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections), a.data_bits, a.coef_width)
+        cycles = schemes.filter_cycles(
+            tgt,
+            a.acc_bits,
+            len(f.sections),
+            a.data_bits,
+            a.coef_width,
+            fir=sum(s.fir for s in f.sections) if a.shaped else None,
+        )
         why = []
         if a.data_bits == 16:
             # zero-input limit cycles (Jackson 1969): the idle tone of a 16-bit word must stay under the

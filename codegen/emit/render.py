@@ -137,6 +137,12 @@ def _operations(design: Design) -> list[str]:
     ops = ["wrap_s32", "rshr", "sat", "squelch_level"]
     if design.filters.acc_bits == 48:
         ops += ["split_mac", "split_round"]
+    if design.filters.shaped:
+        ops += ["clip32"] + [
+            n
+            for n, used in (("fir_section", True), ("shaped_section", False))
+            if any(s.fir == used for s in design.filters.sections)
+        ]
     if design.stamps:
         ops.append("reciprocal" if design.recip is not None else "ratio_floor")
         if design.cubic:
