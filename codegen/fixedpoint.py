@@ -82,21 +82,27 @@ def section_step(
     return y, y != yr
 
 
-def shaped_step(coefs, z: list, e: list, x: int, coef_bits: int, limit: int) -> tuple[int, bool]:
-    """One section of the "shaped" output arithmetic (16-bit data, 16-bit coefficients, 32-bit
-    products and sums) with error feedback of its own rounding (error spectrum shaping: Higgins &
-    Munson, IEEE Trans. ASSP 30(6), 1982; Dattorro, JAES 36(11), 1988). coefs = (b0, b1, b2, a1, a2,
+def shaped_step(coefs, z: list, e: list, x: int, coef_bits: int, limit: int, wrap: bool = True) -> tuple[int, bool]:
+    """One section of the "shaped" output arithmetic (one 32-bit product per term, 32-bit sums: data
+    and coefficient widths whose sum the certificate keeps inside 32 bits) with error feedback of
+    its own rounding (error spectrum shaping: Higgins & Munson, IEEE Trans. ASSP 30(6), 1982;
+    Dattorro, JAES 36(11), 1988). coefs = (b0, b1, b2, a1, a2,
     k1, k2), z = [x1, x2, y1, y2] and e = [e1, e2] (the last two roundings' shifted-off bits) are
     updated in place:
-    acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 - k1 e1 - k2 e2, summed modulo 2**32 (each product is
-    exact in 32 bits, the final sum fits: see the certificate), yr = rshr(acc, coef_bits),
-    e0 = acc - yr 2**coef_bits (in [-2**(coef_bits-1), 2**(coef_bits-1)): fits 16 bits for
-    coef_bits <= 16), y = sat(yr, -limit, limit). The rounding error then reaches the output through
+    acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 - k1 e1 - k2 e2, summed modulo 2**32 (the final sum
+    fits: see the certificate), yr = rshr(acc, coef_bits),
+    e0 = acc - yr 2**coef_bits (in [-2**(coef_bits-1), 2**(coef_bits-1))), y = sat(yr, -limit, limit).
+    Each product is taken modulo 2**32 (unsigned in C, as a 32-bit MULS gives it); only the final
+    sum must fit. The rounding error then reaches the output through
     (1 + k1 z^-1 + k2 z^-2) / A(z) instead of 1 / A(z). A FIR section (a1 = a2 = k1 = k2 = 0, the
     droop compensator) is the same step without the recursion, and its C twin (``fir_section``)
-    skips those products. Returns (y, whether the saturation engaged); C: ``shaped_section``."""
+    skips those products. Returns (y, whether the saturation engaged); C: ``shaped_section``.
+    ``wrap=False`` keeps the exact sum: for analyses from states no legal input reaches (the
+    zero-input limit cycles), where a wrapped sum would start an overflow oscillation instead."""
     b0, b1, b2, a1, a2, k1, k2 = coefs
-    acc = wrap_s32(b0 * x + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3] - k1 * e[0] - k2 * e[1])
+    acc = b0 * x + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3] - k1 * e[0] - k2 * e[1]
+    if wrap:
+        acc = wrap_s32(acc)
     yr = rshr(acc, coef_bits)
     e[1], e[0] = e[0], acc - (yr << coef_bits)
     y = sat(yr, -limit, limit)
@@ -582,36 +588,34 @@ static inline int32_t {p}_split_round(int32_t hi, int32_t mid, int32_t lo, unsig
     "split_mac": _SPLIT_MAC_C,
     "shaped_section": _NOLINT_BEGIN
     + """\
-static inline int32_t {p}_shaped_section(const int16_t *c, int32_t v, const int16_t *z, int16_t *e, unsigned shift)
+static inline int32_t {p}_shaped_section(const int32_t *c, int32_t v, const int32_t *z, int32_t *e, unsigned shift)
 """
     + _NOLINT_END
     + """\
 {{
-    /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3 - k1 e1 - k2 e2: exact 32-bit products summed modulo
-     * 2^32 (the certificate bounds the final sum), rounded; the shifted-off bits become e0 (error
-     * feedback, edgetally.fixedpoint.shaped_step). Returns the rounded sum before saturation. */
+    /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3 - k1 e1 - k2 e2: 32-bit products summed modulo 2^32 (the
+     * certificate bounds the final sum), rounded; the shifted-off bits become e0 (error feedback,
+     * edgetally.fixedpoint.shaped_step). Returns the rounded sum before saturation. */
     const uint32_t half = UINT32_C(1) << (shift - 1u);
-    uint32_t sum = ((uint32_t)((int32_t)c[0] * v) + (uint32_t)((int32_t)c[1] * (int32_t)z[0]))
-                 + (uint32_t)((int32_t)c[2] * (int32_t)z[1]);
+    uint32_t sum = (((uint32_t)c[0] * (uint32_t)v) + ((uint32_t)c[1] * (uint32_t)z[0])) + ((uint32_t)c[2] * (uint32_t)z[1]);
     int32_t acc;
     int32_t yr;
-    sum -= (uint32_t)((int32_t)c[3] * (int32_t)z[2]) + (uint32_t)((int32_t)c[4] * (int32_t)z[3]);
-    sum -= (uint32_t)((int32_t)c[5] * (int32_t)e[0]) + (uint32_t)((int32_t)c[6] * (int32_t)e[1]);
+    sum -= ((uint32_t)c[3] * (uint32_t)z[2]) + ((uint32_t)c[4] * (uint32_t)z[3]);
+    sum -= ((uint32_t)c[5] * (uint32_t)e[0]) + ((uint32_t)c[6] * (uint32_t)e[1]);
     acc = {p}_wrap_s32(sum);
     yr = {p}_asr32(acc + (int32_t)half, shift);
     e[1] = e[0];
-    e[0] = (int16_t)(acc - (yr * (int32_t)(UINT32_C(1) << shift)));   /* |e0| <= 2^(shift-1) */
+    e[0] = acc - (yr * (int32_t)(UINT32_C(1) << shift));   /* |e0| <= 2^(shift-1) */
     return yr;
 }}
 """,
     "fir_section": """\
-static inline int32_t {p}_fir_section(const int16_t *c, int32_t v, const int16_t *z, unsigned shift)
+static inline int32_t {p}_fir_section(const int32_t *c, int32_t v, const int32_t *z, unsigned shift)
 {{
     /* b0 v + b1 z0 + b2 z1 summed modulo 2^32, rounded: shaped_section with a1 = a2 = k1 = k2 = 0
      * (edgetally.fixedpoint.shaped_step); returns the rounded sum before saturation */
     const uint32_t half = UINT32_C(1) << (shift - 1u);
-    uint32_t sum = ((uint32_t)((int32_t)c[0] * v) + (uint32_t)((int32_t)c[1] * (int32_t)z[0]))
-                 + (uint32_t)((int32_t)c[2] * (int32_t)z[1]);
+    uint32_t sum = (((uint32_t)c[0] * (uint32_t)v) + ((uint32_t)c[1] * (uint32_t)z[0])) + ((uint32_t)c[2] * (uint32_t)z[1]);
     return {p}_asr32({p}_wrap_s32(sum) + (int32_t)half, shift);
 }}
 """,

@@ -186,6 +186,8 @@ def arith_name(d: Design) -> str:
     from ..designer.wordlength import ARITHS
 
     f = d.filters
+    if f.shaped:  # its data width follows its coefficient format (designer.assemble._shaped_words)
+        return "shaped"
     return next(
         name
         for name, a in ARITHS.items()
