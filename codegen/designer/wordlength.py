@@ -337,7 +337,7 @@ def certificate(
             acc_b = y_b * (1 << f.coef_bits) + half * (2 if f.shaped else 1)
             note = "final sum; exact 32-bit products summed modulo 2^32 (partial sums may wrap)"
             if f.shaped:
-                note += ", plus the rounding half the C adds in 32 bits"
+                note = "final sum plus the rounding half; 32-bit products and sums modulo 2^32 (only this must fit)"
         else:
             acc_b = sum(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2)) * f.limit + half
             note = "sum of products of saturated words"
