@@ -16,7 +16,7 @@ second run measures only the integer C.
 
 Then, on the Cortex-M0+ class, the output chain's cycles per output sample per stage (base: CIC
 combs, scale, offset tracker, squelch, output word; then each filter section) for every example's
-chosen design and for the same plan in the shaped arithmetic (``stages``).
+chosen design and for the same plan in one other arithmetic (``stages``, ``stage_table``).
 """
 
 from __future__ import annotations
@@ -71,8 +71,9 @@ def stages(d, core: str, root: Path) -> tuple[float, list[float], float]:
 
 
 def stage_table(root: Path) -> None:
-    """Per stage on the M0+ class: every example's chosen design, and the same plan with the shaped
-    arithmetic forced (for comparison, whether or not it meets the spec's loss)."""
+    """Per stage on the M0+ class: every example's chosen design, and the same plan in one other
+    arithmetic for comparison (the shaped one, or when that is chosen the split "mid" one, the
+    choice on this class of core before it), whether or not that meets the spec's loss."""
     if STAGE_CORE not in available_cores():
         return
     print(f"\noutput chain per stage, emulated cycles per output sample on {STAGE_CORE} (-Os):")
@@ -82,8 +83,8 @@ def stage_table(root: Path) -> None:
     for path in sorted(EXAMPLES.glob("*.toml")):
         spec = edgetally.load_spec(path)
         chosen = edgetally.design(spec)
-        shaped = assemble_design(spec, settle(spec), overrides={"arith": "shaped"})
-        for d in (chosen, shaped):
+        other = "mid" if chosen.filters.shaped else "shaped"
+        for d in (chosen, assemble_design(spec, settle(spec), overrides={"arith": other})):
             name = arith_name(d)
             base, each, total = stages(d, STAGE_CORE, root / f"{path.stem}-{name}-stages")
             secs = ", ".join(f"{s.role}{'(fir)' if s.fir and d.filters.shaped else ''}: {c:.0f}"

@@ -24,6 +24,7 @@ from collections import defaultdict
 from pathlib import Path
 
 import numpy as np
+from scipy import optimize
 
 from ..designer.wordlength import ARITHS
 from ..planner import costs
@@ -134,7 +135,10 @@ def _fit(rows: list[tuple[dict[str, float], float]]) -> tuple[dict[str, float], 
     event); returns the cycles of each key and the worst relative deviation of the fit."""
     keys = sorted({k for r, _ in rows for k in r})
     a = np.array([[r.get(k, 0.0) / y for k in keys] for r, y in rows])
-    coef, *_ = np.linalg.lstsq(a, np.ones(len(rows)), rcond=None)
+    # non-negative least squares (scipy.optimize.nnls): no cost can be negative, and where the
+    # probes barely tell a base from a section count (the same number of sections in most probes)
+    # an unconstrained fit can trade one against the other into negative figures
+    coef, _ = optimize.nnls(a, np.ones(len(rows)))
     return dict(zip(keys, (float(c) for c in coef), strict=True)), float(np.max(np.abs(a @ coef - 1.0)))
 
 
