@@ -13,15 +13,24 @@ C, the float cycles and the ratio float/integer (below 1: float is faster on tha
 last column). Cycles: estimates from edgetally.target.cycles.TIMING on the unicorn cores, simavr's
 exact count on the AVR. The float figures are cached by design hash (edgetally.target.cache): a
 second run measures only the integer C.
+
+Then, on the Cortex-M0+ class, the output chain's cycles per output sample per stage (base: CIC
+combs, scale, offset tracker, squelch, output word; then each filter section) for every example's
+chosen design and for the same plan in one other arithmetic (``stages``, ``stage_table``).
 """
 
 from __future__ import annotations
 
+import dataclasses
 import tempfile
 from pathlib import Path
 
 import edgetally
 from edgetally.target import build as target
+from edgetally.designer.assemble import design as assemble_design
+from edgetally.check.choice import arith_name, settle
+from edgetally.stimulus.inputs import DEFAULT_SEED, make_inputs
+from edgetally.target import cycles
 from edgetally.target.check import available_cores
 from edgetally.target.float_baseline import baseline, bench_inputs, per_output
 
@@ -37,6 +46,50 @@ def code_bytes(build) -> int:
 
 def state_bytes(build) -> int:
     return build.ram_total - sum(build.ram_by_object.get(n, 0) for n in ("harness_in", "harness_out"))
+
+
+STAGE_CORE = "cortex-m0plus"
+
+
+def _output_cycles(d, core: str, root: Path, tag: str) -> float:
+    b = target.cross_build(d, core, "-Os", workdir=root / tag)
+    return cycles.measure(b, d, make_inputs(d, 0.05, DEFAULT_SEED), max_inputs=4000).cycles_per_output
+
+
+def stages(d, core: str, root: Path) -> tuple[float, list[float], float]:
+    """Emulated cycles per output sample of the output chain (everything after the CIC integrators:
+    combs, scale, offset tracker, squelch share, sections, output word), split by stage: each
+    section's cost is what one more copy of it adds (the design re-emitted with that section
+    doubled), the base (combs, scale, tracker, squelch, output word) the rest."""
+    total = _output_cycles(d, core, root, "full")
+    secs = d.filters.sections
+    each = []
+    for j in range(len(secs)):
+        twice = dataclasses.replace(d.filters, sections=secs[: j + 1] + secs[j:])
+        each.append(_output_cycles(dataclasses.replace(d, filters=twice), core, root, f"dup{j}") - total)
+    return total - sum(each), each, total
+
+
+def stage_table(root: Path) -> None:
+    """Per stage on the M0+ class: every example's chosen design, and the same plan in one other
+    arithmetic for comparison (the shaped one, or when that is chosen the split "mid" one, the
+    choice on this class of core before it), whether or not that meets the spec's loss."""
+    if STAGE_CORE not in available_cores():
+        return
+    print(f"\noutput chain per stage, emulated cycles per output sample on {STAGE_CORE} (-Os):")
+    hdr = f"{'example':14} {'arith':7} {'base':>6}  {'sections (role: cycles)':60} {'total':>6}"
+    print(hdr)
+    print("-" * len(hdr))
+    for path in sorted(EXAMPLES.glob("*.toml")):
+        spec = edgetally.load_spec(path)
+        chosen = edgetally.design(spec)
+        other = "mid" if chosen.filters.shaped else "shaped"
+        for d in (chosen, assemble_design(spec, settle(spec), overrides={"arith": other})):
+            name = arith_name(d)
+            base, each, total = stages(d, STAGE_CORE, root / f"{path.stem}-{name}-stages")
+            secs = ", ".join(f"{s.role}{'(fir)' if s.fir and d.filters.shaped else ''}: {c:.0f}"
+                             for s, c in zip(d.filters.sections, each, strict=True))
+            print(f"{path.stem:14} {name:7} {base:6.0f}  {secs:60} {total:6.0f}")
 
 
 def main() -> None:
@@ -68,6 +121,8 @@ def main() -> None:
     print("the harness buffers. On the AVR, double is float (32 bits) in avr-gcc, so f64 = f32.")
     if losses:
         print("\nInteger loses to hardware float on: " + ", ".join(losses) + ".")
+    with tempfile.TemporaryDirectory(prefix="edgetally-bench-stages-") as root:
+        stage_table(Path(root))
 
 
 if __name__ == "__main__":

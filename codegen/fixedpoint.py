@@ -82,6 +82,34 @@ def section_step(
     return y, y != yr
 
 
+def shaped_step(coefs, z: list, e: list, x: int, coef_bits: int, limit: int, wrap: bool = True) -> tuple[int, bool]:
+    """One section of the "shaped" output arithmetic (one 32-bit product per term, 32-bit sums: data
+    and coefficient widths whose sum the certificate keeps inside 32 bits) with error feedback of
+    its own rounding (error spectrum shaping: Higgins & Munson, IEEE Trans. ASSP 30(6), 1982;
+    Dattorro, JAES 36(11), 1988). coefs = (b0, b1, b2, a1, a2,
+    k1, k2), z = [x1, x2, y1, y2] and e = [e1, e2] (the last two roundings' shifted-off bits) are
+    updated in place:
+    acc = b0 x + b1 x1 + b2 x2 - a1 y1 - a2 y2 - k1 e1 - k2 e2, summed modulo 2**32 (the final sum
+    fits: see the certificate), yr = rshr(acc, coef_bits),
+    e0 = acc - yr 2**coef_bits (in [-2**(coef_bits-1), 2**(coef_bits-1))), y = sat(yr, -limit, limit).
+    Each product is taken modulo 2**32 (unsigned in C, as a 32-bit MULS gives it); only the final
+    sum must fit. The rounding error then reaches the output through
+    (1 + k1 z^-1 + k2 z^-2) / A(z) instead of 1 / A(z). A FIR section (a1 = a2 = k1 = k2 = 0, the
+    droop compensator) is the same step without the recursion, and its C twin (``fir_section``)
+    skips those products. Returns (y, whether the saturation engaged); C: ``shaped_section``.
+    ``wrap=False`` keeps the exact sum: for analyses from states no legal input reaches (the
+    zero-input limit cycles), where a wrapped sum would start an overflow oscillation instead."""
+    b0, b1, b2, a1, a2, k1, k2 = coefs
+    acc = b0 * x + b1 * z[0] + b2 * z[1] - a1 * z[2] - a2 * z[3] - k1 * e[0] - k2 * e[1]
+    if wrap:
+        acc = wrap_s32(acc)
+    yr = rshr(acc, coef_bits)
+    e[1], e[0] = e[0], acc - (yr << coef_bits)
+    y = sat(yr, -limit, limit)
+    z[1], z[0], z[3], z[2] = z[0], x, z[2], y
+    return y, y != yr
+
+
 def split_mac(acc: tuple[int, int, int], c: int, x: int) -> tuple[int, int, int]:
     """One 27 x 16 product c x of the "mid" output arithmetic, kept as three 16 x 16 -> 32 products of
     the word's top, middle and low bytes (x = (x >> 16) 2**16 + ((x >> 8) & 255) 2**8 + (x & 255),
@@ -564,6 +592,50 @@ static inline int32_t {p}_split_round(int32_t hi, int32_t mid, int32_t lo, unsig
 }}
 """,
     "split_mac": _SPLIT_MAC_C,
+    "shaped_section": _NOLINT_BEGIN
+    + """\
+static inline int32_t {p}_shaped_section(const int32_t *c, int32_t v, const int32_t *z, int32_t *e, unsigned shift)
+"""
+    + _NOLINT_END
+    + """\
+{{
+    /* b0 v + b1 z0 + b2 z1 - a1 z2 - a2 z3 - k1 e1 - k2 e2: 32-bit products summed modulo 2^32 (the
+     * certificate bounds the final sum), rounded; the shifted-off bits become e0 (error feedback,
+     * edgetally.fixedpoint.shaped_step). Returns the rounded sum before saturation. */
+    const uint32_t half = UINT32_C(1) << (shift - 1u);
+    uint32_t sum = (((uint32_t)c[0] * (uint32_t)v) + ((uint32_t)c[1] * (uint32_t)z[0])) + ((uint32_t)c[2] * (uint32_t)z[1]);
+    int32_t acc;
+    int32_t yr;
+    sum -= ((uint32_t)c[3] * (uint32_t)z[2]) + ((uint32_t)c[4] * (uint32_t)z[3]);
+    sum -= ((uint32_t)c[5] * (uint32_t)e[0]) + ((uint32_t)c[6] * (uint32_t)e[1]);
+    acc = {p}_wrap_s32(sum);
+    yr = {p}_asr32(acc + (int32_t)half, shift);
+    e[1] = e[0];
+    e[0] = acc - (yr * (int32_t)(UINT32_C(1) << shift));   /* |e0| <= 2^(shift-1) */
+    return yr;
+}}
+""",
+    "fir_section": """\
+static inline int32_t {p}_fir_section(const int32_t *c, int32_t v, const int32_t *z, unsigned shift)
+{{
+    /* b0 v + b1 z0 + b2 z1 summed modulo 2^32, rounded: shaped_section with a1 = a2 = k1 = k2 = 0
+     * (edgetally.fixedpoint.shaped_step); returns the rounded sum before saturation */
+    const uint32_t half = UINT32_C(1) << (shift - 1u);
+    uint32_t sum = (((uint32_t)c[0] * (uint32_t)v) + ((uint32_t)c[1] * (uint32_t)z[0])) + ((uint32_t)c[2] * (uint32_t)z[1]);
+    return {p}_asr32({p}_wrap_s32(sum) + (int32_t)half, shift);
+}}
+""",
+    "clip32": """\
+static inline int32_t {p}_clip32(int32_t x, int32_t lim, uint32_t *count)
+{{
+    /* sat(x, -lim, lim), counting every time it engages */
+    int32_t r = (x < -lim) ? -lim : ((x > lim) ? lim : x);
+    if (r != x) {{
+        (*count)++;
+    }}
+    return r;
+}}
+""",
     "rshr32": """\
 static inline int32_t {p}_rshr32(int32_t x, unsigned s)
 {{
@@ -633,7 +705,7 @@ def cubic_c_text(prefix: str, delta_limit: int, recip: RecipPlan | None, shift: 
 """
 
 
-_ASR_USERS = {"split_round", "split_mac", "rshr32", "cubic_fraction"}
+_ASR_USERS = {"split_round", "split_mac", "rshr32", "cubic_fraction", "shaped_section", "fir_section"}
 
 
 def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0, shift: int = 0) -> str:
@@ -648,6 +720,8 @@ def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta
         or (wanted is not None and "reciprocal" in wanted and recip is not None and recip.steps)
     ):
         wanted.add("asr32")  # the one signed shift the others call
+    if wanted is not None and wanted & {"shaped_section", "fir_section"}:
+        wanted.add("wrap_s32")
     chosen = [n for n in C_DEFINITIONS if wanted is None or n in wanted]
     text = "".join(C_DEFINITIONS[n] for n in chosen).format(p=prefix)
     if recip is not None and (names is None or "reciprocal" in names):

@@ -138,6 +138,15 @@ class Section:
     a2: int
     q_out: int
     float_sos: tuple[float, ...]  # the unscaled, unquantised design row, for the reference
+    # error feedback of the "shaped" arithmetic (fixedpoint.shaped_step): the section's last two
+    # roundings enter its sum as - k1 e[n-1] - k2 e[n-2]; 0, 0 in every other arithmetic
+    k1: int = 0
+    k2: int = 0
+
+    @property
+    def fir(self) -> bool:
+        """No recursion (a1 = a2 = 0): the droop compensator's sections."""
+        return self.a1 == 0 and self.a2 == 0
 
 
 @dataclass(frozen=True)
@@ -154,6 +163,9 @@ class Filters:
     scaling: str  # "l1", "l2" or "linf": the norm that set each q_out
     limit: int  # 2**(data_bits - 1) - 1: every node saturates here
     sections: tuple[Section, ...]
+    # the "shaped" arithmetic: 32-bit sums as with acc_bits 32, each recursive section with error
+    # feedback of its rounding (Section.k1, k2), FIR sections without the recursion's products
+    shaped: bool = False
 
 
 @dataclass(frozen=True)
@@ -408,6 +420,7 @@ class Design:
             "coef_bits": f.coef_bits,
             "coef_width": f.coef_width,
             "accumulator_bits": f.acc_bits,
+            "error_feedback": [[s.k1, s.k2] for s in f.sections] if f.shaped else None,
             "scaling": f.scaling,
             "section_q": [s.q_out for s in f.sections],
             "output": self.output.format,

@@ -140,7 +140,9 @@ class Fixed:
     loss_limit_db: float = 0.5  # largest implementation loss (float SINAD minus fixed SINAD)
     response_tol_db: float = 0.05  # largest gain error of the quantised filters over the band
     scaling: str = "l1"  # "l1" (no overflow for any input), "l2" or "linf" (wide only)
-    arith: str = "auto"  # "auto" (cheapest that meets the loss), "narrow", "mid" (split 27 x 16) or "wide"
+    # "auto" (cheapest that meets the loss), "narrow", "shaped" (narrow with error feedback), "mid"
+    # (split 27 x 16) or "wide"
+    arith: str = "auto"
     droop_limit_db: float = DROOP_LIMIT_DB  # compensate the CIC droop when it exceeds this in the band (0: never)
 
 
@@ -521,7 +523,7 @@ def _fixed(raw: dict) -> Fixed:
     if not isinstance(f, dict):
         raise SpecError("fixed", f, "must be a table [fixed]")
     _check_keys(f, "fixed", _SECTIONS["fixed"])
-    choices = {"scaling": ("l1", "l2", "linf"), "arith": ("auto", "narrow", "mid", "wide")}
+    choices = {"scaling": ("l1", "l2", "linf"), "arith": ("auto", "narrow", "shaped", "mid", "wide")}
     for key, allowed in choices.items():
         if key in f and f[key] not in allowed:
             raise SpecError(f"fixed.{key}", f[key], "must be one of " + ", ".join(f'"{a}"' for a in allowed))
@@ -532,8 +534,10 @@ def _fixed(raw: dict) -> Fixed:
         arith=f.get("arith", "auto"),
         droop_limit_db=_number(f, "fixed", "droop_limit_db", default=DROOP_LIMIT_DB),
     )
-    if fx.scaling != "l1" and fx.arith == "narrow":
-        raise SpecError("fixed.scaling", fx.scaling, 'the narrow arithmetic has 32-bit accumulators and needs "l1"')
+    if fx.scaling != "l1" and fx.arith in ("narrow", "shaped"):
+        raise SpecError(
+            "fixed.scaling", fx.scaling, f'the {fx.arith} arithmetic has 32-bit accumulators and needs "l1"'
+        )
     return fx
 
 

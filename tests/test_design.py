@@ -56,6 +56,14 @@ def test_word_lengths_cannot_overflow(path):
             names = {r.name for r in d.certificate}
             assert all(f"iir.{k}.split_{w}" in names for k in range(len(f.sections))
                        for w in ("hi", "mid", "lo", "top", "out"))
+        elif f.shaped:
+            # one 32-bit product per term taken modulo 2^32: the data word and the coefficient format
+            # share 31 bits, so the rounded output times 2^coef_bits plus the rounding half fits
+            # int32; the certificate bounds that final sum and the fed-back rounding errors
+            assert f.data_bits + f.coef_bits <= 31 and f.coef_width == 16
+            names = {r.name for r in d.certificate}
+            assert all(f"iir.{k}.acc" in names for k in range(len(f.sections)))
+            assert all(f"iir.{k}.error" in names for k, s in enumerate(f.sections) if not s.fir)
         else:
             assert max(abs(v) for v in coefs) * f.limit < 1 << 31 and f.data_bits == f.coef_width == 16
     # Every register of the certificate has a non-negative margin.

@@ -4,7 +4,7 @@ class the planner's cheapest options are for).
 
 The variants: the stamp estimators (linear, cubic) at every capture prescaler (1, 2, 4, 8), the
 edge interrupt's stamp (linear, cubic) and count forms, the IF-clocked counter, and each output
-arithmetic (narrow, mid, wide). Each is forced with ``plan(variant=...)`` and the designer's overrides on
+arithmetic (narrow, shaped, mid, wide). Each is forced with ``plan(variant=...)`` and the designer's overrides on
 a scenario of our own whose budget lets every variant through (the point here is the code paths,
 not the choice). Bit-exact means equal on every output sample, compared in full, and equal gap and
 clamp counts.
@@ -37,7 +37,7 @@ SCENARIO = {
 VARIANTS = [("timestamp", f"k{k}-{order}", None) for k in (1, 2, 4, 8) for order in ("linear", "cubic")]
 VARIANTS += [("interrupt", "stamp-linear", None), ("interrupt", "stamp-cubic", None), ("interrupt", "count", None),
              ("counter", "count", None), ("timestamp", "k1-linear", "narrow"), ("timestamp", "k1-linear", "mid"),
-             ("timestamp", "k1-linear", "wide")]
+             ("timestamp", "k1-linear", "wide"), ("timestamp", "k1-linear", "shaped")]
 
 
 # The same link on an M4-class part (a divide instruction): its stamp fronts divide per grid instant
@@ -66,6 +66,7 @@ def test_every_variant_is_covered(built):
     offered = {(v.scheme, v.label) for v, why in schemes.variants(spec.target) if why is None}
     assert offered == {(s, lab) for s, lab, _ in VARIANTS}
     assert {d.filters.acc_bits for d in built.values()} == {32, 48, 64}
+    assert {d.filters.shaped for d in built.values()} == {True, False}
     assert {d.front.prescale for d in built.values()} == {1, 2, 4, 8}
     assert {d.cubic for d in built.values()} == {True, False}
     assert {d.front.divide for d in built.values() if d.stamps} == {"reciprocal", "division"}
@@ -77,7 +78,8 @@ def test_variant_bit_exact_on_host(built, v):
     d = built[v]
     assert (d.scheme, d.variant) == v[:2]
     if v[2]:
-        assert d.filters.acc_bits == {"narrow": 32, "mid": 48, "wide": 64}[v[2]]
+        assert d.filters.acc_bits == {"narrow": 32, "shaped": 32, "mid": 48, "wide": 64}[v[2]]
+        assert d.filters.shaped == (v[2] == "shaped")
     host = hostbuild.build(d)
     inputs = make_inputs(d, 0.3, seed=17)
     want = model.run(d, inputs)

@@ -147,13 +147,24 @@ def design_and_plan(
     if spec.fixed.arith != "auto":
         return d, p
     tried = []
-    for opt in assemble.width_options(spec, p):
+    opts = assemble.width_options(spec, p)
+    for opt in opts:
         if not opt.ok:
             continue
         cand = d if opt.arith == arith_name(d) else assemble.design(spec, p, overrides={"arith": opt.arith})
         loss = simulated_loss_db(cand, seconds, seed)
         tried.append(f"{opt.arith} {loss:.2f} dB")
         if loss <= spec.fixed.loss_limit_db:
+            # the cheaper arithmetics the predictions refused, and by which figure
+            refused = [
+                f"{o.arith} ({o.cycles_per_output} cycles: {o.reason})"
+                for o in opts
+                if not o.ok and o.filters is not None and o.cycles_per_output < opt.cycles_per_output
+            ]
+            if refused:
+                p = dataclasses.replace(
+                    p, notes=p.notes + (f"filter arithmetic {opt.arith}; cheaper ones refused: {'; '.join(refused)}",)
+                )
             if cand is not d:
                 p = dataclasses.replace(
                     p,
@@ -175,8 +186,10 @@ def arith_name(d: Design) -> str:
     from ..designer.wordlength import ARITHS
 
     f = d.filters
+    if f.shaped:  # its data width follows its coefficient format (designer.assemble._shaped_words)
+        return "shaped"
     return next(
         name
         for name, a in ARITHS.items()
-        if (a.data_bits, a.coef_width, a.acc_bits) == (f.data_bits, f.coef_width, f.acc_bits)
+        if (a.data_bits, a.coef_width, a.acc_bits, a.shaped) == (f.data_bits, f.coef_width, f.acc_bits, f.shaped)
     )

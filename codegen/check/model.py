@@ -26,6 +26,7 @@ from ..fixedpoint import (
     rshr,
     sat,
     section_step,
+    shaped_step,
     squelch_level,
     wrap_bits,
     wrap_s32,
@@ -202,7 +203,9 @@ def post_chain(design: Design, y: np.ndarray, taps: list | None = None) -> tuple
     u_all = sat(raw, -lim, lim)
     sats = int(np.count_nonzero(u_all != raw))
     coefs = [(s.b0, s.b1, s.b2, s.a1, s.a2) for s in f.sections]
+    fb = [(*c, s.k1, s.k2) for c, s in zip(coefs, f.sections, strict=True)]
     state = [[0, 0, 0, 0] for _ in coefs]
+    errors = [[0, 0] for _ in coefs]
     narrow_acc, split = f.acc_bits == 32, f.acc_bits == 48
     dc_acc = 0
     out = np.empty(u_all.size, dtype=np.int64)
@@ -216,8 +219,11 @@ def post_chain(design: Design, y: np.ndarray, taps: list | None = None) -> tuple
             v = sat(v, -lim, lim)
         if taps is not None:
             taps.append(v)
-        for c, z in zip(coefs, state, strict=True):
-            v, saturated = section_step(c, z, v, cb, lim, narrow_acc, split)
+        for c, cf, z, e in zip(coefs, fb, state, errors, strict=True):
+            if f.shaped:
+                v, saturated = shaped_step(cf, z, e, v, cb, lim)
+            else:
+                v, saturated = section_step(c, z, v, cb, lim, narrow_acc, split)
             sats += saturated
         o = v * of.lmul
         if of.rshift:

@@ -79,7 +79,11 @@ def _filters(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, coef_bits: 
     if a.acc_bits == wordlength.SPLIT_ACC_BITS and not 8 <= cb <= 16:
         raise ValueError(f"the split products need Q8..Q16 coefficients, not Q{cb}")
     sections = iir.quantise_rows(rows, roles, q_in, qs, cb)
-    return Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections), q_in
+    f = Filters(a.data_bits, cb, a.coef_width, a.acc_bits, scaling, lim, sections)
+    if a.shaped:
+        lo_hz = standard.band_lo_hz(sig.audio_hz)
+        f = wordlength.feedback_taps(f, q_in, out.rate_hz, lo_hz, sig.audio_hz)
+    return f, q_in
 
 
 def _droop(spec: Spec, p: Plan) -> tuple[int, int, float] | None:
@@ -105,13 +109,45 @@ def _out_format(spec: Spec, q_last: int) -> OutputFormat:
     return OutputFormat(fmt, rshift, lmul, 1 << (bits - 1), 0, (1 << bits) - 1, "uint16_t")
 
 
+SHAPED_SUM_BITS = 31  # data bits + coefficient bits of the shaped arithmetic: |y| 2^C + 2^C < 2^31
+
+
+def _shaped_words(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, ov: dict) -> tuple[wordlength.Arith, int]:
+    """The shaped arithmetic's words: one 32-bit product per term, so the data word and the
+    coefficient format share 31 bits (the rounded sum, |y| 2^C plus the rounding half, stays below
+    2^31: the certificate checks it). The fewest coefficient bits (Q8 up to what 16-bit storage
+    holds) whose quantised response meets the spec's tolerance leave the most bits to the data,
+    where the roundoff noise is; ``ov`` may fix either."""
+    if "coef_bits" in ov:
+        cb = ov["coef_bits"]
+        return dataclasses.replace(a, data_bits=ov.get("data_bits", SHAPED_SUM_BITS - cb)), cb
+    sig, rate = spec.signal, spec.output.rate_hz
+    widest = None
+    for cb in range(8, 16):
+        trial = dataclasses.replace(a, data_bits=ov.get("data_bits", SHAPED_SUM_BITS - cb))
+        try:
+            f, q_in = _filters(spec, p, trial, scaling, None)
+            if cb > f.coef_bits:  # 16-bit coefficient storage holds no finer format
+                break
+            f, q_in = _filters(spec, p, trial, scaling, cb)
+        except ValueError:
+            continue
+        widest = (trial, cb)
+        if wordlength.response_error_db(f, q_in, rate, sig.audio_hz) <= spec.fixed.response_tol_db:
+            return trial, cb
+    if widest is None:
+        raise ValueError("no coefficient format from Q8 gives a stable quantised filter in 16 bits")
+    return widest
+
+
 def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[WidthOption]:
     """Each arithmetic the output chain could use (or the one ``overrides`` describe), cheapest
     first, with its predicted loss, response error and cost, and whether it meets the spec."""
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
-    # the split arithmetic stands in for a 32x32->64 multiply: offered where the core has none
-    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "mid", "wide"]
+    # the shaped and the split arithmetic stand in for a 32x32->64 multiply: offered where the core
+    # has none (the shaped one's coarse coefficients meet the response tolerance, no more)
+    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "shaped", "mid", "wide"]
     names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
@@ -121,7 +157,11 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
         a = dataclasses.replace(a, **{k: ov[k] for k in ("data_bits", "coef_width", "acc_bits") if k in ov})
         scaling = ov.get("scaling", fx.scaling if a.acc_bits == 64 else "l1")
         try:
-            f, q_in = _filters(spec, p, a, scaling, ov.get("coef_bits"))
+            if a.shaped:
+                a, cb = _shaped_words(spec, p, a, scaling, ov)
+                f, q_in = _filters(spec, p, a, scaling, cb)
+            else:
+                f, q_in = _filters(spec, p, a, scaling, ov.get("coef_bits"))
         except ValueError as e:
             opts.append(WidthOption(name, None, 0, math.inf, math.inf, 0, 0, False, str(e)))
             continue
@@ -145,9 +185,16 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             if wordlength.response_error_db(g, q_in, spec.output.rate_hz, spec.signal.audio_hz) > fx.response_tol_db:
                 break
             needed = cb
-        cycles = schemes.filter_cycles(tgt, a.acc_bits, len(f.sections), a.data_bits, a.coef_width)
+        cycles = schemes.filter_cycles(
+            tgt,
+            a.acc_bits,
+            len(f.sections),
+            a.data_bits,
+            a.coef_width,
+            fir=sum(s.fir for s in f.sections) if a.shaped else None,
+        )
         why = []
-        if a.data_bits == 16:
+        if a.data_bits == 16 or a.shaped:
             # zero-input limit cycles (Jackson 1969): the idle tone of a 16-bit word must stay under the
             # planned noise (the widths check's rule); wider words put it far below any noise
             for sec, m in zip(f.sections, wordlength.limit_cycle_lsb(f), strict=True):

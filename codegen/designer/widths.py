@@ -62,7 +62,7 @@ def parse_sets(items: list[str]) -> dict:
         "data_bits": (16, 27, 32),
         "coef_width": (16, 32),
         "acc_bits": (32, 48, 64),
-        "arith": ("narrow", "mid", "wide"),
+        "arith": ("narrow", "shaped", "mid", "wide"),
         "scaling": ("l1", "l2", "linf"),
     }
     for name, choices in allowed.items():

@@ -2,6 +2,11 @@
 choice between a narrow and a wide arithmetic, roundoff-noise prediction, limit cycles, and the
 overflow certificate of every register.
 
+Error spectrum shaping (the "shaped" arithmetic): each recursive section feeds its last two
+roundings back with small integer taps, so its rounding noise reaches the output through
+(1 + k1 z^-1 + k2 z^-2) / A(z) instead of 1 / A(z) (Higgins & Munson, IEEE Trans. ASSP 30(6), 1982;
+Dattorro, JAES 36(11), 1988); the taps are chosen per section to minimise the in-band noise.
+
 Sources: per-section scaling by the L1 norm of the impulse response from the chain input to each
 section output guarantees no overflow for any bounded input; L2 and Linf trade headroom for noise
 (Jackson, BSTJ 49(2), 1970). Roundoff noise: each rounding is a white source of q^2/12 shaped by
@@ -13,13 +18,14 @@ node saturates (Ebert, Mazo & Taylor, BSTJ 48(9), 1969).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
 import numpy as np
 from scipy import signal
 
-from ..fixedpoint import CUBIC_U_BITS, INV6, cubic_shifts, rshr, section_step
+from ..fixedpoint import CUBIC_U_BITS, INV6, cubic_shifts, rshr, section_step, shaped_step
 from ..ir import Filters, Register, Section
 
 IMPULSE_LEN = 4096  # samples of impulse response for the norms (the filters decay far faster)
@@ -33,6 +39,7 @@ class Arith:
     data_bits: int
     coef_width: int
     acc_bits: int
+    shaped: bool = False  # error feedback of each recursive section's rounding (Filters.shaped)
 
 
 NARROW = Arith("narrow", 16, 16, 32)  # 16 x 16 -> 32 products, 32-bit sums: cheap on small cores
@@ -42,7 +49,13 @@ NARROW = Arith("narrow", 16, 16, 32)  # 16 x 16 -> 32 products, 32-bit sums: che
 SPLIT_ACC_BITS = 48
 MID = Arith("mid", 27, 16, SPLIT_ACC_BITS)
 WIDE = Arith("wide", 32, 32, 64)  # 32 x 32 -> 64 multiply-accumulate: DSP-capable cores
-ARITHS = {"narrow": NARROW, "mid": MID, "wide": WIDE}
+# the narrow words with error feedback in every recursive section (fixedpoint.shaped_step): one
+# 32-bit multiply per product, what a Cortex-M0+ class MULS does in one instruction
+SHAPED = Arith("shaped", 16, 16, 32, shaped=True)
+ARITHS = {"narrow": NARROW, "shaped": SHAPED, "mid": MID, "wide": WIDE}
+# the error-feedback taps tried per section: k1 in -2..2, k2 in -1..1 (a double zero at DC is
+# (-2, 1); the nearest integers to a1, a2 put the noise zeros near the poles)
+FEEDBACK_TAPS = [(k1, k2) for k1 in range(-2, 3) for k2 in range(-1, 2)]
 
 
 def limit_of(bits: int) -> int:
@@ -131,11 +144,37 @@ def roundoff_noise(f: Filters, q_in: int, out_bits: int, out_hz: float, band_lo:
     # filter input): two sources of the input's LSB through every section
     total = 2 * band(2.0 ** (-2 * q_in) / 12, rows)
     for k, s in enumerate(f.sections):
-        recursion = [[1.0, 0.0, 0.0] + rows[k][3:]]  # 1 / A_k(z): the rounding is inside the loop
+        # 1 / A_k(z): the rounding is inside the loop; with error feedback (1 + k1 z^-1 + k2 z^-2) / A_k(z)
+        recursion = [[1.0, float(s.k1), float(s.k2)] + rows[k][3:]]
         total += band(2.0 ** (-2 * s.q_out) / 12, recursion + rows[k + 1 :])
     if f.sections[-1].q_out > out_bits - 1:  # the output word rounds only when it is coarser
         total += word_noise(out_bits, out_hz, band_lo, band_hz)
     return total
+
+
+def noise_gain(rows: list, k: int, taps: tuple[int, int], out_hz: float, band_lo: float, band_hz: float) -> float:
+    """In-band power gain (mean |H|^2 over [band_lo, band_hz]) from section k's rounding to the
+    output: (1 + k1 z^-1 + k2 z^-2) / A_k(z) times the sections after it (Higgins & Munson 1982)."""
+    fgrid = np.linspace(band_lo, band_hz, 512)
+    _, h = signal.sosfreqz(
+        np.array([[1.0, float(taps[0]), float(taps[1])] + rows[k][3:]] + rows[k + 1 :]), worN=fgrid, fs=out_hz
+    )
+    return float(np.mean(np.abs(h) ** 2))
+
+
+def feedback_taps(f: Filters, q_in: int, out_hz: float, band_lo: float, band_hz: float) -> Filters:
+    """``f`` with each recursive section's error-feedback taps set to the pair of FEEDBACK_TAPS with
+    the least in-band noise at the output (no feedback when none beats it); FIR sections keep 0, 0."""
+    rows = quantised_rows(f, q_in)
+    secs = []
+    for k, s in enumerate(f.sections):
+        if not s.fir:
+            best = min(
+                FEEDBACK_TAPS, key=lambda t: (noise_gain(rows, k, t, out_hz, band_lo, band_hz), abs(t[0]) + abs(t[1]))
+            )
+            s = dataclasses.replace(s, k1=best[0], k2=best[1])
+        secs.append(s)
+    return dataclasses.replace(f, sections=tuple(secs), shaped=True)
 
 
 def word_noise(out_bits: int, out_hz: float, band_lo: float, band_hz: float) -> float:
@@ -158,9 +197,15 @@ def limit_cycle_lsb(f: Filters, steps: int = 3000, seed: int = 1) -> list[float]
         for y1, y2 in starts:
             tail = 0
             z = [0, 0, y1, y2]
+            e = [0, 0]
             for n in range(steps):
-                # zero input; the wide arithmetic's sum (the narrow one's final sum fits as well)
-                y, _ = section_step(coefs, z, 0, f.coef_bits, f.limit, narrow=False)
+                # zero input; the wide arithmetic's sum (the narrow one's final sum fits as well), or
+                # the shaped one's with its error feedback (its exact sum: the worst starting states
+                # are not reachable from legal inputs, which the certificate bounds)
+                if f.shaped:
+                    y, _ = shaped_step((*coefs, s.k1, s.k2), z, e, 0, f.coef_bits, f.limit, wrap=False)
+                else:
+                    y, _ = section_step(coefs, z, 0, f.coef_bits, f.limit, narrow=False)
                 if n >= steps - 200:
                     tail = max(tail, abs(y))
             worst = max(worst, tail)
@@ -248,10 +293,13 @@ def certificate(
         y_b = in_b * norm(_impulse(rows[: k + 1]), "l1") * 2.0 ** (s.q_out - q_in)
         for j in range(k + 1):
             tail = [[1.0, 0.0, 0.0] + rows[j][3:]] + rows[j + 1 : k + 1]
-            y_b += 0.5 * norm(_impulse(tail), "l1") * 2.0 ** (s.q_out - f.sections[j].q_out)
+            # with error feedback the injected error is e0 + k1 e1 + k2 e2: (1 + |k1| + |k2|) / 2 LSB
+            inj = 0.5 * (1 + abs(f.sections[j].k1) + abs(f.sections[j].k2))
+            y_b += inj * norm(_impulse(tail), "l1") * 2.0 ** (s.q_out - f.sections[j].q_out)
         y_b = math.ceil(y_b)
         biggest = max(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2))
-        regs.append(reg(f"iir.{k}.product", f.acc_bits, biggest * f.limit, "largest coefficient x data limit"))
+        if not f.shaped:  # the shaped arithmetic's products are taken modulo 2^32: only the sum must fit
+            regs.append(reg(f"iir.{k}.product", f.acc_bits, biggest * f.limit, "largest coefficient x data limit"))
         if f.acc_bits == SPLIT_ACC_BITS:
             # the three 32-bit partial sums of the split products, and the rounded result before
             # its saturation (section_step's C twin in the template), for any saturated inputs
@@ -281,9 +329,15 @@ def certificate(
                     f"iir.{k}.split_out", 32, total * f.limit // (1 << f.coef_bits) + 2, "rounded sum before saturation"
                 )
             )
+        if f.shaped and not s.fir:
+            regs.append(reg(f"iir.{k}.error", 16, half, "shifted-off bits of the rounding, fed back"))
         if f.acc_bits == 32:
-            acc_b = y_b * (1 << f.coef_bits) + half
+            # the rounded sum is the output before saturation (<= y_b, feedback included) plus the
+            # rounding half: the sum itself, and the sum plus the half the C adds before shifting
+            acc_b = y_b * (1 << f.coef_bits) + half * (2 if f.shaped else 1)
             note = "final sum; exact 32-bit products summed modulo 2^32 (partial sums may wrap)"
+            if f.shaped:
+                note = "final sum plus the rounding half; 32-bit products and sums modulo 2^32 (only this must fit)"
         else:
             acc_b = sum(abs(c) for c in (s.b0, s.b1, s.b2, s.a1, s.a2)) * f.limit + half
             note = "sum of products of saturated words"

@@ -172,6 +172,12 @@ def _operations(design: Design) -> list[str]:
         ops += ["split_mac", "split_round"]
     if design.data is not None:
         ops += ["rshr32", "sat32"] + (["bit_errors"] if design.data.sync_bits else [])
+    if design.filters.shaped:
+        ops += ["clip32"] + [
+            n
+            for n, used in (("fir_section", True), ("shaped_section", False))
+            if any(s.fir == used for s in design.filters.sections)
+        ]
     if design.stamps:
         ops.append("reciprocal" if design.recip is not None else "ratio_floor")
         if design.cubic:
@@ -415,9 +421,10 @@ def emit(design: Design) -> dict[str, str]:
         banner=banner(design),
         api=api(design),
         nsec=len(design.filters.sections),
-        data_type="int16_t" if design.filters.data_bits == 16 else "int32_t",
-        coef_type="int16_t" if design.filters.coef_width == 16 else "int32_t",
-        coef_macro="INT16_C" if design.filters.coef_width == 16 else "INT32_C",
+        # the shaped arithmetic keeps 32-bit words (one load each, any data width up to its limit)
+        data_type="int16_t" if design.filters.data_bits == 16 and not design.filters.shaped else "int32_t",
+        coef_type="int16_t" if design.filters.coef_width == 16 and not design.filters.shaped else "int32_t",
+        coef_macro="INT16_C" if design.filters.coef_width == 16 and not design.filters.shaped else "INT32_C",
         offset_hz_per_lsb=f"{design.offset_hz_per_unit:.6g}",
         # template flags: the templates branch on these and print the Design, never decide
         stamp=design.stamps,

@@ -52,6 +52,11 @@ def arith_key(data_bits: int, coef_width: int, acc_bits: int) -> str:
     return f"d{data_bits}c{coef_width}a{acc_bits}"
 
 
+def shaped_key(fir: bool) -> str:
+    """The shaped arithmetic's recursive sections (error feedback) and its FIR sections."""
+    return "d16c16a32" + ("fir" if fir else "ef")
+
+
 def lookup(core: str, role: str, key: str) -> float | None:
     """The calibrated cycles of ``role`` ("isr", "input", "grid") for ``key``, or None."""
     t = table(core)

@@ -310,6 +310,8 @@ COUNT_INPUT_OPS = 40  # difference, zero run, clamp
 GRID_OPS_PER_STAGE = 8  # each CIC integrator and comb, per grid instant
 OUTPUT_OPS = 60  # combs' share, scale, offset tracker, output word
 SECTION_OPS = {64: 100, 48: 70, 32: 45}  # a section's rounding, saturation and state moves
+# the shaped arithmetic's sections in 32-bit words only (estimates, used where no calibrated table is)
+SHAPED_OPS, FIR_OPS = 30, 18
 
 
 def calibrated(tgt: Target) -> bool:
@@ -319,17 +321,28 @@ def calibrated(tgt: Target) -> bool:
     return costs.table(tgt.core) is not None and tgt.hw_divide == c.hw_divide and tgt.mul64 == c.mul64
 
 
-def filter_cycles(tgt: Target, acc_bits: int, sections: int, data_bits: int = 32, coef_width: int = 32) -> int:
+def filter_cycles(
+    tgt: Target, acc_bits: int, sections: int, data_bits: int = 32, coef_width: int = 32, fir: int | None = None
+) -> int:
     """Cycles of the IIR sections per output sample: from the core's calibrated table for this
     arithmetic, or five products and their sums per section, as 32x32->64 multiply-accumulates
     (64-bit accumulators), exact 32-bit products, or (48: the split 27 x 16 form) three 16x16->32
-    products each."""
+    products each. ``fir`` (the shaped arithmetic): how many of the sections are FIR sections, which
+    it runs without the recursion's products (its recursive sections take seven: the error feedback)."""
     table = costs.table(tgt.core) if calibrated(tgt) else None
+    keys = (
+        [(costs.arith_key(data_bits, coef_width, acc_bits), sections)]
+        if fir is None
+        else [(costs.shaped_key(False), sections - fir), (costs.shaped_key(True), fir)]
+    )
     if table is not None:
-        t = table["output"]["section"].get(costs.arith_key(data_bits, coef_width, acc_bits))
-        if t is not None:
-            return round(t * sections)
+        t = [table["output"]["section"].get(k) for k, _ in keys]
+        if all(v is not None for v in t):
+            return round(sum(v * n for v, (_, n) in zip(t, keys, strict=True)))
     mul = tgt.mac64_cycles if acc_bits == 64 else CORES[tgt.core].mul32_cycles
+    if fir is not None:
+        recursive = sections - fir
+        return recursive * (7 * mul + SHAPED_OPS * tgt.op_cycles) + fir * (3 * mul + FIR_OPS * tgt.op_cycles)
     products = 15 if acc_bits == 48 else 5
     return sections * (products * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
 

@@ -24,6 +24,7 @@ from collections import defaultdict
 from pathlib import Path
 
 import numpy as np
+from scipy import optimize
 
 from ..designer.wordlength import ARITHS
 from ..planner import costs
@@ -53,6 +54,9 @@ def probe_specs(examples: Path, core: str) -> list[tuple[str, dict]]:
                 r["target"]["cpu_hz"] = PROBE_CPU_HZ
                 r["target"]["cpu_budget"] = 1.0
                 r.setdefault("fixed", {})["arith"] = arith
+                # the cycles do not depend on the loss either: every arithmetic is priced, not only
+                # those that meet the example's limit (spec.LIMITS' largest loss limit)
+                r["fixed"]["loss_limit_db"] = 40.0
                 r["signal"]["deemphasis_us"] = de
                 out.append((f"{f.stem}/{arith}/de{de}", r))
     return out
@@ -88,8 +92,15 @@ def keys_of(design) -> dict:
         "input": costs.input_key(fr.kind, order, bits),
         "grid": costs.grid_key(fr.kind, order),
         "front": fr.kind,
-        "arith": costs.arith_key(f.data_bits, f.coef_width, f.acc_bits),
-        "sections": len(f.sections),
+        # sections per cost key: the shaped arithmetic's FIR and recursive sections cost apart
+        "sections": (
+            {
+                costs.shaped_key(True): sum(s.fir for s in f.sections),
+                costs.shaped_key(False): sum(not s.fir for s in f.sections),
+            }
+            if f.shaped
+            else {costs.arith_key(f.data_bits, f.coef_width, f.acc_bits): len(f.sections)}
+        ),
     }
 
 
@@ -124,7 +135,10 @@ def _fit(rows: list[tuple[dict[str, float], float]]) -> tuple[dict[str, float], 
     event); returns the cycles of each key and the worst relative deviation of the fit."""
     keys = sorted({k for r, _ in rows for k in r})
     a = np.array([[r.get(k, 0.0) / y for k in keys] for r, y in rows])
-    coef, *_ = np.linalg.lstsq(a, np.ones(len(rows)), rcond=None)
+    # non-negative least squares (scipy.optimize.nnls): no cost can be negative, and where the
+    # probes barely tell a base from a section count (the same number of sections in most probes)
+    # an unconstrained fit can trade one against the other into negative figures
+    coef, _ = optimize.nnls(a, np.ones(len(rows)))
     return dict(zip(keys, (float(c) for c in coef), strict=True)), float(np.max(np.abs(a @ coef - 1.0)))
 
 
@@ -162,7 +176,10 @@ def reduce(rows: list[tuple[dict, dict]]) -> dict:
         }
     table["front_fit_max_rel_dev"] = round(dev_front, 3)
     out, dev_out = _fit(
-        [({"base:" + k["front"]: 1.0, "section:" + k["arith"]: k["sections"]}, m["output"]) for k, m in rows]
+        [
+            ({"base:" + k["front"]: 1.0, **{"section:" + a: float(n) for a, n in k["sections"].items()}}, m["output"])
+            for k, m in rows
+        ]
     )
     table["output"] = {
         "base": {k.split(":", 1)[1]: round(v, 1) for k, v in out.items() if k.startswith("base:")},
