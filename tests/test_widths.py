@@ -28,7 +28,7 @@ def test_every_example_is_safe(path):
 def test_too_narrow_accumulator_is_named():
     """32-bit accumulators under 32-bit data: every product and sum overflows; exit 1, each named,
     and no C is run (it would be undefined)."""
-    # the wide arithmetic named: left to itself the designer finds the shaped one, whose 32-bit sums fit
+    # the wide arithmetic named: with 32-bit sums alone any arithmetic whose sums fit would do
     r = _widths(EXAMPLES / "campus_fm.toml", "--set", "filters.arith=wide", "--set", "filters.acc_bits=32", "--json")
     assert r.returncode == 1
     rep = json.loads(r.stdout)
