@@ -461,9 +461,30 @@ def division_quotient(d, shift: int):
     return lambda x, lbits: ratio_floor(x, shift - lbits, d)
 
 
+def split_scale(y, mult: int, shift: int):
+    """rshr(y * mult, shift) for a 32-bit y, 0 <= mult < 2**15 and 1 <= shift <= 31, from two
+    32-bit products of the halves of y: y = hi 2**16 + lo (hi = y >> 16, lo = y & 0xFFFF), so
+    y mult + 2**(shift-1) = A 2**16 + B with A = hi mult + r, B = lo mult + h (r, h: the halves of
+    the rounding constant; r = 0 when shift <= 16). For shift >= 16, floor((A 2**16 + B) / 2**shift)
+    = floor((A + floor(B / 2**16)) / 2**(shift-16)); for shift < 16 it is A 2**(16-shift) +
+    floor(B / 2**shift), A 2**16 being a multiple of 2**shift. Exact: no bit of the 64-bit product
+    is lost. |hi mult| < 2**30, 0 <= B < 2**32 (unsigned), and for shift < 16 the result itself
+    must fit int32 (the certificate's scale lines). C: ``split_scale`` (shift >= 16) and
+    ``split_scale_low`` (shift < 16)."""
+    half = 1 << (shift - 1)
+    if shift < 16:
+        a = (y >> 16) * mult
+        b = (y & 0xFFFF) * mult + half
+        return a * (1 << (16 - shift)) + (b >> shift)
+    a = (y >> 16) * mult + (half >> 16)
+    b = (y & 0xFFFF) * mult + (half & 0xFFFF)
+    return (a + (b >> 16)) >> (shift - 16)
+
+
 def squelch_level(lvl, a, shift: int, cap: int):
     """The noise squelch's level after one CIC output period: min(lvl - (lvl >> shift) + a, cap) on
-    unsigned 64-bit values (lvl <= cap and a < 2**32, so nothing wraps; see the certificate)."""
+    unsigned values (lvl <= cap and a < 2**32, so nothing wraps; see the certificate): 64-bit words,
+    or 32-bit ones (``squelch_level32``) where cap + a stays below 2**32 (``Squelch.level_bits``)."""
     v = lvl - (lvl >> shift) + a
     return cap if v > cap else v
 
@@ -575,11 +596,56 @@ static inline uint64_t {p}_squelch_level(uint64_t lvl, uint32_t a, unsigned shif
     return (v > cap) ? cap : v;
 }}
 """,
+    "squelch_level32": _NOLINT_BEGIN
+    + """\
+static inline uint32_t {p}_squelch_level32(uint32_t lvl, uint32_t a, unsigned shift, uint32_t cap)
+"""
+    + _NOLINT_END
+    + """\
+{{
+    /* squelch_level in 32-bit words: cap + a < 2^32 (the certificate's squelch.level) */
+    uint32_t v = lvl - (lvl >> shift) + a;
+    return (v > cap) ? cap : v;
+}}
+""",
     "asr32": """\
 static inline int32_t {p}_asr32(int32_t x, unsigned s)
 {{
     /* floor(x / 2^s), s < 32: arithmetic shift right (the emitted source checks that >> is arithmetic) */
     return x >> s;
+}}
+""",
+    "split_scale": _NOLINT_BEGIN
+    + """\
+static inline int32_t {p}_split_scale(int32_t y, int32_t mult, unsigned shift)
+"""
+    + _NOLINT_END
+    + """\
+{{
+    /* rshr(y mult, shift), 0 <= mult < 2^15, 16 <= shift <= 31, from two 32-bit products of the
+     * halves of y (edgetally.fixedpoint.split_scale: exact) */
+    const uint32_t half = UINT32_C(1) << (shift - 1u);
+    const uint32_t carry = half >> 16;
+    const int32_t a = ({p}_asr32(y, 16u) * mult) + (int32_t)carry;
+    const uint32_t b = (((uint32_t)y & 0xFFFFu) * (uint32_t)mult) + (half & 0xFFFFu);
+    const uint32_t low = b >> 16;
+    return {p}_asr32(a + (int32_t)low, shift - 16u);
+}}
+""",
+    "split_scale_low": _NOLINT_BEGIN
+    + """\
+static inline int32_t {p}_split_scale_low(int32_t y, int32_t mult, unsigned shift)
+"""
+    + _NOLINT_END
+    + """\
+{{
+    /* rshr(y mult, shift), 0 <= mult < 2^15, 1 <= shift < 16, the result within int32, from two
+     * 32-bit products of the halves of y (edgetally.fixedpoint.split_scale: exact) */
+    const int32_t a = {p}_asr32(y, 16u) * mult;
+    const uint32_t b = (((uint32_t)y & 0xFFFFu) * (uint32_t)mult) + (UINT32_C(1) << (shift - 1u));
+    const uint32_t scale = UINT32_C(1) << (16u - shift);
+    const uint32_t low = b >> shift;                  /* < 2^31: shift >= 1 */
+    return (a * (int32_t)scale) + (int32_t)low;
 }}
 """,
     "split_round": """\
@@ -705,7 +771,16 @@ def cubic_c_text(prefix: str, delta_limit: int, recip: RecipPlan | None, shift: 
 """
 
 
-_ASR_USERS = {"split_round", "split_mac", "rshr32", "cubic_fraction", "shaped_section", "fir_section"}
+_ASR_USERS = {
+    "split_scale",
+    "split_scale_low",
+    "split_round",
+    "split_mac",
+    "rshr32",
+    "cubic_fraction",
+    "shaped_section",
+    "fir_section",
+}
 
 
 def c_definitions(prefix: str, names=None, recip: RecipPlan | None = None, delta_limit: int = 0, shift: int = 0) -> str:

@@ -25,7 +25,7 @@ import edgetally
 from edgetally.check import hostbuild
 
 from conftest import host_cc
-from edgetally.fixedpoint import c_definitions, ratio_floor, rshr, sat, wrap_s32
+from edgetally.fixedpoint import c_definitions, ratio_floor, rshr, sat, split_scale, squelch_level, wrap_s32
 
 ROOT = Path(__file__).resolve().parents[1]
 I64_MIN, I64_MAX = -(1 << 63), (1 << 63) - 1
@@ -38,7 +38,8 @@ HARNESS = r"""
 
 {defs}
 
-/* One operation per input line: "w x" | "r x s" | "s x lo hi" | "q num shift den"; one result per line. */
+/* One operation per input line: "w x" | "r x s" | "s x lo hi" | "q num shift den" | "p y mult shift"
+ * | "l lvl a shift cap"; one result per line. */
 int main(void)
 {{
     char op;
@@ -61,6 +62,16 @@ int main(void)
             unsigned shift;
             if (scanf("%" SCNu32 " %u %" SCNu32, &num, &shift, &den) != 3) return 2;
             printf("%" PRIu32 "\n", fx_ratio_floor(num, shift, den));
+        }} else if (op == 'p') {{
+            int32_t y, mult;
+            unsigned shift;
+            if (scanf("%" SCNd32 " %" SCNd32 " %u", &y, &mult, &shift) != 3) return 2;
+            printf("%" PRId32 "\n", (shift >= 16u) ? fx_split_scale(y, mult, shift) : fx_split_scale_low(y, mult, shift));
+        }} else if (op == 'l') {{
+            uint32_t lvl, a, cap;
+            unsigned shift;
+            if (scanf("%" SCNu32 " %" SCNu32 " %u %" SCNu32, &lvl, &a, &shift, &cap) != 4) return 2;
+            printf("%" PRIu32 "\n", fx_squelch_level32(lvl, a, shift, cap));
         }} else {{
             return 3;
         }}
@@ -132,7 +143,33 @@ def _cases():
         cap = min(den - 1, ((1 << 32) - 1) >> shift)
         num = int(rng.integers(0, cap + 1))
         q.append((num, shift, den))
-    return w, r, sa, q
+    sp = []                                                        # split_scale: its stated domain
+    for shift in (16, 17, 18, 24, 30, 31):
+        for mult in (0, 1, 21845, (1 << 15) - 1):
+            for y in (0, 1, -1, 0xFFFF, -0x10000, (1 << 31) - 1, -(1 << 31), 1 << 16, -(1 << 16) - 1):
+                sp.append((y, mult, shift))
+    for _ in range(3000):
+        sp.append((int(rng.integers(-(1 << 31), 1 << 31)), int(rng.integers(0, 1 << 15)), int(rng.integers(16, 32))))
+    for shift in (1, 2, 8, 13, 15):                                # below 16: where the result fits int32
+        for mult in (0, 1, 21845, (1 << 15) - 1):
+            top = ((1 << 31) - 2 - 2 * (mult << (16 - shift))) << shift
+            y_lim = min((1 << 31) - 1, top // mult if mult else (1 << 31) - 1)
+            if y_lim > 0:
+                for y in (0, 1, -1, 0xFFFF, -0x10000, y_lim, -y_lim, y_lim // 3, -(y_lim // 7)):
+                    sp.append((y, mult, shift))
+    for _ in range(3000):
+        shift, mult = int(rng.integers(1, 16)), int(rng.integers(1, 1 << 15))
+        y_lim = min((1 << 31) - 1, (((1 << 31) - 2 - 2 * (mult << (16 - shift))) << shift) // mult)
+        if y_lim > 0:
+            sp.append((int(rng.integers(-y_lim, y_lim + 1)), mult, shift))
+
+    lv = []                                                        # squelch_level32: lvl <= cap, cap + a < 2^32
+    for _ in range(2000):
+        cap = int(rng.integers(1, 1 << 31))
+        a = int(rng.integers(0, (1 << 32) - cap))
+        lv.append((int(rng.integers(0, cap + 1)), a, int(rng.integers(1, 20)), cap))
+    lv += [(0, 0, 1, 1), ((1 << 31) - 1, (1 << 31), 3, (1 << 31) - 1), (5, 0, 1, 5)]
+    return w, r, sa, q, sp, lv
 
 
 def _run_harness(tmp_path, extra_flags):
@@ -146,24 +183,25 @@ def _run_harness(tmp_path, extra_flags):
     res = subprocess.run(cmd, capture_output=True, text=True)
     # STRICT_FLAGS contain -Werror: any warning fails the build; the stderr must also be empty.
     assert res.returncode == 0 and not res.stderr.strip(), f"{' '.join(cmd)}\n{res.stderr}"
-    w, r, sa, q = _cases()
+    w, r, sa, q, sp, lv = _cases()
     lines = ([f"w {x}" for x in w] + [f"r {x} {s}" for x, s in r]
-             + [f"s {x} {lo} {hi}" for x, lo, hi in sa] + [f"q {a} {b} {c}" for a, b, c in q])
+             + [f"s {x} {lo} {hi}" for x, lo, hi in sa] + [f"q {a} {b} {c}" for a, b, c in q]
+             + [f"p {a} {b} {c}" for a, b, c in sp] + [f"l {a} {b} {c} {d}" for a, b, c, d in lv])
     run = subprocess.run([str(exe)], input="\n".join(lines) + "\n", capture_output=True, text=True, timeout=60)
     assert run.returncode == 0, run.stderr
     assert not run.stderr.strip(), run.stderr                 # UBSan reports go to stderr
     out = [int(v) for v in run.stdout.split()]
     assert len(out) == len(lines)
-    i = 0
-    c_w, c_r = out[i:i + len(w)], out[i + len(w):i + len(w) + len(r)]
-    i = len(w) + len(r)
-    c_s, c_q = out[i:i + len(sa)], out[i + len(sa):]
-    return (w, r, sa, q), (c_w, c_r, c_s, c_q)
+    parts, i = [], 0
+    for table in (w, r, sa, q, sp, lv):
+        parts.append(out[i:i + len(table)])
+        i += len(table)
+    return (w, r, sa, q, sp, lv), tuple(parts)
 
 
 def _compare(inputs, c_out):
-    w, r, sa, q = inputs
-    c_w, c_r, c_s, c_q = c_out
+    w, r, sa, q, sp, lv = inputs
+    c_w, c_r, c_s, c_q, c_p, c_l = c_out
     for x, got in zip(w, c_w):
         assert got == wrap_s32(x) == ref_wrap_s32(x), ("wrap_s32", x, got, wrap_s32(x))
     for (x, s), got in zip(r, c_r):
@@ -172,6 +210,10 @@ def _compare(inputs, c_out):
         assert got == sat(x, lo, hi) == ref_sat(x, lo, hi), ("sat", x, lo, hi, got)
     for (num, shift, den), got in zip(q, c_q):
         assert got == ratio_floor(num, shift, den) == ref_ratio_floor(num, shift, den), ("ratio_floor", num, shift, den, got)
+    for (y, mult, shift), got in zip(sp, c_p):                 # the split product loses no bit of y mult
+        assert got == split_scale(y, mult, shift) == ref_rshr(y * mult, shift), ("split_scale", y, mult, shift, got)
+    for (lvl, a, shift, cap), got in zip(lv, c_l):             # min(lvl - floor(lvl / 2^shift) + a, cap)
+        assert got == squelch_level(lvl, a, shift, cap) == min(lvl - lvl // (1 << shift) + a, cap), ("level32", lvl, got)
 
 
 def test_c_matches_python(tmp_path):
@@ -215,7 +257,7 @@ def test_rshr_rounds_half_up(x, s, expected):
 
 def test_numpy_paths_equal_python_int_paths():
     # The integer model calls these functions on numpy int64 arrays: same results as Python ints.
-    w, r, sa, q = _cases()
+    w, r, sa, q, sp, _ = _cases()
     wa = np.array(w, dtype=np.int64)
     assert [int(v) for v in wrap_s32(wa)] == [wrap_s32(x) for x in w]
     for s in (1, 2, 19, 29):
@@ -229,6 +271,9 @@ def test_numpy_paths_equal_python_int_paths():
         nums = np.array([a for a, _ in qs], dtype=np.int64)
         dens = np.array([c for _, c in qs], dtype=np.int64)
         assert [int(v) for v in ratio_floor(nums, shift, dens)] == [ratio_floor(a, shift, c) for a, c in qs]
+    for shift in (16, 18, 31):                                  # the model's split scale on arrays (shift >= 16)
+        ys = np.array([y for y, _, _ in sp], dtype=np.int64)
+        assert [int(v) for v in split_scale(ys, 21845, shift)] == [split_scale(int(y), 21845, shift) for y in ys]
 
 
 @pytest.mark.parametrize("example", ["orchard_link.toml", "campus_fm.toml"])
