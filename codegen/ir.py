@@ -115,13 +115,22 @@ class Scale:
     Q(q): full-scale deviation = 2**q. The offset tracker then follows the DC of u (the tuning
     offset): dc_acc += u - rshr(dc_acc, dc_shift), dc = rshr(dc_acc, dc_shift), a one-pole
     low-pass with a time constant of 2**dc_shift output samples; the filters get
-    sat(u - dc, +-limit). ``limit`` is the data limit of the output chain (``Filters.limit``)."""
+    sat(u - dc, +-limit). ``limit`` is the data limit of the output chain (``Filters.limit``).
+
+    How the C takes these (the same values; the certificate's scale and offset lines prove the
+    words): ``product`` "s32" is one 32-bit product (|y - centre| mult + 2**(shift-1) < 2**31),
+    "split" and "split_low" two 32-bit products of the halves of y - centre
+    (``fixedpoint.split_scale``, mult < 2**15; shift >= 16, or below with the result in int32),
+    "s64" a 64-bit one; ``word`` 32 keeps the offset tracker, the data word
+    and the output word in 32-bit words, 64 in 64-bit ones."""
 
     centre: int
     mult: int
     shift: int
     q: int
     dc_shift: int
+    product: str = "s64"
+    word: int = 64
 
 
 @dataclass(frozen=True)
@@ -220,6 +229,7 @@ class Squelch:
     reopen_ms: float  # bound on the time to open on the clean standard test (from closed and capped)
     blind: bool = False  # counts that cannot tell noise from a carrier (designer.squelch); always open
     measured: bool = False  # levels from a simulation at design time, not the noise model (designer.squelch)
+    level_bits: int = 64  # the level's word: 32 where cap + the largest sum stays below 2**32 (certificate)
 
 
 @dataclass(frozen=True)

@@ -57,3 +57,26 @@ def host_cc() -> str | None:
         if name and shutil.which(name):
             return name
     return None
+
+
+# The words of the scale, offset-tracker and output stage (ir.Scale.product and .word) and of the
+# squelch level (ir.Squelch.level_bits) are branches of the emitted C of their own: each form not
+# met above is forced here on the narrow design by replacing those fields of its Design (the model
+# reads the same Design, so bit-exactness is still the check). The one-product form needs
+# |y - centre| mult below 2^31: the multiplier is cut (and the shift with it) until it is.
+def scale_forms(d):
+    import dataclasses
+
+    sc = d.scale
+    d_max = max(sc.centre, next(r.bound for r in d.certificate if r.name == "cic.output") - sc.centre)
+    k = max(0, (d_max * sc.mult).bit_length() - 30)
+    s32 = dataclasses.replace(sc, product="s32", mult=sc.mult >> k, shift=sc.shift - k)
+    assert d_max * s32.mult + (1 << (s32.shift - 1)) < 1 << 31 and s32.shift >= 1
+    return {
+        "s32-w32": dataclasses.replace(d, scale=s32),
+        "s32-w64": dataclasses.replace(d, scale=dataclasses.replace(s32, word=64)),
+        "s64-w32": dataclasses.replace(d, scale=dataclasses.replace(sc, product="s64")),
+        "s64-w64": dataclasses.replace(d, scale=dataclasses.replace(sc, product="s64", word=64)),
+        "split-w64-level64": dataclasses.replace(d, scale=dataclasses.replace(sc, word=64),
+                                                 squelch=dataclasses.replace(d.squelch, level_bits=64)),
+    }

@@ -101,3 +101,16 @@ def test_uncalibrated_override_falls_back():
     assert schemes.calibrated(spec.target) == (costs.table(spec.target.core) is not None)
     other = dataclasses.replace(spec.target, hw_divide=not spec.target.hw_divide)
     assert not schemes.calibrated(other)
+
+
+@pytest.mark.parametrize("path", EXAMPLE_FILES, ids=lambda p: p.stem)
+def test_planned_load_matches_emulator_named_shaped(path):
+    # a spec that names the shaped arithmetic is planned with it (planner.schemes.planned_filter_cycles)
+    import tomllib
+
+    raw = tomllib.loads(path.read_text())
+    raw.setdefault("fixed", {})["arith"] = "shaped"
+    d = edgetally.design(parse_spec(raw))
+    assert d.filters.shaped
+    _check(d)
+

@@ -126,10 +126,18 @@ def test_cpu_load_from_the_calibrated_table():
     sec = t["output"]["section"]
     wide = round(2 * sec["d32c32a64"])
     split = round(2 * sec["d27c16a48"]) if "d27c16a48" in sec else wide
-    per_output = round(t["output"]["base"]["stamp"] + min(wide, split))
+    # the planned base: 64-bit words (the form the planned arithmetics give), costs.base_forms
+    base = t["output"]["base"]["stamp"] + t["output"].get("form", {}).get("word64", 0.0)
+    per_output = round(base + min(wide, split))
     assert (ld.per_edge, ld.per_input, ld.per_grid, ld.per_output) == (per_edge, per_input, per_grid, per_output)
     cycles = 30_000 * (per_edge + per_input) + 16_000 * per_grid + 8_000 * per_output
     assert ld.fraction == pytest.approx(cycles / 48e6, rel=1e-12)
+    # a spec that names the shaped arithmetic is charged it: 32-bit words in the base, one droop FIR
+    # section and one recursive section with error feedback
+    named = schemes.load(Variant("timestamp", "stamp", 1, "linear"), spec.target, edge_hz_max=30_000,
+                         grid_hz=16_000, out_hz=8_000, n=3, sections=2, queue_len=16, arith="shaped", fir=1)
+    shaped = round(t["output"]["base"]["stamp"] + round(sec["d16c16a32fir"] + sec["d16c16a32ef"]))
+    assert named.per_output == shaped < ld.per_output
 
 
 def test_capture_dma_and_prescaler_cut_the_edge_load():

@@ -24,7 +24,7 @@ import tomllib
 from pathlib import Path
 
 import pytest
-from conftest import ALL_DESIGNS, EXAMPLES
+from conftest import ALL_DESIGNS, EXAMPLES, scale_forms
 
 import edgetally
 from edgetally.designer.assemble import design as assemble_design
@@ -53,6 +53,11 @@ def _cubic_designs() -> dict:
     spec = edgetally.parse_spec(tomllib.loads((EXAMPLES / "orchard_link.toml").read_text()))
     p = plan(spec, scheme="timestamp", variant="k1-linear")
     out["orchard_link:k1-linear"] = assemble_design(spec, p)
+    # the shaped arithmetic (32-bit words through the scale, tracker and output stage), and the word
+    # forms of that stage no example chooses (conftest.scale_forms)
+    shaped = assemble_design(spec, p, overrides={"arith": "shaped"})
+    out["orchard_link:shaped"] = shaped
+    out.update({f"orchard_link:{k}": d for k, d in scale_forms(shaped).items()})
     return out
 
 
@@ -174,10 +179,14 @@ def test_the_cubic_estimator_is_checked():
 
 def test_every_arithmetic_and_stamp_front_is_checked():
     """The checked designs emit each kind of C the generator can write: the split 27 x 16 filter
-    arithmetic (48-bit accumulator as three 32-bit sums), the 32- and 64-bit ones, the counter
+    arithmetic (48-bit accumulator as three 32-bit sums), the 32- and 64-bit ones, the shaped one,
+    each word form of the scale, tracker and output stage and of the squelch level, the counter
     front, the stamp front with the reciprocal and by division, and the cubic both ways."""
     checked = [DESIGNS[key] for key in KEYS]
     assert {d.filters.acc_bits for d in checked} >= {32, 48, 64}
+    assert {d.filters.shaped for d in checked} == {False, True}
+    assert {d.scale.product for d in checked} >= {"s32", "split", "split_low", "s64"}
+    assert {d.scale.word for d in checked} == {32, 64} and {d.squelch.level_bits for d in checked} == {32, 64}
     assert any(not d.stamps for d in checked)
     for cubic in (False, True):
         assert any(d.stamps and d.cubic == cubic and d.recip is not None for d in checked)

@@ -22,6 +22,8 @@ from edgetally.planner.choose import plan
 from edgetally.stimulus.inputs import make_inputs
 from edgetally.target.check import available_cores, target_check
 
+from conftest import scale_forms
+
 # A demo scenario (invented): a pump controller's FM telemetry at a 20 kHz IF, +-5 kHz, 2.5 kHz
 # band, read by a 48 MHz Cortex-M0+ class part with a 16-bit timer; a generous budget so that every
 # way of seeing the edges is feasible.
@@ -53,9 +55,16 @@ def _design(scheme, label, arith, core=None):
     return assemble_design(spec, p, overrides={"arith": arith} if arith else None)
 
 
+BASE_FORMS = ["s32-w32", "s32-w64", "s64-w32", "s64-w64", "split-w64-level64"]
+
+
 @pytest.fixture(scope="module")
 def built():
-    return {v: _design(*v) for v in VARIANTS + M4_VARIANTS}
+    out = {v: _design(*v) for v in VARIANTS + M4_VARIANTS}
+    narrow = out[("timestamp", "k1-linear", "narrow")]
+    assert (narrow.scale.product, narrow.scale.word) == ("split", 32)
+    out.update(scale_forms(narrow))
+    return out
 
 
 def test_every_variant_is_covered(built):
@@ -71,13 +80,22 @@ def test_every_variant_is_covered(built):
     assert {d.cubic for d in built.values()} == {True, False}
     assert {d.front.divide for d in built.values() if d.stamps} == {"reciprocal", "division"}
     assert all(built[v].front.divide == "division" for v in M4_VARIANTS)
+    # every word form of the scale / tracker / output stage and of the squelch level
+    forms = {(d.scale.product, d.scale.word) for d in built.values()}
+    assert {("s32", 32), ("s32", 64), ("split", 32), ("split", 64), ("split_low", 64), ("s64", 32), ("s64", 64)} <= forms
+    assert {d.squelch.level_bits for d in built.values()} == {32, 64}
 
 
-@pytest.mark.parametrize("v", VARIANTS + M4_VARIANTS, ids=["-".join(filter(None, v)) for v in VARIANTS + M4_VARIANTS])
+ALL = VARIANTS + M4_VARIANTS + BASE_FORMS
+IDS = ["-".join(filter(None, v)) if isinstance(v, tuple) else v for v in ALL]
+
+
+@pytest.mark.parametrize("v", ALL, ids=IDS)
 def test_variant_bit_exact_on_host(built, v):
     d = built[v]
-    assert (d.scheme, d.variant) == v[:2]
-    if v[2]:
+    if isinstance(v, tuple):
+        assert (d.scheme, d.variant) == v[:2]
+    if isinstance(v, tuple) and v[2]:
         assert d.filters.acc_bits == {"narrow": 32, "shaped": 32, "mid": 48, "wide": 64}[v[2]]
         assert d.filters.shaped == (v[2] == "shaped")
     host = hostbuild.build(d)
@@ -100,7 +118,7 @@ def test_variant_bit_exact_on_host(built, v):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("v", VARIANTS + M4_VARIANTS, ids=["-".join(filter(None, v)) for v in VARIANTS + M4_VARIANTS])
+@pytest.mark.parametrize("v", ALL, ids=IDS)
 def test_variant_bit_exact_in_emulator(built, v):
     core = "cortex-m4" if v in M4_VARIANTS else "cortex-m0plus"
     if core not in available_cores():

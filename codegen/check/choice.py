@@ -157,9 +157,9 @@ def design_and_plan(
         if loss <= spec.fixed.loss_limit_db:
             # the cheaper arithmetics the predictions refused, and by which figure
             refused = [
-                f"{o.arith} ({o.cycles_per_output} cycles: {o.reason})"
+                f"{o.arith} ({o.chain_cycles} cycles: {o.reason})"
                 for o in opts
-                if not o.ok and o.filters is not None and o.cycles_per_output < opt.cycles_per_output
+                if not o.ok and o.filters is not None and o.chain_cycles < opt.chain_cycles
             ]
             if refused:
                 p = dataclasses.replace(

@@ -27,6 +27,7 @@ from ..fixedpoint import (
     sat,
     section_step,
     shaped_step,
+    split_scale,
     squelch_level,
     wrap_bits,
     wrap_s32,
@@ -199,7 +200,8 @@ def post_chain(design: Design, y: np.ndarray, taps: list | None = None) -> tuple
     ``taps``: a list that gets the data word after the offset tracker, per sample (the data path's input)."""
     sc, f, of = design.scale, design.filters, design.output
     lim, cb = f.limit, f.coef_bits
-    raw = rshr(wrap_s32(y.astype(np.int64) - sc.centre) * sc.mult, sc.shift)
+    yc = wrap_s32(y.astype(np.int64) - sc.centre)
+    raw = split_scale(yc, sc.mult, sc.shift) if sc.product in ("split", "split_low") else rshr(yc * sc.mult, sc.shift)
     u_all = sat(raw, -lim, lim)
     sats = int(np.count_nonzero(u_all != raw))
     coefs = [(s.b0, s.b1, s.b2, s.a1, s.a2) for s in f.sections]

@@ -15,14 +15,17 @@ from .. import __version__
 from ..fixedpoint import recip_plan
 from . import datalink, wordlength
 from ..dsp import iir
-from ..planner import schemes
+from ..planner import costs, schemes
 from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, Squelch, output_bits
-from .squelch import design_squelch, squelch_registers
+from .squelch import design_squelch, squelch_level_bits, squelch_registers
 from ..planner.choose import REG_BITS, Plan, plan
 from .. import standard
 from ..spec import Spec, SpecError
 
-SCALE_MULT_BITS = 24  # the scale multiplier's precision (relative error below 2**-23)
+# the scale multiplier's precision (relative gain error at most 2**-15, under 0.001 dB): 15 bits let
+# cores without a 64-bit product take it as two 32-bit ones (wordlength.scale_product)
+SCALE_MULT_BITS = wordlength.SPLIT_MULT_BITS
+SCALE_MULT_MAX_BITS = 24
 OVERRIDABLE = {"arith": str, "data_bits": int, "coef_bits": int, "coef_width": int, "acc_bits": int, "scaling": str}
 
 
@@ -44,6 +47,13 @@ class WidthOption:
     cycles_per_output: int  # of the filter sections alone
     ok: bool
     reason: str
+    base_delta: int = 0  # the base's cost with this arithmetic's word forms, less the planner's figure
+
+    @property
+    def chain_cycles(self) -> int:
+        """What this arithmetic costs per output sample, to compare arithmetics: its sections and
+        the word forms of the scale, tracker and output stage that its data words allow."""
+        return self.cycles_per_output + self.base_delta
 
 
 def _units(p: Plan) -> tuple[Fraction, int]:
@@ -207,10 +217,15 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             why.append(f"predicted loss {loss:.2f} dB exceeds {fx.loss_limit_db:g} dB")
         if err > fx.response_tol_db:
             why.append(f"response error {err:.3f} dB exceeds {fx.response_tol_db:g} dB")
+        try:
+            sc = _scale(spec, p, f, q_in)[0]
+            delta = schemes.form_cycles(tgt, p.front.kind, costs.base_forms(sc.word, sc.product, 32), fx.arith)
+        except SpecError:  # the design refuses it with this message (design)
+            delta = 0
         opts.append(
-            WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets")
+            WidthOption(name, f, q_in, loss, err, needed, cycles, not why, "; ".join(why) or "meets the targets", delta)
         )
-    return sorted(opts, key=lambda o: o.cycles_per_output)
+    return sorted(opts, key=lambda o: o.chain_cycles)
 
 
 def _refuse_targets(spec: Spec, best: WidthOption) -> None:
@@ -281,6 +296,44 @@ def _squelch(spec: Spec, p: Plan) -> Squelch:
     )
 
 
+def _scale(spec: Spec, p: Plan, f: Filters, q_in: int) -> tuple[Scale, OutputFormat, int]:
+    """The scale stage and the output format for filters ``f`` taking Q(q_in), with the word forms
+    their bounds allow (wordlength.scale_product, base_word), and the largest CIC output."""
+    sig, out = spec.signal, spec.output
+    if q_in < 0:
+        raise SpecError(
+            "output.full_scale_hz",
+            out.full_scale_hz,
+            "is too small a fraction of the IF for the output chain's data word; raise it",
+        )
+    unit, y_max = _units(p)
+    centre = round(Fraction(sig.if_hz) / unit)
+    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)  # data LSB per CIC LSB
+    # 15 bits where the gain allows a shift of at least 1; a gain too large for that takes a wider
+    # multiplier (and the 64-bit product), up to SCALE_MULT_MAX_BITS
+    shift = max(1, (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain)))
+    mult = round(gain * (1 << shift))
+    if mult == 1 << SCALE_MULT_BITS and shift > 1:  # rounded up to a power of two: the same gain one bit down
+        mult, shift = mult >> 1, shift - 1
+    if mult >= 1 << SCALE_MULT_MAX_BITS:
+        raise SpecError(
+            "output.full_scale_hz",
+            out.full_scale_hz,
+            f"is too small for this design: one CIC step would be {float(gain):.3g} output-word steps, "
+            f"more than the {SCALE_MULT_MAX_BITS}-bit scale multiplier holds; widen the full scale",
+        )
+    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
+    if spec.data is not None:
+        dc_shift = datalink.dc_shift(spec)  # the slicer's offset tracking (designer.datalink)
+    of = _out_format(spec, f.sections[-1].q_out)
+    d_max = max(centre, y_max - centre)
+    u_b = wordlength.scale_bound(d_max, mult, shift, f.limit)
+    product = wordlength.scale_product(d_max, mult, shift)
+    word = wordlength.base_word(u_b, dc_shift, f, of.lmul, of.rshift, of.mid)
+    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift, product=product, word=word)
+    return scale, of, y_max
+
+
 def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, overrides: dict | None = None) -> Design:
     """The complete integer design for ``spec`` (planned here, with ``scheme`` forced if given,
     unless a plan is given). ``overrides`` fixes output-chain word lengths (keys of OVERRIDABLE)."""
@@ -301,49 +354,38 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
         # lengths, given as overrides, are what `widths` checks and may fail)
         _refuse_targets(spec, pick)
     f, q_in = pick.filters, pick.q_in
-    if q_in < 0:
-        raise SpecError(
-            "output.full_scale_hz",
-            out.full_scale_hz,
-            "is too small a fraction of the IF for the output chain's data word; raise it",
-        )
-    unit, y_max = _units(p)
-    centre = round(Fraction(sig.if_hz) / unit)
-    gain = unit / Fraction(out.full_scale_hz) * (1 << q_in)  # data LSB per CIC LSB
-    shift = (SCALE_MULT_BITS - 1) - math.floor(math.log2(gain))
-    if shift < 1:
-        raise SpecError(
-            "output.full_scale_hz",
-            out.full_scale_hz,
-            f"is too small for this design: one CIC step would be {float(gain):.3g} output-word steps, "
-            f"more than the {SCALE_MULT_BITS}-bit scale multiplier holds; widen the full scale",
-        )
-    mult = round(gain * (1 << shift))
-    dc_shift = max(1, round(math.log2(out.rate_hz / (2 * math.pi * standard.dc_corner_hz(sig.audio_hz)))))
-    if spec.data is not None:
-        dc_shift = datalink.dc_shift(spec)  # the slicer's offset tracking (designer.datalink)
-    scale = Scale(centre=centre, mult=mult, shift=shift, q=q_in, dc_shift=dc_shift)
+    scale, of, y_max = _scale(spec, p, f, q_in)
     cert = wordlength.certificate(
         x_limit=p.front.x_limit,
         in_bits=p.cic_in_bits,
         ratio=p.ratio,
         order=p.order,
         cic_width=REG_BITS,
-        centre=centre,
-        mult=mult,
-        shift=shift,
+        centre=scale.centre,
+        mult=scale.mult,
+        shift=scale.shift,
         q_in=q_in,
         u_limit=f.limit,
-        dc_shift=dc_shift,
+        dc_shift=scale.dc_shift,
         f=f,
+        product=scale.product,
+        word=scale.word,
+        out=(of.lmul, of.rshift, of.mid),
         front_words=_front_words(p.front),
     )
     sq = _squelch(spec, p)
+    sq = dataclasses.replace(sq, level_bits=squelch_level_bits(sq, x_limit=p.front.x_limit, ratio=p.ratio))
     cert = cert + squelch_registers(sq, x_limit=p.front.x_limit, ratio=p.ratio)
     link = datalink.design_link(spec, q_in) if spec.data is not None else None
     if link is not None:
         cert = cert + datalink.registers(link)
-    per_output = p.load.per_output - schemes.planned_filter_cycles(tgt, len(f.sections)) + pick.cycles_per_output
+    forms = costs.base_forms(scale.word, scale.product, sq.level_bits)
+    level = schemes.form_cycles(tgt, p.front.kind, forms, spec.fixed.arith) - pick.base_delta
+    # the planner's charge for the sections, as it made it (choose: the droop compensator's sections)
+    planned = schemes.planned_filter_cycles(
+        tgt, len(f.sections), spec.fixed.arith, fir=sum(s.role == "droop" for s in f.sections)
+    )
+    per_output = p.load.per_output - planned + pick.chain_cycles + level
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
     return Design(
         name=spec.name,
@@ -355,7 +397,7 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
         cic=Cic(order=p.order, ratio=p.ratio, in_bits=p.cic_in_bits, width=REG_BITS),
         scale=scale,
         filters=f,
-        output=_out_format(spec, f.sections[-1].q_out),
+        output=of,
         if_hz=sig.if_hz,
         full_scale_hz=out.full_scale_hz,
         audio_hz=sig.audio_hz,

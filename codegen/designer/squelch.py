@@ -282,16 +282,28 @@ def design_squelch(
     )
 
 
+def _level_bound(sq: Squelch, x_limit: int, ratio: int) -> tuple[int, int, int]:
+    """(|second difference|, largest sum over one CIC output period, largest level before its cap)."""
+    diff = 2 * x_limit
+    total = ratio * max(diff, sq.penalty)
+    return diff, total, sq.cap + total
+
+
+def squelch_level_bits(sq: Squelch, *, x_limit: int, ratio: int) -> int:
+    """The level's word (``Squelch.level_bits``): 32 where the cap plus the largest sum stays below
+    2**31 (a signed margin, though the level is unsigned), else 64."""
+    return 32 if _level_bound(sq, x_limit, ratio)[2] <= limit_of(32) else 64
+
+
 def squelch_registers(sq: Squelch, *, x_limit: int, ratio: int) -> tuple[Register, ...]:
     """The squelch's lines of the overflow certificate (steps lie in [0, x_limit], the centre step too)."""
 
     def reg(name, bits, bound, note):
         return Register(name, bits, bound, round(math.log2(limit_of(bits) / bound), 2), note)
 
-    diff = 2 * x_limit
-    total = ratio * max(diff, sq.penalty)
+    diff, total, level = _level_bound(sq, x_limit, ratio)
     return (
         reg("squelch.diff", 32, diff, "|x - 2 x1 + x2| <= 2 x_limit, computed modulo 2^32: exact"),
         reg("squelch.sum", 32, total, "CIC_RATIO terms of at most 2 x_limit (the penalty is 2 x_limit)"),
-        reg("squelch.level", 64, sq.cap + total, "held at or below the cap after each update"),
+        reg("squelch.level", sq.level_bits, level, "held at or below the cap after each update"),
     )

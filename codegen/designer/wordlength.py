@@ -250,6 +250,59 @@ def stamp_words(recip, delta_limit: int) -> list[tuple[str, int, int, str]]:
     return words
 
 
+SPLIT_MULT_BITS = 15  # fixedpoint.split_scale: mult < 2**15
+
+
+def _split_low_bound(d_max: int, mult: int, shift: int) -> int:
+    """Worst |split_scale| result for shift < 16 (fixedpoint.split_scale): |hi| <= |y| / 2^16 + 1
+    gives |A| 2^(16-shift) <= |y| mult / 2^shift + mult 2^(16-shift), and the low half adds at most
+    mult 2^(16-shift) + 1."""
+    return (d_max * mult >> shift) + 2 * (mult << (16 - shift)) + 2
+
+
+def scale_product(d_max: int, mult: int, shift: int) -> str:
+    """How the C takes the scale product (``ir.Scale.product``): one 32-bit product ("s32") where
+    |y - centre| mult plus the rounding half fits int32, else two 32-bit products of the halves of
+    y - centre (``fixedpoint.split_scale``: "split" for shift >= 16, "split_low" below, where the
+    result fits int32) where mult < 2^15, else a 64-bit product ("s64")."""
+    if d_max * mult + (1 << (shift - 1)) <= limit_of(32):
+        return "s32"
+    if mult < (1 << SPLIT_MULT_BITS) and 16 <= shift <= 31:
+        return "split"
+    if mult < (1 << SPLIT_MULT_BITS) and 1 <= shift < 16 and _split_low_bound(d_max, mult, shift) <= limit_of(32):
+        return "split_low"
+    return "s64"
+
+
+def scale_bound(d_max: int, mult: int, shift: int, limit: int) -> int:
+    """Worst |u| after the scale stage: the largest |y - centre| scaled (plus one for the rounding),
+    or the data limit where it saturates."""
+    return min(limit, rshr(d_max * mult, shift) + 1)
+
+
+def tracker_bound(u_b: int, dc_shift: int) -> int:
+    """Worst |dc_acc| of the offset tracker dc_acc += u - rshr(dc_acc, s) for |u| <= u_b: at or
+    above (u_b + 1/2) 2**s the subtracted term is at least u_b + 1 > u and the accumulator falls;
+    below it, it grows by at most u_b + 1/2 - dc_acc / 2**s: never past (u_b + 1) 2**s."""
+    return (u_b + 1) << dc_shift
+
+
+def base_word(u_b: int, dc_shift: int, f: Filters, lmul: int, rshift: int, mid: int) -> int:
+    """The word of the offset tracker, the data word and the output word (``ir.Scale.word``): 32
+    where the tracker plus its rounding half, the data word minus the offset (2 u_b + 1) and the
+    output product plus its rounding half and mid-scale all fit int32, else 64; 64 always with the
+    64-bit accumulator (its section outputs are taken from 64-bit sums)."""
+    limit = f.limit
+    if f.acc_bits == 64:
+        return 64
+    worst = max(
+        tracker_bound(u_b, dc_shift) + (1 << (dc_shift - 1)),
+        2 * u_b + 1,
+        limit * lmul + ((1 << (rshift - 1)) if rshift else 0) + abs(mid),
+    )
+    return 32 if worst <= limit_of(32) else 64
+
+
 def certificate(
     *,
     x_limit: int,
@@ -264,6 +317,9 @@ def certificate(
     u_limit: int,
     dc_shift: int,
     f: Filters,
+    product: str = "s64",
+    word: int = 64,
+    out: tuple[int, int, int] = (1, 0, 0),
     front_words=(),
 ) -> tuple[Register, ...]:
     """Every register, its width, the worst |value| any allowed input gives, and the margin;
@@ -275,13 +331,30 @@ def certificate(
 
     y_max = x_limit * ratio**order
     d_max = max(centre, y_max - centre)
-    u_b = min(u_limit, rshr(d_max * mult, shift) + 1)
+    u_b = scale_bound(d_max, mult, shift, u_limit)
+    s_half = 1 << (shift - 1)
     regs = [reg(*w) for w in front_words] + [
         reg("front.step", in_bits, x_limit, "in [x_low, x_limit], or the centre step, whatever the edges do"),
         reg("cic.output", cic_width, y_max, "integrators wrap by design (Hogenauer 1981); the output cannot"),
-        reg("scale.product", 64, d_max * mult, "|y - centre| * mult"),
+    ]
+    if product == "split":
+        regs += [
+            reg("scale.split_hi", 32, (1 << 15) * mult + (s_half >> 16) + (1 << 16), "(y >> 16) mult + carry"),
+            reg("scale.split_lo", 32, 0xFFFF * mult + (s_half & 0xFFFF), "(y & 0xFFFF) mult + rounding (unsigned)"),
+        ]
+    elif product == "split_low":
+        regs += [
+            reg("scale.split_hi", 32, _split_low_bound(d_max, mult, shift), "(y >> 16) mult 2^(16-shift) + low share"),
+            reg("scale.split_lo", 32, 0xFFFF * mult + s_half, "(y & 0xFFFF) mult + rounding (unsigned)"),
+        ]
+    else:
+        regs.append(
+            reg("scale.product", 32 if product == "s32" else 64, d_max * mult + s_half, "|y - centre| mult + half")
+        )
+    regs += [
         reg("scale.out", f.data_bits, u_b, "saturated at the data limit"),
-        reg("offset.acc", 64, u_b << dc_shift, "one-pole DC tracker"),
+        reg("offset.acc", word, tracker_bound(u_b, dc_shift) + (1 << (dc_shift - 1)), "one-pole DC tracker + half"),
+        reg("offset.out", word, 2 * u_b + 1, "audio minus offset, before its saturation"),
     ]
     in_b = min(f.limit, 2 * u_b)
     regs.append(reg("filter.in", f.data_bits, in_b, "audio minus offset, saturated"))
@@ -352,4 +425,7 @@ def certificate(
                 else f"{f.scaling} scaling: may saturate (saturation, never wrap)",
             )
         )
+    lmul, rshift, mid = out
+    o_b = f.limit * lmul + ((1 << (rshift - 1)) if rshift else 0) + abs(mid)
+    regs.append(reg("output.word", word, o_b, "data limit x lmul + rounding half + mid-scale, before clipping"))
     return tuple(regs)

@@ -167,7 +167,19 @@ def internal_functions(design: Design) -> dict[str, list[str]]:
 
 def _operations(design: Design) -> list[str]:
     """The fixed-point operations this design's C calls."""
-    ops = ["wrap_s32", "rshr", "sat", "squelch_level"]
+    ops = ["wrap_s32", "squelch_level32" if design.squelch.level_bits == 32 else "squelch_level"]
+    if design.scale.word == 32:
+        ops += ["rshr32", "sat32"]
+    if design.scale.product == "s32":  # rounded in 32 bits whatever the tracker's word
+        ops.append("rshr32")
+    if design.scale.word == 64 or design.scale.product == "s64":
+        ops += ["rshr", "sat"]
+    if design.data is not None:  # the data path's input word (datalink.c.j2)
+        ops += ["sat"] + (["rshr"] if design.data.in_shift > 0 else [])
+    if design.scale.product == "split":
+        ops.append("split_scale")
+    elif design.scale.product == "split_low":
+        ops.append("split_scale_low")
     if design.filters.acc_bits == 48:
         ops += ["split_mac", "split_round"]
     if design.data is not None:
@@ -426,6 +438,12 @@ def emit(design: Design) -> dict[str, str]:
         coef_type="int16_t" if design.filters.coef_width == 16 and not design.filters.shaped else "int32_t",
         coef_macro="INT16_C" if design.filters.coef_width == 16 and not design.filters.shaped else "INT32_C",
         offset_hz_per_lsb=f"{design.offset_hz_per_unit:.6g}",
+        # the words of the scale, tracker and output stage, and of the squelch level (Design's choice)
+        base_type="int32_t" if design.scale.word == 32 else "int64_t",
+        base_c="INT32_C" if design.scale.word == 32 else "INT64_C",
+        base_rshr=f"{p}_rshr32" if design.scale.word == 32 else f"{p}_rshr",
+        base_sat=f"{p}_sat32" if design.scale.word == 32 else f"{p}_sat",
+        level_c="UINT32_C" if design.squelch.level_bits == 32 else "UINT64_C",
         # template flags: the templates branch on these and print the Design, never decide
         stamp=design.stamps,
         cubic=design.cubic,

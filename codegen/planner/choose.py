@@ -208,6 +208,8 @@ def _candidates(
             sections=sections,
             queue_len=qlen,
             data=spec.data is not None,
+            arith=spec.fixed.arith,
+            fir=len(sos_r[0]) if droop else 0,
         )
         pr = schemes.predict(
             v,

@@ -57,6 +57,15 @@ def shaped_key(fir: bool) -> str:
     return "d16c16a32" + ("fir" if fir else "ef")
 
 
+def base_forms(word: int, product: str, level_bits: int) -> tuple[str, ...]:
+    """The base's word forms that cost apart (``ir.Scale.word`` and ``.product``,
+    ``ir.Squelch.level_bits``), each an extra over 32-bit words with the scale product in 32-bit
+    multiplies (one, or two of the halves: the base prices both as one form)."""
+    return tuple(
+        k for k, on in (("word64", word == 64), ("s64", product == "s64"), ("level64", level_bits == 64)) if on
+    )
+
+
 def lookup(core: str, role: str, key: str) -> float | None:
     """The calibrated cycles of ``role`` ("isr", "input", "grid") for ``key``, or None."""
     t = table(core)
@@ -66,9 +75,10 @@ def lookup(core: str, role: str, key: str) -> float | None:
     return None if v is None else float(v["cycles"])
 
 
-def output_cycles(core: str, front: str, arith: str, sections: int) -> float | None:
+def output_cycles(core: str, front: str, arith: str, sections: int, forms: tuple[str, ...] = ()) -> float | None:
     """Calibrated cycles per output sample: the path's base (CIC combs, scale, offset tracker,
-    output word) for this front end plus ``sections`` filter sections in arithmetic ``arith``."""
+    output word) for this front end, with the extra of each of its word ``forms`` (``base_forms``),
+    plus ``sections`` filter sections in arithmetic ``arith``."""
     t = table(core)
     if t is None:
         return None
@@ -76,4 +86,5 @@ def output_cycles(core: str, front: str, arith: str, sections: int) -> float | N
     base, sec = out.get("base", {}).get(front), out.get("section", {}).get(arith)
     if base is None or sec is None:
         return None
-    return float(base) + float(sec) * sections
+    extra = sum(float(out.get("form", {}).get(k, 0.0)) for k in forms)
+    return float(base) + extra + float(sec) * sections

@@ -347,11 +347,21 @@ def filter_cycles(
     return sections * (products * mul + SECTION_OPS[acc_bits] * tgt.op_cycles)
 
 
-def planned_filter_cycles(tgt: Target, sections: int) -> int:
-    """The sections' cost the planner charges: the cheaper of the two arithmetics whose roundoff is
-    negligible at any quality the planner can promise (the split 27 x 16, offered on cores without a
-    32x32->64 multiply, and the wide 32 x 32); the designer then picks among all by predicted loss
-    and cost and updates the figure."""
+# the words (accumulator, data, coefficient storage) of each arithmetic a spec can name
+# ([fixed] arith), as edgetally.designer.wordlength.ARITHS gives them
+NAMED_ARITHS = {"narrow": (32, 16, 16), "shaped": (32, 16, 16), "mid": (48, 27, 16), "wide": (64, 32, 32)}
+
+
+def planned_filter_cycles(tgt: Target, sections: int, arith: str = "auto", fir: int = 0) -> int:
+    """The sections' cost the planner charges. With ``arith`` "auto": the cheaper of the two
+    arithmetics whose roundoff is negligible at any quality the planner can promise (the split
+    27 x 16, offered on cores without a 32x32->64 multiply, and the wide 32 x 32); the designer then
+    picks among all by predicted loss and cost and updates the figure. A spec that names its
+    arithmetic is charged that one (the shaped one with its ``fir`` droop-compensator sections as
+    FIR sections)."""
+    if arith != "auto":
+        acc, data, coef = NAMED_ARITHS[arith]
+        return filter_cycles(tgt, acc, sections, data, coef, fir=fir if arith == "shaped" else None)
     wide = filter_cycles(tgt, 64, sections)
     # the split form's words: edgetally.designer.wordlength.MID (27-bit data, 16-bit coefficients)
     return wide if tgt.mul64 else min(wide, filter_cycles(tgt, 48, sections, 27, 16))
@@ -369,7 +379,8 @@ def uses_reciprocal(tgt: Target) -> bool:
 # sample, the loop, the ring and the framing once a bit, spread over 8 samples a bit), measured in
 # the emulator by benchmarks/bench_datalink.py (2026-12-03, -Os, examples/weather_station_fsk.toml:
 # the chain's cycles per output sample with the data path less without). Other cores: the
-# Cortex-M4 figure in plain ALU steps times the core's op_cycles, an estimate.
+# Cortex-M4 figure in plain ALU steps times the core's op_cycles, an estimate. (The calibration
+# fits the data path as a form of its own only so that it does not bias the base's figures.)
 DATA_CYCLES = {"cortex-m0plus": 125, "cortex-m4": 69, "rv32imc": 73, "rv32ec": 104, "avr": 387}
 DATA_OPS = 70
 
@@ -379,7 +390,28 @@ def data_cycles_per_output(core: str, op_cycles: int) -> int:
     return DATA_CYCLES.get(core, DATA_OPS * op_cycles)
 
 
-def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, int, int] | None:
+def planned_forms(arith: str = "auto") -> tuple[str, ...]:
+    """The base's word forms the planner charges (costs.base_forms): 64-bit words, as the
+    arithmetics planned_filter_cycles prices for "auto" (and mid, wide) give them; 32-bit ones for a
+    named narrow or shaped arithmetic. The designer then prices its design's own forms (form_cycles)."""
+    return () if arith in ("narrow", "shaped") else ("word64",)
+
+
+def form_cycles(tgt: Target, front: str, forms: tuple[str, ...], arith: str = "auto") -> int:
+    """The extra cycles per output sample of the base's word ``forms`` (costs.base_forms) over the
+    planner's (planned_forms), from the calibrated table; 0 without one (the op-count model prices
+    one base)."""
+    if not calibrated(tgt):
+        return 0
+    key = costs.arith_key(32, 32, 64)
+    got = costs.output_cycles(tgt.core, front, key, 0, forms)
+    planned = costs.output_cycles(tgt.core, front, key, 0, planned_forms(arith))
+    return 0 if got is None or planned is None else round(got - planned)
+
+
+def _calibrated_load(
+    v: Variant, tgt: Target, sections: int, arith: str = "auto", fir: int = 0
+) -> tuple[int, int, int, int] | None:
     """(per_edge, per_input, per_grid, per_output) from the core's calibrated table, with the
     exception entry and exit of each ISR from the target (the profile's or the spec's), or None
     where the table lacks a figure. The output path is planned as in ``load`` (planned_filter_cycles)."""
@@ -389,7 +421,7 @@ def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, 
     bits = tgt.timer_bits if v.front == "stamp" else tgt.counter_bits
     per_input = costs.lookup(core, "input", costs.input_key(v.front, v.order, bits))
     grid = costs.lookup(core, "grid", costs.grid_key(v.front, v.order))
-    base = costs.output_cycles(core, v.front, costs.arith_key(32, 32, 64), 0)
+    base = costs.output_cycles(core, v.front, costs.arith_key(32, 32, 64), 0, planned_forms(arith))
     if v.front == "stamp":
         body = costs.lookup(core, "isr", costs.isr_key("edge" if v.scheme == "interrupt" else "capture", "stamp"))
         per_edge = None if body is None else (0 if (v.scheme != "interrupt" and tgt.capture_dma) else isr + body)
@@ -407,7 +439,12 @@ def _calibrated_load(v: Variant, tgt: Target, sections: int) -> tuple[int, int, 
         per_grid = None if (grid is None or tick is None) else grid + (isr + tick if tick else 0)
     if per_input is None or per_grid is None or per_edge is None or base is None:
         return None
-    return (round(per_edge), round(per_input), round(per_grid), round(base + planned_filter_cycles(tgt, sections)))
+    return (
+        round(per_edge),
+        round(per_input),
+        round(per_grid),
+        round(base + planned_filter_cycles(tgt, sections, arith, fir)),
+    )
 
 
 def load(
@@ -421,15 +458,20 @@ def load(
     sections: int,
     queue_len: int,
     data: bool = False,
+    arith: str = "auto",
+    fir: int = 0,
 ) -> Load:
     """Estimated cycles and RAM: from the core's calibrated table (edgetally.planner.costs) where it
     has one, else from the profile figures and the op counts above; ``data``: a data design's data
-    path too (data_cycles_per_output)."""
+    path too (data_cycles_per_output); ``arith``, ``fir``: the spec's named arithmetic and the droop
+    compensator's sections (planned_filter_cycles)."""
     op, isr = tgt.op_cycles, tgt.isr_cycles
     stamp_rate = edge_hz_max / v.prescale
     # the scale product, the sections (planned_filter_cycles; the designer may then pick a cheaper
     # arithmetic and updates the figure), and the rest of the output path
-    per_output = (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + planned_filter_cycles(tgt, sections)
+    per_output = (
+        (OUTPUT_OPS + GRID_OPS_PER_STAGE * n) * op + tgt.mac64_cycles + planned_filter_cycles(tgt, sections, arith, fir)
+    )
     cic = GRID_OPS_PER_STAGE * n * op
     if v.front == "stamp":
         per_input = STAMP_INPUT_OPS[v.order] * op
@@ -455,7 +497,7 @@ def load(
         per_edge = isr + 3 * op if v.scheme == "interrupt" else 0  # the edge ISR counts
         cycles = edge_hz_max * per_edge + grid_hz * (per_grid + per_input)
         in_bytes = 2 if tgt.counter_bits == 16 else 4
-    cal = _calibrated_load(v, tgt, sections)
+    cal = _calibrated_load(v, tgt, sections, arith, fir)
     if cal is not None:
         per_edge, per_input, per_grid, per_output = cal
         if v.front == "stamp":

@@ -7,9 +7,10 @@ scheme and estimator the part allows, every filter arithmetic and with or withou
 its design is emitted, cross-compiled at -Os and run in the emulator on the start of the standard
 test (edgetally.target.cycles.measure). Per core the figures are then reduced to the planner's keys
 (edgetally.planner.costs): the median of the probes for each ISR body, input and grid instant, and
-a least-squares fit of cycles per output sample = base (per front end) + per-section cost (per
-arithmetic) x sections. Each entry keeps its probe count and its worst relative deviation from
-the probes, and the file records the date and each compiler's version.
+a least-squares fit of cycles per output sample = base (per front end) + the extra of each word form
+of the base (costs.base_forms) + per-section cost (per arithmetic) x sections. Each entry keeps its
+probe count and its worst relative deviation from the probes, and the file records the date and
+each compiler's version.
 """
 
 from __future__ import annotations
@@ -92,6 +93,10 @@ def keys_of(design) -> dict:
         "input": costs.input_key(fr.kind, order, bits),
         "grid": costs.grid_key(fr.kind, order),
         "front": fr.kind,
+        # the data path of a data design runs at the output rate too: fitted as a form of its own, so
+        # that it does not bias the base (the planner prices it from planner.schemes.DATA_CYCLES)
+        "forms": costs.base_forms(design.scale.word, design.scale.product, design.squelch.level_bits)
+        + (("data",) if design.data is not None else ()),
         # sections per cost key: the shaped arithmetic's FIR and recursive sections cost apart
         "sections": (
             {
@@ -177,12 +182,20 @@ def reduce(rows: list[tuple[dict, dict]]) -> dict:
     table["front_fit_max_rel_dev"] = round(dev_front, 3)
     out, dev_out = _fit(
         [
-            ({"base:" + k["front"]: 1.0, **{"section:" + a: float(n) for a, n in k["sections"].items()}}, m["output"])
+            (
+                {
+                    "base:" + k["front"]: 1.0,
+                    **{"form:" + f: 1.0 for f in k["forms"]},
+                    **{"section:" + a: float(n) for a, n in k["sections"].items()},
+                },
+                m["output"],
+            )
             for k, m in rows
         ]
     )
     table["output"] = {
         "base": {k.split(":", 1)[1]: round(v, 1) for k, v in out.items() if k.startswith("base:")},
+        "form": {k.split(":", 1)[1]: round(v, 1) for k, v in out.items() if k.startswith("form:")},
         "section": {k.split(":", 1)[1]: round(v, 1) for k, v in out.items() if k.startswith("section:")},
         "probes": len(rows),
         "max_rel_dev": round(dev_out, 3),
