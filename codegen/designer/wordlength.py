@@ -287,20 +287,24 @@ def tracker_bound(u_b: int, dc_shift: int) -> int:
     return (u_b + 1) << dc_shift
 
 
-def base_word(u_b: int, dc_shift: int, f: Filters, lmul: int, rshift: int, mid: int) -> int:
-    """The word of the offset tracker, the data word and the output word (``ir.Scale.word``): 32
-    where the tracker plus its rounding half, the data word minus the offset (2 u_b + 1) and the
-    output product plus its rounding half and mid-scale all fit int32, else 64; 64 always with the
-    64-bit accumulator (its section outputs are taken from 64-bit sums)."""
-    limit = f.limit
-    if f.acc_bits == 64:
-        return 64
-    worst = max(
+def base_bounds(u_b: int, dc_shift: int, limit: int, lmul: int, rshift: int, mid: int) -> tuple[int, int, int]:
+    """Worst values of the stage around the sections for |u| <= u_b: the offset tracker plus the
+    rounding half the C adds (tracker_bound), the data word minus the offset (2 u_b + 1), and the
+    output product plus its rounding half and mid-scale (before clipping)."""
+    return (
         tracker_bound(u_b, dc_shift) + (1 << (dc_shift - 1)),
         2 * u_b + 1,
         limit * lmul + ((1 << (rshift - 1)) if rshift else 0) + abs(mid),
     )
-    return 32 if worst <= limit_of(32) else 64
+
+
+def base_word(u_b: int, dc_shift: int, f: Filters, lmul: int, rshift: int, mid: int) -> int:
+    """The word of the offset tracker, the data word and the output word (``ir.Scale.word``): 32
+    where every bound of base_bounds fits int32, else 64; 64 always with the 64-bit accumulator
+    (its section outputs are taken from 64-bit sums)."""
+    if f.acc_bits == 64:
+        return 64
+    return 32 if max(base_bounds(u_b, dc_shift, f.limit, lmul, rshift, mid)) <= limit_of(32) else 64
 
 
 def certificate(
@@ -351,10 +355,11 @@ def certificate(
         regs.append(
             reg("scale.product", 32 if product == "s32" else 64, d_max * mult + s_half, "|y - centre| mult + half")
         )
+    acc_b, off_b, o_b = base_bounds(u_b, dc_shift, f.limit, *out)
     regs += [
         reg("scale.out", f.data_bits, u_b, "saturated at the data limit"),
-        reg("offset.acc", word, tracker_bound(u_b, dc_shift) + (1 << (dc_shift - 1)), "one-pole DC tracker + half"),
-        reg("offset.out", word, 2 * u_b + 1, "audio minus offset, before its saturation"),
+        reg("offset.acc", word, acc_b, "one-pole DC tracker + half"),
+        reg("offset.out", word, off_b, "audio minus offset, before its saturation"),
     ]
     in_b = min(f.limit, 2 * u_b)
     regs.append(reg("filter.in", f.data_bits, in_b, "audio minus offset, saturated"))
@@ -425,7 +430,5 @@ def certificate(
                 else f"{f.scaling} scaling: may saturate (saturation, never wrap)",
             )
         )
-    lmul, rshift, mid = out
-    o_b = f.limit * lmul + ((1 << (rshift - 1)) if rshift else 0) + abs(mid)
     regs.append(reg("output.word", word, o_b, "data limit x lmul + rounding half + mid-scale, before clipping"))
     return tuple(regs)
