@@ -232,8 +232,13 @@ def test_certificate_margins(design):
     # Every register: margin_bits = log2((2^(bits-1) - 1) / bound) (ir.Register), >= 0: cannot wrap.
     regs = _cert(design)
     assert len(regs) == len(design.certificate)  # names are unique
-    for k in range(len(design.filters.sections)):
-        for part in ("product", "acc", "out"):
+    for k, sec in enumerate(design.filters.sections):
+        # the shaped arithmetic takes its products modulo 2^32 (only the final sum must fit: no
+        # product line) and feeds back the rounding error of each recursive section (its line)
+        parts = ("acc", "out") if design.filters.shaped else ("product", "acc", "out")
+        if design.filters.shaped and not sec.fir:
+            parts += ("error",)
+        for part in parts:
             assert f"iir.{k}.{part}" in regs
     for r in design.certificate:
         assert r.bound >= 1
@@ -272,21 +277,24 @@ def test_certificate_input_bounds(design):
 def _sections(f, v_seq):
     """Instrumented copy of the section recursion (ir.Section, ir.Filters): per section, the exact sum
     (Python int, before any 32-bit wrap), the rounded value before saturation, and the output.
-    With acc_bits 32 the sum is wrapped modulo 2^32 first, as the C does (a no-op when it fits)."""
+    With acc_bits 32 the sum is wrapped modulo 2^32 first, as the C does (a no-op when it fits).
+    The shaped arithmetic (ir.Filters.shaped) also subtracts k1 e1 + k2 e2, its last two roundings'
+    shifted-off parts e = sum - 2^cb rounded (error feedback, Higgins & Munson 1982)."""
     v = list(v_seq)
     res = []
     for s in f.sections:
         b0, b1, b2, a1, a2 = s.b0, s.b1, s.b2, s.a1, s.a2
-        x1 = x2 = y1 = y2 = 0
+        x1 = x2 = y1 = y2 = e1 = e2 = 0
         accs, yrs, yns = [], [], []
         for x in v:
-            acc = b0 * x + b1 * x1 + b2 * x2 - a1 * y1 - a2 * y2
+            acc = b0 * x + b1 * x1 + b2 * x2 - a1 * y1 - a2 * y2 - s.k1 * e1 - s.k2 * e2
             accs.append(acc)
             yr = rshr(wrap_s32(acc) if f.acc_bits == 32 else acc, f.coef_bits)
             yn = sat(yr, -f.limit, f.limit)
             yrs.append(yr)
             yns.append(yn)
             x2, x1, y2, y1 = x1, x, y1, yn
+            e2, e1 = e1, acc - yr * 2**f.coef_bits
         res.append((accs, yrs, yns))
         v = yns
     return res
@@ -310,8 +318,9 @@ def _length(d):
 
 def _rounding_bound(d, k, length):
     """|integer - exact (quantised coefficients)| at section k's output, its LSB: each section adds
-    |e| <= 1/2 inside its recursion, D_k = ||h'_k||_1 D_(k-1) + 0.5 ||1/A'_k||_1 (rows in the
-    sections' own LSB)."""
+    |e| <= 1/2 inside its recursion, D_k = ||h'_k||_1 D_(k-1) + 0.5 ||E_k/A'_k||_1 (rows in the
+    sections' own LSB), with E_k = 1, or 1 + k1 z^-1 + k2 z^-2 where the section feeds its rounding
+    error back (Higgins & Munson 1982: the error then reaches the output through E_k / A_k)."""
     cb = 2.0**d.filters.coef_bits
     imp = np.zeros(length)
     imp[0] = 1.0
@@ -319,7 +328,7 @@ def _rounding_bound(d, k, length):
     for s in d.filters.sections[: k + 1]:
         a = [1.0, s.a1 / cb, s.a2 / cb]
         h1 = float(np.sum(np.abs(signal.lfilter([s.b0 / cb, s.b1 / cb, s.b2 / cb], a, imp))))
-        g1 = float(np.sum(np.abs(signal.lfilter([1.0], a, imp))))
+        g1 = float(np.sum(np.abs(signal.lfilter([1.0, float(s.k1), float(s.k2)], a, imp))))
         dd = h1 * dd + 0.5 * g1
     return dd
 

@@ -104,7 +104,11 @@ def test_cross_build_strict(builds, key, core):
     assert b.elf.is_file()
     for fn in ("init", "process", "service"):
         assert b.flash_by_function.get(f"{p}_{fn}", 0) > 0
-    assert f"{p}_coef" in b.flash_by_object
+    # the coefficient table is in flash; where the sections are unrolled with constant indices (the
+    # shaped arithmetic) the compiler may fold its entries into the code instead (avr-gcc does): it
+    # then takes no RAM either
+    if f"{p}_coef" not in b.flash_by_object:
+        assert ALL_DESIGNS[key].filters.shaped and f"{p}_coef" not in b.ram_by_object
     assert 0 < b.flash_demod < b.flash_total < 16384
     assert 0 < b.ram_state <= b.ram_total
     assert b.ram_by_object["harness_state"] == b.ram_state

@@ -155,11 +155,13 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
     first, with its predicted loss, response error and cost, and whether it meets the spec."""
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
-    # the split arithmetic stands in for a 32x32->64 multiply: offered where the core has none. The
-    # shaped one is taken only when the spec names it ([fixed] arith = "shaped"): its coarse
-    # coefficients meet the response tolerance and no more, which the independent reference checks
-    # of the chain (tests/test_fixed_reference.py, test_iir_reference.py) do not yet allow for
-    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "mid", "wide"]
+    # on cores without a 32x32->64 multiply the shaped arithmetic (32-bit products, error feedback)
+    # and the split one (27 x 16 from three 16 x 16 products) stand in for the wide one; the core's
+    # cost table orders them (below). The shaped one's coefficients take the coarsest format that
+    # meets the spec's response tolerance (_shaped_words), which leaves the most bits to the data
+    # word. With a 32x32->64 multiply the wide arithmetic is cheap, and the reference checks of a
+    # de-emphasis corner (tests/test_iir_reference.py) want the finer coefficients it keeps.
+    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "shaped", "mid", "wide"]
     names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)
@@ -219,7 +221,7 @@ def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[Wi
             why.append(f"response error {err:.3f} dB exceeds {fx.response_tol_db:g} dB")
         try:
             sc = _scale(spec, p, f, q_in)[0]
-            delta = schemes.form_cycles(tgt, p.front.kind, costs.base_forms(sc.word, sc.product, 32), fx.arith)
+            delta = schemes.form_cycles(tgt, p.front.kind, costs.base_forms(sc.word, sc.product, 32), p.arith)
         except SpecError:  # the design refuses it with this message (design)
             delta = 0
         opts.append(
@@ -380,10 +382,10 @@ def design(spec: Spec, chosen: Plan | None = None, scheme: str | None = None, ov
     if link is not None:
         cert = cert + datalink.registers(link)
     forms = costs.base_forms(scale.word, scale.product, sq.level_bits)
-    level = schemes.form_cycles(tgt, p.front.kind, forms, spec.fixed.arith) - pick.base_delta
+    level = schemes.form_cycles(tgt, p.front.kind, forms, p.arith) - pick.base_delta
     # the planner's charge for the sections, as it made it (choose: the droop compensator's sections)
     planned = schemes.planned_filter_cycles(
-        tgt, len(f.sections), spec.fixed.arith, fir=sum(s.role == "droop" for s in f.sections)
+        tgt, len(f.sections), p.arith, fir=sum(s.role == "droop" for s in f.sections)
     )
     per_output = p.load.per_output - planned + pick.chain_cycles + level
     fraction = p.load.fraction + (per_output - p.load.per_output) * out.rate_hz / tgt.cpu_hz
