@@ -114,3 +114,15 @@ def test_planned_load_matches_emulator_named_shaped(path):
     assert d.filters.shaped
     _check(d)
 
+
+
+def test_planned_load_matches_emulator_replanned_low_clock():
+    # the 24 MHz pin-interrupt voice part (tests/test_choice.py): planned again with the shaped
+    # arithmetic's cost, its timestamp design's planned load is within 10 % of the emulated one, and
+    # the emulated load is inside its 60 % budget
+    from test_choice import _voice
+
+    d = edgetally.design(parse_spec(_voice(24)))
+    assert d.scheme == "interrupt" and d.filters.shaped
+    _check(d)
+    assert _emulated_load(d) <= 0.6

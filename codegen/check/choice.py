@@ -23,7 +23,7 @@ from ..designer import assemble
 from ..ir import Design
 from ..measure import metrics
 from ..planner.choose import TIE_DB, Option, Plan, plan
-from ..spec import Spec
+from ..spec import Spec, SpecError
 from ..stimulus.inputs import DEFAULT_SEED, make_inputs
 
 CLOSE_DB = 3.0  # options predicted within this of the chosen one are simulated before choosing
@@ -48,11 +48,14 @@ def _seconds(design: Design, seconds: float) -> float:
     return max(seconds, design.test.min_seconds)
 
 
-def simulate_option(spec: Spec, o: Option, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> float:
-    """SINAD of the float reference of plan option ``o`` on ``seconds`` of the standard test."""
+def simulate_option(
+    spec: Spec, o: Option, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED, arith: str | None = None
+) -> float:
+    """SINAD of the float reference of plan option ``o`` (of a plan priced with ``arith``) on
+    ``seconds`` of the standard test."""
     # the float reference does not depend on the filter arithmetic: one (wide) is designed, not all
     d = assemble.design(
-        spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio), overrides={"arith": "wide"}
+        spec, plan(spec, scheme=o.scheme, variant=o.variant, ratio=o.ratio, arith=arith), overrides={"arith": "wide"}
     )
     return _sinad(d, reference.run(d, make_inputs(d, _seconds(d, seconds), seed)))
 
@@ -62,13 +65,22 @@ def simulate_options(
 ) -> dict[tuple[str, str], float]:
     """SINAD of the float reference of every feasible option row of a plan (``plan --simulate``)."""
     return {
-        (o.scheme, o.variant): round(simulate_option(spec, o, seconds, seed), 2) for o in plan_obj.options if o.feasible
+        (o.scheme, o.variant): round(simulate_option(spec, o, seconds, seed, plan_obj.arith), 2)
+        for o in plan_obj.options
+        if o.feasible
     }
 
 
-def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, seed: int = DEFAULT_SEED) -> Plan:
-    """The plan, with the choice among doubtful or close options made on simulated SINAD."""
-    p = plan(spec, scheme)
+def settle(
+    spec: Spec,
+    scheme: str | None = None,
+    seconds: float = SIM_SECONDS,
+    seed: int = DEFAULT_SEED,
+    arith: str | None = None,
+) -> Plan:
+    """The plan, with the choice among doubtful or close options made on simulated SINAD; ``arith``
+    prices the filter sections with that arithmetic (planner.choose.plan)."""
+    p = plan(spec, scheme, arith=arith)
     chosen = next(o for o in p.options if o.kept)
     top = (
         max(o.predicted_sinad_db for o in p.options if o.feasible and not o.doubtful)
@@ -82,7 +94,7 @@ def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, 
     ]
     if len(contenders) < 2:
         return p
-    sims = {o: simulate_option(spec, o, seconds, seed) for o in contenders}
+    sims = {o: simulate_option(spec, o, seconds, seed, arith) for o in contenders}
     best = None
     for o in sorted(contenders, key=lambda o: o.load):
         # loads within COST_TIE of each other cost the same as far as the cycle tables can tell:
@@ -110,7 +122,7 @@ def settle(spec: Spec, scheme: str | None = None, seconds: float = SIM_SECONDS, 
         rows.append(o)
     if best is chosen:
         return dataclasses.replace(p, options=tuple(rows), notes=p.notes + (note,))
-    q = plan(spec, scheme=best.scheme, variant=best.variant, ratio=best.ratio)
+    q = plan(spec, scheme=best.scheme, variant=best.variant, ratio=best.ratio, arith=arith)
     notes = tuple(n for n in q.notes if not n.startswith("scheme forced")) + (note,)
     if scheme is not None:
         notes += (f"scheme forced to {scheme}",)
@@ -141,8 +153,68 @@ def design_and_plan(
     seconds: float = SIM_SECONDS,
     seed: int = DEFAULT_SEED,
 ) -> tuple[Design, Plan]:
-    """The design of the settled plan (or of ``chosen``), its arithmetic confirmed by simulated loss."""
-    p = chosen or settle(spec, scheme, seconds, seed)
+    """The design of the settled plan (or of ``chosen``), its arithmetic confirmed by simulated loss.
+
+    The planner prices the sections with the arithmetic the designer falls back to (its roundoff
+    is negligible at any quality it can promise); the designer may then take a cheaper one. Where
+    that frees CPU time an option needed (one was dropped for its load, or no option fit at all),
+    the plan is made again with the cheaper arithmetic's cost, and its design is kept when that
+    arithmetic passes the simulated loss there too."""
+    if chosen is not None:
+        return _confirmed(spec, chosen, seconds, seed)
+    cheap = _cheaper_arith(spec)
+    try:
+        p = settle(spec, scheme, seconds, seed)
+    except SpecError as refused:
+        if cheap is None:
+            raise
+        try:
+            d, q = _confirmed(spec, settle(spec, scheme, seconds, seed, arith=cheap), seconds, seed)
+        except SpecError:
+            raise refused from None
+        if arith_name(d) != cheap or d.budget.load_fraction > spec.target.cpu_budget:
+            raise refused from None
+        note = (
+            f"planned with the {cheap} arithmetic's cost (the design's): priced with the {_fallback(spec)} "
+            f"arithmetic, no option fits the budget"
+        )
+        return d, dataclasses.replace(q, notes=q.notes + (note,))
+    d, p = _confirmed(spec, p, seconds, seed)
+    name = arith_name(d)
+    dropped = [o for o in p.options if not o.feasible and "CPU load" in o.reason]
+    if name != cheap or not dropped or d.budget.cycles_per_output >= p.load.per_output:
+        return d, p
+    try:
+        q = settle(spec, scheme, seconds, seed, arith=name)
+        if (q.scheme, q.variant, q.ratio) == (p.scheme, p.variant, p.ratio):
+            return d, p
+        d2, q = _confirmed(spec, q, seconds, seed)
+    except SpecError:  # the new choice's design refuses a [fixed] target: keep the first
+        return d, p
+    if arith_name(d2) != name or d2.budget.load_fraction > spec.target.cpu_budget:
+        return d, p
+    note = (
+        f"planned again with the {name} arithmetic's cost (the design's): {q.scheme} {q.variant} R={q.ratio} "
+        f"replaces {p.scheme} {p.variant} R={p.ratio}, which was chosen while options were priced with the "
+        f"{_fallback(spec)} arithmetic"
+    )
+    return d2, dataclasses.replace(q, notes=q.notes + (note,))
+
+
+def _cheaper_arith(spec: Spec) -> str | None:
+    """The arithmetic the designer may take below the planner's price (designer.assemble.width_options):
+    the shaped one on a core without a 32x32->64 multiply when the spec leaves the choice to it."""
+    return "shaped" if spec.fixed.arith == "auto" and not spec.target.mul64 else None
+
+
+def _fallback(spec: Spec) -> str:
+    """The arithmetic the planner prices "auto" with (planner.schemes.planned_filter_cycles)."""
+    return "wide" if spec.target.mul64 else "split (mid) or wide"
+
+
+def _confirmed(spec: Spec, p: Plan, seconds: float, seed: int) -> tuple[Design, Plan]:
+    """The design of plan ``p``, its arithmetic confirmed by simulated loss (the cheapest whose
+    integer model meets the spec's loss limit), and ``p`` with a note on the arithmetic."""
     d = assemble.design(spec, p)
     if spec.fixed.arith != "auto":
         return d, p
@@ -193,3 +265,20 @@ def arith_name(d: Design) -> str:
         for name, a in ARITHS.items()
         if (a.data_bits, a.coef_width, a.acc_bits, a.shaped) == (f.data_bits, f.coef_width, f.acc_bits, f.shaped)
     )
+
+
+def chain_summary(d: Design, p: Plan) -> str:
+    """One line on the design's output chain and its CPU figure (plan and report print it): the
+    option rows of ``p`` are priced with the arithmetic ``p.arith`` names (for "auto" the one the
+    designer falls back to, planner.schemes.planned_filter_cycles), the design with the one it took."""
+    f, b = d.filters, d.budget
+    feedback = ", error feedback" if f.shaped else ""
+    line = (
+        f"output chain: {arith_name(d)} arithmetic ({f.data_bits}-bit data, Q{f.coef_bits} coefficients{feedback}), "
+        f"{len(f.sections)} sections; the design's CPU estimate {b.cycles_per_output}/output sample = "
+        f"{b.load_fraction:.1%}"
+    )
+    if b.cycles_per_output != p.load.per_output:
+        priced = "the fallback arithmetic" if p.arith == "auto" else f"the {p.arith} arithmetic"
+        line += f" (the option rows are priced with {priced}'s {p.load.per_output})"
+    return line

@@ -205,7 +205,7 @@ def _db(v: float) -> str:
     return "-" if v == float("inf") else f"{v:.1f}"
 
 
-def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
+def _plan_table(spec: Spec, pl, sims: dict | None, d=None) -> str:
     lines = [
         f"edgetally plan for '{spec.name}': scheme {pl.scheme} ({pl.variant}), CIC order {pl.order} "
         f"ratio {pl.ratio}, grid {pl.grid_hz} Hz -> output {spec.output.rate_hz} Hz",
@@ -239,6 +239,10 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
         f"{ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = {ld.fraction:.1%} "
         f"(budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state",
     ]
+    if d is not None:
+        from ..check.choice import chain_summary
+
+        lines.append(chain_summary(d, pl))
     lines += [f"note: {n}" for n in pl.notes]
     if sims:
         for (scheme, variant), v in sims.items():
@@ -260,6 +264,18 @@ def _plan_table(spec: Spec, pl, sims: dict | None) -> str:
     return "\n".join(lines)
 
 
+def _design_dict(d) -> dict:
+    from ..check.choice import arith_name
+
+    return {
+        "arith": arith_name(d),
+        "data_bits": d.filters.data_bits,
+        "coef_bits": d.filters.coef_bits,
+        "cycles_per_output": d.budget.cycles_per_output,
+        "load_fraction": d.budget.load_fraction,
+    }
+
+
 def json_safe(obj):
     if isinstance(obj, float) and not math.isfinite(obj):
         return None
@@ -273,12 +289,11 @@ def json_safe(obj):
 def cmd_plan(args) -> int:
     spec = load_spec(args.spec)
     warn_spec(spec)
-    from ..check.choice import settle
+    from ..check.choice import design_and_plan
 
-    pl = settle(spec, scheme=args.scheme)
-    from ..designer.assemble import design as make_design
-
-    make_design(spec, pl)  # what plan accepts, emit, verify and widths build: the [fixed] targets refuse here too
+    # the design emit, verify and widths build (the [fixed] targets refuse here too), its arithmetic
+    # confirmed by simulation
+    d, pl = design_and_plan(spec, scheme=args.scheme)
     sims = None
     if args.simulate:
         from ..check.choice import simulate_options
@@ -288,21 +303,21 @@ def cmd_plan(args) -> int:
         sims = simulate_options(spec, pl)
     measured = None
     if args.measured:
-        pl, measured = _measured_plan(spec, pl, args.scheme)
+        d, pl, measured = _measured_plan(spec, d, pl, args.scheme)
         measured = dict(measured)
     if args.json:
-        obj = {"name": spec.name, **pl.to_dict()}
+        obj = {"name": spec.name, **pl.to_dict(), "design": _design_dict(d)}
         if measured is not None:
             obj["measured"] = measured
         if sims is not None:
             obj["simulated_sinad_db"] = [{"scheme": k[0], "variant": k[1], "sinad_db": v} for k, v in sims.items()]
         print(json.dumps(json_safe(obj), indent=2))
     else:
-        print(_plan_table(spec, pl, sims))
+        print(_plan_table(spec, pl, sims, d))
         if measured is not None:
             print(
                 f"measured on the emulated {spec.target.core} (-Os): CPU load {measured['load_fraction']:.1%} "
-                f"(estimate {pl.load.fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
+                f"(estimate {d.budget.load_fraction:.1%}); cycles {measured['cycles_per_edge_isr']:g}/edge ISR, "
                 f"{measured['cycles_per_input']:g}/input, {measured['cycles_per_grid']:g}/grid instant, "
                 f"{measured['cycles_per_output']:g}/output; flash {measured['flash_bytes']} B"
             )
@@ -316,12 +331,12 @@ def cmd_plan(args) -> int:
 MEASURE_TRIES = 4  # options measured at most before giving up on --measured
 
 
-def _measured_plan(spec: Spec, pl, scheme):
-    """Measure the chosen design's cycles in the emulator for the spec's core; while the measured
-    load exceeds the budget, drop that option (with the measured figure as its reason) and plan
-    again. Returns the final plan and its measurement."""
+def _measured_plan(spec: Spec, d, pl, scheme):
+    """Measure the chosen design ``d`` (of plan ``pl``) in the emulator for the spec's core; while
+    the measured load exceeds the budget, drop that option (with the measured figure as its reason),
+    plan and design again. Returns the final design, its plan and its measurement."""
     from ..target import build as target
-    from ..designer.assemble import design as make_design
+    from ..check.choice import design_and_plan
     from ..planner.choose import plan
     from ..target.check import TARGET_CORES, target_check
 
@@ -333,16 +348,16 @@ def _measured_plan(spec: Spec, pl, scheme):
         raise RuntimeError(f"--measured needs {t.cc} (Debian {t.package}) and the {t.emulator} emulator")
     exclude: dict = {}
     for _ in range(MEASURE_TRIES):
-        t = target_check(make_design(spec, pl), cores=(core,))[core]
+        t = target_check(d, cores=(core,))[core]
         if t["load_fraction"] <= spec.target.cpu_budget:
             t["dropped_after_measuring"] = [
                 {"scheme": k[0], "variant": k[1], "ratio": k[2], "reason": r} for k, r in exclude.items()
             ]
-            return pl, t
+            return d, pl, t
         exclude[(pl.scheme, pl.variant, pl.ratio)] = (
             f"measured load {t['load_fraction']:.1%} exceeds the budget {spec.target.cpu_budget:.0%}"
         )
-        pl = plan(spec, scheme=scheme, exclude=exclude)
+        d, pl = design_and_plan(spec, scheme, chosen=plan(spec, scheme=scheme, exclude=exclude, arith=pl.arith))
     raise RuntimeError(
         f"--measured: {MEASURE_TRIES} options in a row measured over the budget; raise "
         "target.cpu_budget or force a lighter scheme"

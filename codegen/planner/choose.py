@@ -71,6 +71,9 @@ class Plan:
     prediction: schemes.Prediction
     options: tuple[Option, ...]
     notes: tuple[str, ...] = field(default=())
+    # the filter arithmetic the loads are priced with: the spec's (fixed.arith), or one the designer
+    # took and the plan was made again with (edgetally.check.choice.design_and_plan)
+    arith: str = "auto"
 
     def to_dict(self) -> dict:
         return dataclasses.asdict(self)
@@ -177,7 +180,13 @@ def _count_front(spec: Spec, ratio: int, grid_hz: int, grid_ticks: int):
 
 
 def _candidates(
-    spec: Spec, v: Variant, impossible: str | None, post_sos: list, only_ratio: int | None, exclude: dict | None = None
+    spec: Spec,
+    v: Variant,
+    impossible: str | None,
+    post_sos: list,
+    only_ratio: int | None,
+    exclude: dict | None = None,
+    arith: str = "auto",
 ) -> list[_Cand]:
     sig, out, tgt = spec.signal, spec.output, spec.target
     ticks_per_out = tgt.timer_hz // out.rate_hz
@@ -208,7 +217,7 @@ def _candidates(
             sections=sections,
             queue_len=qlen,
             data=spec.data is not None,
-            arith=spec.fixed.arith,
+            arith=arith,
             fir=len(sos_r[0]) if droop else 0,
         )
         pr = schemes.predict(
@@ -309,11 +318,14 @@ def plan(
     variant: str | None = None,
     ratio: int | None = None,
     exclude: dict | None = None,
+    arith: str | None = None,
 ) -> Plan:
     """Plan the demodulator for ``spec``. ``scheme`` forces one of SCHEMES; ``variant`` (a label
     from the option table) and ``ratio`` narrow the choice further; ``exclude`` maps
-    (scheme, variant, ratio) to the reason an option may not be used (e.g. its measured load)."""
+    (scheme, variant, ratio) to the reason an option may not be used (e.g. its measured load);
+    ``arith`` prices the filter sections with that arithmetic instead of the spec's."""
     sig, out, tgt = spec.signal, spec.output, spec.target
+    arith = arith or spec.fixed.arith
     if scheme is not None and scheme not in SCHEMES:
         raise SpecError("--scheme", scheme, "must be one of " + ", ".join(SCHEMES))
     post_sos = _checked_filters(spec)
@@ -321,7 +333,7 @@ def plan(
     for v, impossible in schemes.variants(tgt):
         if (scheme is not None and v.scheme != scheme) or (variant is not None and v.label != variant):
             continue
-        cands = _candidates(spec, v, impossible, post_sos, ratio, exclude)
+        cands = _candidates(spec, v, impossible, post_sos, ratio, exclude, arith)
         per_variant.append((v, cands, _best_of_variant(spec, cands)))
     if variant is not None and not per_variant:
         raise SpecError("--variant", variant, "is not a variant of " + (scheme or "any scheme") + " on this part")
@@ -393,6 +405,7 @@ def plan(
         prediction=pr,
         options=tuple(rows),
         notes=tuple(notes),
+        arith=arith,
     )
 
 

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..check.choice import chain_summary
 from ..dsp import cic
 from . import listen
 from . import plots as report_plots
@@ -213,6 +214,7 @@ def _plan_section(ctx: ReportContext) -> str:
         f"<p>CPU estimate on {_e(spec.target.core)} at {_e(_hz(spec.target.cpu_hz))}: {ld.per_edge} cycles/edge "
         f"in ISRs, {ld.per_input}/input, {ld.per_grid}/grid instant, {ld.per_output}/output sample = "
         f"{ld.fraction:.1%} (budget {spec.target.cpu_budget:.0%}); about {ld.ram_bytes} bytes of state.</p>",
+        f"<p>{_e(chain_summary(ctx.design, p))}.</p>",
     ]
     if p.notes:
         body.append("<ul>" + "".join(f"<li>{_e(n)}</li>" for n in p.notes) + "</ul>")
