@@ -282,3 +282,14 @@ def test_band_power_close_to_scipy_periodogram_with_periodic_hann(n):
     rel = (1 + 2 * d / s2 + (d / s2) ** 2) * (1 + abs(c1 / c2 - 1)) - 1
     assert rel < 3e-3
     assert got == pytest.approx(want, rel=rel)
+
+
+def test_sinad_db_floors_as_tone_analysis_and_gives_minus_inf_for_zeros():
+    # sinad_db follows the module's float floor (eps^2 mean(x^2)): a noiseless tone gives the same
+    # large finite figure as tone_analysis; a constant record (no tone) the floor's 0 dB ratio, never
+    # a division by zero; a record of zeros (a muted output) -inf, where tone_analysis refuses it.
+    x = _tones(N, FS, [(TONE, 0.5, 0.4)])
+    assert metrics.sinad_db(x, FS, TONE, *BAND) == metrics.tone_analysis(x, FS, TONE, *BAND).sinad_db
+    assert math.isfinite(metrics.sinad_db(x, FS, TONE, *BAND))
+    assert metrics.sinad_db(np.full(N, 128.0), FS, TONE, *BAND) == pytest.approx(0.0, abs=1e-9)
+    assert metrics.sinad_db(np.zeros(N), FS, TONE, *BAND) == -math.inf

@@ -23,7 +23,9 @@ Float floor: a power below eps^2 times the record's mean square (eps = 2^-52, th
 near 1) is below what the samples themselves resolve, so every power in a dB ratio is raised to that
 floor. A noiseless record therefore gives a large finite SINAD (at most about 313 dB, not inf or a
 division by zero), and a record with no fitted harmonic a THD at the floor. A record of zeros has no
-tone to measure and is refused (ValueError).
+tone to measure: ``tone_analysis`` refuses it (ValueError), ``sinad_db`` (which verify and the
+choice by simulation apply to whatever the C and the model give, a muted output included) returns
+-inf.
 """
 
 from __future__ import annotations
@@ -86,9 +88,13 @@ def band_power(x: np.ndarray, fs: float, lo: float, hi: float) -> float:
 
 def sinad_db(x: np.ndarray, fs: float, tone_hz: float, band_lo: float, band_hi: float) -> float:
     """SINAD in dB of a tone at tone_hz, noise and distortion counted over [band_lo, band_hi]."""
+    x = np.asarray(x, dtype=np.float64)
+    floor = EPS**2 * (float(np.mean(x**2)) if x.size else 0.0)  # the float floor (module docstring)
+    if floor == 0.0:  # a record of zeros (a muted output): no tone at all
+        return -math.inf
     p_tone, resid = tone_fit(x, fs, tone_hz)
     p_noise = band_power(resid, fs, band_lo, band_hi)
-    return float(10 * np.log10(p_tone / p_noise))
+    return float(10 * np.log10(max(p_tone, floor) / max(p_noise, floor)))
 
 
 def _check_tone(fs: float, tone_hz: float) -> None:
