@@ -22,6 +22,7 @@ from . import model, reference
 from ..designer import assemble
 from ..ir import Design
 from ..measure import metrics
+from ..planner import schemes
 from ..planner.choose import TIE_DB, Option, Plan, plan
 from ..spec import Spec, SpecError
 from ..stimulus.inputs import DEFAULT_SEED, make_inputs
@@ -178,7 +179,7 @@ def design_and_plan(
         if arith_name(d) != cheap or d.budget.load_fraction > spec.target.cpu_budget:
             raise refused from None
         note = (
-            f"planned with the {cheap} arithmetic's cost (the design's): priced with the {_fallback(spec)} "
+            f"planned with the {cheap} arithmetic's cost (the design's): priced with the {schemes.fallback_arith(spec.target)} "
             f"arithmetic, no option fits the budget"
         )
         return d, dataclasses.replace(q, notes=q.notes + (note,))
@@ -199,20 +200,15 @@ def design_and_plan(
     note = (
         f"planned again with the {name} arithmetic's cost (the design's): {q.scheme} {q.variant} R={q.ratio} "
         f"replaces {p.scheme} {p.variant} R={p.ratio}, which was chosen while options were priced with the "
-        f"{_fallback(spec)} arithmetic"
+        f"{schemes.fallback_arith(spec.target)} arithmetic"
     )
     return d2, dataclasses.replace(q, notes=q.notes + (note,))
 
 
 def _cheaper_arith(spec: Spec) -> str | None:
-    """The arithmetic the designer may take below the planner's price (designer.assemble.width_options):
-    the shaped one on a core without a 32x32->64 multiply when the spec leaves the choice to it."""
-    return "shaped" if spec.fixed.arith == "auto" and not spec.target.mul64 else None
-
-
-def _fallback(spec: Spec) -> str:
-    """The arithmetic the planner prices "auto" with (planner.schemes.planned_filter_cycles)."""
-    return "wide" if spec.target.mul64 else "split (mid) or wide"
+    """The arithmetic the designer may take below the planner's price: the shaped one, where the
+    spec leaves the choice to it and the core offers it (designer.assemble.auto_ariths)."""
+    return "shaped" if spec.fixed.arith == "auto" and "shaped" in assemble.auto_ariths(spec.target) else None
 
 
 def _confirmed(spec: Spec, p: Plan, seconds: float, seed: int) -> tuple[Design, Plan]:

@@ -20,7 +20,7 @@ from ..ir import Budget, Cic, Design, Filters, OutputFormat, Rates, Scale, Squel
 from .squelch import design_squelch, squelch_level_bits, squelch_registers
 from ..planner.choose import REG_BITS, Plan, plan
 from .. import standard
-from ..spec import Spec, SpecError
+from ..spec import Spec, SpecError, Target
 
 # the scale multiplier's precision (relative gain error at most 2**-15, under 0.001 dB): 15 bits let
 # cores without a 64-bit product take it as two 32-bit ones (wordlength.scale_product)
@@ -150,18 +150,23 @@ def _shaped_words(spec: Spec, p: Plan, a: wordlength.Arith, scaling: str, ov: di
     return widest
 
 
+def auto_ariths(tgt: Target) -> list[str]:
+    """The arithmetics ``[fixed] arith = "auto"`` chooses among on ``tgt``, before their costs order them."""
+    # on cores without a 32x32->64 multiply the shaped arithmetic (32-bit products, error feedback)
+    # and the split one (27 x 16 from three 16 x 16 products) stand in for the wide one; the core's
+    # cost table orders them (width_options). The shaped one's coefficients take the coarsest format that
+    # meets the spec's response tolerance (_shaped_words), which leaves the most bits to the data
+    # word. With a 32x32->64 multiply the wide arithmetic is cheap, and the reference checks of a
+    # de-emphasis corner (tests/test_iir_reference.py) want the finer coefficients it keeps.
+    return ["narrow", "wide"] if tgt.mul64 else ["narrow", "shaped", "mid", "wide"]
+
+
 def width_options(spec: Spec, p: Plan, overrides: dict | None = None) -> list[WidthOption]:
     """Each arithmetic the output chain could use (or the one ``overrides`` describe), cheapest
     first, with its predicted loss, response error and cost, and whether it meets the spec."""
     fx, tgt = spec.fixed, spec.target
     ov = dict(overrides or {})
-    # on cores without a 32x32->64 multiply the shaped arithmetic (32-bit products, error feedback)
-    # and the split one (27 x 16 from three 16 x 16 products) stand in for the wide one; the core's
-    # cost table orders them (below). The shaped one's coefficients take the coarsest format that
-    # meets the spec's response tolerance (_shaped_words), which leaves the most bits to the data
-    # word. With a 32x32->64 multiply the wide arithmetic is cheap, and the reference checks of a
-    # de-emphasis corner (tests/test_iir_reference.py) want the finer coefficients it keeps.
-    auto = ["narrow", "wide"] if tgt.mul64 else ["narrow", "shaped", "mid", "wide"]
+    auto = auto_ariths(tgt)
     names = [ov.pop("arith")] if "arith" in ov else (auto if fx.arith == "auto" else [fx.arith])
     signal_fs2 = schemes.TEST_LEVEL**2 / 2 * 10 ** (-p.prediction.sinad_db / 10)
     out_bits = output_bits(spec.output.format)

@@ -367,6 +367,11 @@ def planned_filter_cycles(tgt: Target, sections: int, arith: str = "auto", fir: 
     return wide if tgt.mul64 else min(wide, filter_cycles(tgt, 48, sections, 27, 16))
 
 
+def fallback_arith(tgt: Target) -> str:
+    """The arithmetic ``planned_filter_cycles`` prices "auto" with, by name."""
+    return "wide" if tgt.mul64 else "split (mid) or wide"
+
+
 def uses_reciprocal(tgt: Target) -> bool:
     """Whether the stamp front's quotients go through one reciprocal per interval: on cores with no
     divide instruction but a fast 32-bit multiply (measured: benchmarks/bench_division.py on the
